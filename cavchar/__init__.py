@@ -1,0 +1,44 @@
+"""cavchar: energy lifetime, thermal photon number and effective temperature of
+high-Q superconducting microwave cavities, with credible intervals.
+
+The public API is imported lazily, so ``import cavchar`` stays light (no
+matplotlib, corner or numba until a fit or plot needs them)::
+
+    import cavchar
+    result = cavchar.fit_jumps("record.csv", freq_hz=6.8e9, stage_temp_k=0.02)
+    print(result.summary())
+"""
+
+from __future__ import annotations
+
+import importlib
+
+__version__ = "0.1.0"
+
+#: public name -> module that defines it
+_PUBLIC = {
+    "fit_jumps": "cavchar.fits.jumps",
+    "fit_probes": "cavchar.fits.probes",
+    "fit_ringdown": "cavchar.fits.ringdown",
+    "FitResult": "cavchar.result",
+    "planck_occupation": "cavchar.thermal",
+    "effective_temperature": "cavchar.thermal",
+    "two_bath_occupation": "cavchar.thermal",
+    "parse_quantity": "cavchar.units",
+    "format_quantity": "cavchar.units",
+    "plan_jumps": "cavchar.plan",
+    "plan_probes": "cavchar.plan",
+    "plan_ringdown": "cavchar.plan",
+}
+
+__all__ = ["__version__", *_PUBLIC]
+
+
+def __getattr__(name: str):
+    if name in _PUBLIC:
+        return getattr(importlib.import_module(_PUBLIC[name]), name)
+    raise AttributeError(f"module 'cavchar' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted(__all__)

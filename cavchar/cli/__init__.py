@@ -1,0 +1,1 @@
+"""Command line of cavchar: ``cavchar <command> ...`` (see ``cavchar --help``)."""
