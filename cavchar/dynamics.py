@@ -193,7 +193,8 @@ class DampedModePropagator:
             self.eigenvalues = np.minimum(lam, 0.0)
             self.right = vecs / sqrt_pi[0][:, None]
             self.left = vecs.T * sqrt_pi[0][None, :]
-        self.method = "eigen" if self._eigen_ok(_amplification(self.n_th, np.array(n_max))) else "expm"
+        accurate = self._eigen_ok(_amplification(self.n_th, np.array(n_max)))
+        self.method = "eigen" if accurate else "expm"
 
     def _eigen_ok(self, amplification: float) -> bool:
         return self.right is not None and _EPS * float(amplification) <= _EIGEN_TOLERANCE

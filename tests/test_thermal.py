@@ -110,6 +110,7 @@ def test_two_bath():
     assert two_bath_occupation(nu, 0.02, 4.0, 0.0) == pytest.approx(planck_occupation(nu, 0.02))
     assert two_bath_occupation(nu, 0.02, 4.0, 1.0) == pytest.approx(planck_occupation(nu, 4.0))
     mix = two_bath_occupation(nu, 0.02, 4.0, 1e-3)
-    assert mix == pytest.approx(0.999 * planck_occupation(nu, 0.02) + 1e-3 * planck_occupation(nu, 4.0))
+    expected = 0.999 * planck_occupation(nu, 0.02) + 1e-3 * planck_occupation(nu, 4.0)
+    assert mix == pytest.approx(expected)
     with pytest.raises(ValueError):
         two_bath_occupation(nu, 0.02, 4.0, 1.5)
