@@ -1,0 +1,1 @@
+"""Likelihood models, one module per data shape (jump, probe and ring-down records)."""
