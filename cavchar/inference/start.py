@@ -1,0 +1,169 @@
+"""Where the sampler starts: MAP search, local covariance, start ball of walkers.
+
+All in sampler coordinates ``u`` (see :mod:`cavchar.parameters`); ``logpost``
+is a batched log posterior ``(k, ndim) -> (k,)``.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from typing import Any
+
+import numpy as np
+
+from cavchar.errors import InputError
+from cavchar.parameters import ParameterSpace
+
+__all__ = ["find_map", "local_covariance", "initial_ball"]
+
+_BIG = 1e300  # objective value the optimizers see outside the support
+
+
+def _prior_widths(space: ParameterSpace) -> np.ndarray:
+    """Width of the central 68% of each prior in sampler coordinates (NaN if unbounded)."""
+    widths = []
+    for spec in space.specs:
+        lo, hi = spec.prior.ppf(np.array([0.15865525, 0.84134475]))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            w = float(spec.to_sampler(hi) - spec.to_sampler(lo))
+        widths.append(w if math.isfinite(w) and w > 0 else math.nan)
+    return np.array(widths)
+
+
+def find_map(logpost: Callable[[np.ndarray], np.ndarray], u0: np.ndarray,
+             space: ParameterSpace, rng: np.random.Generator
+             ) -> tuple[np.ndarray, float, dict[str, Any]]:
+    """Maximum of the log posterior in sampler coordinates.
+
+    Nelder-Mead from ``u0``, then L-BFGS-B and Powell from the best point so
+    far; the best value is kept.  If ``u0`` has no finite posterior, the best of
+    ``64 * ndim`` prior draws is the start.
+
+    Returns
+    -------
+    (u_map, log_posterior, info) with ``info`` naming the start and the methods' values.
+    """
+    from scipy.optimize import minimize
+
+    ndim = space.ndim
+    lp0 = float(logpost(u0[None])[0])
+    start = "initial guess"
+    if not np.isfinite(lp0):
+        cand = space.to_sampler(space.sample_prior(rng, 64 * ndim))
+        lps = logpost(cand)
+        if not np.isfinite(lps).any():
+            raise InputError("no parameter values with a finite posterior were found: the "
+                             "initial guess and 64 prior draws all have zero likelihood",
+                             hint="check that the priors cover values the data allow")
+        best = int(np.argmax(lps))
+        u0, lp0 = cand[best], float(lps[best])
+        start = "best prior draw (the initial guess has zero posterior density)"
+
+    def objective(u: np.ndarray) -> float:
+        v = float(logpost(u[None])[0])
+        return -v if np.isfinite(v) else _BIG
+
+    widths = _prior_widths(space)
+    steps = np.maximum(0.05 * np.abs(u0), np.where(np.isfinite(widths), 1e-2 * widths, 0.0))
+    steps = np.where(steps > 0, steps, 2.5e-4)
+    simplex = np.vstack([u0, u0 + np.diag(steps)])
+    methods = [("Nelder-Mead", {"initial_simplex": simplex, "xatol": 1e-9, "fatol": 1e-11,
+                                "maxiter": 1000 * ndim, "adaptive": ndim > 2}),
+               ("L-BFGS-B", {}),
+               ("Powell", {"xtol": 1e-9, "ftol": 1e-13})]
+    best_u, best_lp, best_method = np.array(u0, dtype=float), lp0, "start"
+    values: dict[str, float | None] = {}
+    for method, options in methods:
+        try:
+            res = minimize(objective, best_u, method=method, options=options)
+        except (ValueError, ArithmeticError, np.linalg.LinAlgError):
+            values[method] = None
+            continue
+        u = np.asarray(res.x, dtype=float)
+        lp = float(logpost(u[None])[0])
+        values[method] = lp if np.isfinite(lp) else None
+        if np.isfinite(lp) and lp > best_lp:
+            best_u, best_lp, best_method = u, lp, method
+    return best_u, best_lp, {"start": start, "method": best_method, "methods": values}
+
+
+def local_covariance(logpost: Callable[[np.ndarray], np.ndarray], u_map: np.ndarray,
+                     lp_map: float, space: ParameterSpace) -> tuple[np.ndarray, str]:
+    """Approximate posterior covariance at the MAP (sampler coordinates), ``(ndim, ndim)``.
+
+    Per axis a step ``h_i`` is found at which the log posterior drops by
+    0.05-2; the Hessian from central differences with those steps (one batched
+    call) gives ``cov = (-H)^-1`` if ``-H`` is positive definite ("hessian"),
+    else the diagonal curvatures ("diagonal"), else ``h_i^2`` ("steps").
+    """
+    ndim = space.ndim
+    widths = _prior_widths(space)
+    h = np.empty(ndim)
+    for i in range(ndim):
+        hi = 0.1 * widths[i] if np.isfinite(widths[i]) else 0.1 * max(abs(u_map[i]), 1.0)
+        ref, shrunk = hi, False
+        for _ in range(80):
+            pts = np.tile(u_map, (2, 1))
+            pts[0, i] += hi
+            pts[1, i] -= hi
+            drop = lp_map - logpost(pts)
+            dmax = float(np.max(drop))
+            if not np.isfinite(dmax) or dmax > 2.0:
+                hi /= 3.0
+                shrunk = True
+            elif dmax < 0.05 and not shrunk and hi < 1e6 * ref:
+                hi *= 3.0
+            else:
+                break
+        h[i] = hi
+    eye = np.eye(ndim)
+    pts = [u_map + s * h[i] * eye[i] for i in range(ndim) for s in (1.0, -1.0)]
+    pairs = [(i, j) for i in range(ndim) for j in range(i + 1, ndim)]
+    for i, j in pairs:
+        for si, sj in ((1, 1), (1, -1), (-1, 1), (-1, -1)):
+            pts.append(u_map + si * h[i] * eye[i] + sj * h[j] * eye[j])
+    f = logpost(np.array(pts))
+    hess = np.empty((ndim, ndim))
+    for i in range(ndim):
+        hess[i, i] = (f[2 * i] - 2.0 * lp_map + f[2 * i + 1]) / h[i] ** 2
+    for k, (i, j) in enumerate(pairs):
+        fpp, fpm, fmp, fmm = f[2 * ndim + 4 * k: 2 * ndim + 4 * k + 4]
+        hess[i, j] = hess[j, i] = (fpp - fpm - fmp + fmm) / (4.0 * h[i] * h[j])
+    if np.isfinite(hess).all():
+        try:
+            np.linalg.cholesky(-hess)
+            cov = np.linalg.inv(-hess)
+            cov = 0.5 * (cov + cov.T)
+            np.linalg.cholesky(cov)
+            return cov, "hessian"
+        except np.linalg.LinAlgError:
+            pass
+    curv = -np.diag(hess)
+    if np.all(np.isfinite(curv) & (curv > 0)):
+        return np.diag(1.0 / curv), "diagonal"
+    return np.diag(h**2), "steps"
+
+
+def initial_ball(logpost: Callable[[np.ndarray], np.ndarray], u_map: np.ndarray,
+                 cov: np.ndarray, n_walkers: int, scale: float,
+                 rng: np.random.Generator) -> np.ndarray:
+    """Walker start positions ``u_map + scale * L z`` (``L L^T = cov``), ``(n_walkers, ndim)``.
+
+    Walkers that land outside the support are redrawn with the scale halved,
+    up to 30 times; any left are put at the MAP plus a 1e-6 jitter.
+    """
+    ndim = u_map.size
+    chol = np.linalg.cholesky(cov)
+    u = u_map + scale * rng.standard_normal((n_walkers, ndim)) @ chol.T
+    lp = logpost(u)
+    for attempt in range(1, 31):
+        bad = ~np.isfinite(lp)
+        if not bad.any():
+            return u
+        shrink = scale * 0.5**attempt
+        u[bad] = u_map + shrink * rng.standard_normal((int(bad.sum()), ndim)) @ chol.T
+        lp[bad] = logpost(u[bad])
+    bad = ~np.isfinite(lp)
+    u[bad] = u_map + 1e-6 * rng.standard_normal((int(bad.sum()), ndim)) @ chol.T
+    return u
