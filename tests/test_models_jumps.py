@@ -104,3 +104,36 @@ def test_sampled_likelihood_is_batched():
     single = [sampled_log_likelihood(trans, [lt], [nt], 12)[0]
               for lt, nt in zip(lifetimes[:2], nths[:2])]
     np.testing.assert_allclose(batch[:2], single, rtol=1e-13)
+
+
+def test_fisher_information_against_numerical_hessian():
+    # source: closed form in exact_fisher_information's docstring vs a central-difference
+    # Hessian of the log-likelihood with the sufficient statistics at their expectations
+    # (the log-likelihood is linear in them, so E[-Hessian] is that Hessian)
+    from cavchar.models.jumps import JumpStatistics, exact_fisher_information
+
+    lifetime, n_th, duration = 2.5e-3, 0.08, 40.0
+    kappa = 1 / lifetime
+    a, b = kappa * n_th, kappa * (1 + n_th)
+    stats = JumpStatistics(
+        up=0, down=0, time_n_plus_1=duration * (1 + n_th), time_n=duration * n_th,
+        constant=0.0, duration=duration, initial_states=np.array([0]), n_max=3,
+    )
+
+    def loglike(theta):
+        t_c, n = theta
+        k = 1 / t_c
+        # U log a + D log b with U, D replaced by their expectations (floats)
+        return ((a * stats.time_n_plus_1) * np.log(k * n) + (b * stats.time_n) * np.log(k * (1 + n))
+                - k * n * stats.time_n_plus_1 - k * (1 + n) * stats.time_n)
+
+    theta = np.array([lifetime, n_th])
+    steps = theta * 1e-4
+    hess = np.empty((2, 2))
+    for i in range(2):
+        for j in range(2):
+            ei, ej = np.eye(2)[i] * steps[i], np.eye(2)[j] * steps[j]
+            hess[i, j] = (loglike(theta + ei + ej) - loglike(theta + ei - ej)
+                          - loglike(theta - ei + ej) + loglike(theta - ei - ej))
+            hess[i, j] /= 4 * steps[i] * steps[j]
+    np.testing.assert_allclose(exact_fisher_information(lifetime, n_th, duration), -hess, rtol=1e-5)

@@ -49,6 +49,7 @@ __all__ = [
     "sampled_transitions",
     "sampled_log_likelihood",
     "dwell_times",
+    "exact_fisher_information",
 ]
 
 
@@ -346,3 +347,50 @@ def dwell_times(
     complete = np.ones(times.size, dtype=bool)
     complete[ends_idx - 1] = False
     return next_time - times, photons, complete
+
+
+def exact_fisher_information(lifetime: float, n_thermal: float, duration: float) -> np.ndarray:
+    """Expected Fisher information of an exact stationary jump record, parameters (T_c, n_th).
+
+    Derivation.  In the rate coefficients ``a = kappa n_th``, ``b = kappa (1 + n_th)``
+    the log-likelihood ``U log a + D log b - a A_1 - b A_0`` has
+    ``-d2/da2 = U/a^2``, ``-d2/db2 = D/b^2`` and no cross term.  In a stationary
+    record of duration ``T`` the expected integrals are ``E[A_1] = T (1 + n_th)``
+    and ``E[A_0] = T n_th`` and, since jumps arrive at the integrated rates,
+    ``E[U] = a E[A_1]``, ``E[D] = b E[A_0]``; hence
+
+        I_aa = T (1 + n) / (kappa n),   I_bb = T n / (kappa (1 + n)),   I_ab = 0.
+
+    With the Jacobian ``d(a, b)/d(kappa, n) = [[n, kappa], [1 + n, kappa]]``:
+
+        I_kk = 2 T n (1 + n) / kappa,   I_kn = T (1 + 2 n),
+        I_nn = T kappa [(1 + n)/n + n/(1 + n)],
+
+    whose determinant is exactly ``T^2``, so the Cramér–Rao variances are
+    ``var(kappa) = kappa [(1+n)/n + n/(1+n)] / T`` and ``var(n) = 2 n (1+n) / (kappa T)``.
+    Finally ``T_c = 1/kappa`` (``dT_c/dkappa = -T_c^2``) gives the matrix returned.
+    The information of the first state (Bose–Einstein) is O(1) and neglected.
+
+    Parameters
+    ----------
+    lifetime : float
+        T_c in s.
+    n_thermal : float
+        n_th (> 0).
+    duration : float
+        Record length T in s.
+
+    Returns
+    -------
+    (2, 2) ndarray
+        Fisher information for (T_c [s], n_th).
+    """
+    kappa = 1.0 / lifetime
+    n = n_thermal
+    t = duration
+    i_kk = 2.0 * t * n * (1.0 + n) / kappa
+    i_kn = t * (1.0 + 2.0 * n)
+    i_nn = t * kappa * ((1.0 + n) / n + n / (1.0 + n))
+    jac = np.array([[-(kappa**2), 0.0], [0.0, 1.0]])  # d(kappa, n)/d(T_c, n)
+    info_kn = np.array([[i_kk, i_kn], [i_kn, i_nn]])
+    return jac.T @ info_kn @ jac
