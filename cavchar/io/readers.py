@@ -1,0 +1,357 @@
+"""Readers of cavchar's data files: jump, sampled and probe records, ring-down traces.
+
+The file formats are described in docs/data-formats.md.  Every reader accepts
+CSV/TSV (optionally gzip), NPZ and Parquet (see :mod:`cavchar.io.tables`),
+checks the file completely and raises one :class:`~cavchar.errors.InputError`
+naming the file, the line and what to do.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from collections.abc import Mapping
+from typing import NamedTuple
+
+import numpy as np
+
+from cavchar.errors import InputError
+from cavchar.io.tables import Table, check_columns, read_table
+from cavchar.records import JumpRecord, ProbeRecord, RingdownTrace, SampledRecord
+
+__all__ = [
+    "read_jump_record",
+    "read_sampled_record",
+    "read_probe_record",
+    "read_ringdown",
+    "read_response_table",
+    "ResponseTable",
+    "RINGDOWN_COLUMNS",
+]
+
+#: value column(s) of each ring-down signal kind; populations use count_0, count_1, ...
+RINGDOWN_COLUMNS: dict[str, tuple[str, ...]] = {
+    "power": ("power",),
+    "db": ("power_db",),
+    "amplitude": ("amplitude",),
+    "iq": ("real", "imag"),
+    "mean_n": ("mean_photons",),
+    "populations": (),
+}
+_COUNT = re.compile(r"^count_(\d+)$")
+
+
+def _whole_ids(table: Table, name: str) -> np.ndarray | None:
+    if name not in table:
+        return None
+    values = table[name]
+    bad = values != np.round(values)
+    if bad.any():
+        row = int(np.argmax(bad))
+        raise table.error(f"{name} {values[row]} is not a whole number", row,
+                          hint=f"{name} ids must be integers")
+    return values.astype(np.int64)
+
+
+def _lines(table: Table) -> tuple[np.ndarray, str]:
+    """Source line (text) or 1-based row (binary) of every table row."""
+    if table.row_lines is not None:
+        return table.row_lines, "line"
+    return np.arange(1, table.n_rows + 1), "row"
+
+
+def _where(table: Table) -> dict:
+    lines, kind = _lines(table)
+    return {"lines": lines, "line_kind": kind}
+
+
+def _end_time_argument(end_time, segment_ids: np.ndarray) -> dict[int, float]:
+    if end_time is None:
+        return {}
+    if isinstance(end_time, Mapping):
+        return {int(k): float(v) for k, v in end_time.items()}
+    if segment_ids.size > 1:
+        raise InputError(f"one end time given for {segment_ids.size} segments",
+                         hint="add an end row to each segment, or pass a mapping "
+                         "segment id -> end time")
+    return {int(segment_ids[0]): float(end_time)}
+
+
+def read_jump_record(
+    path: str | os.PathLike, end_time: float | Mapping[int, float] | None = None
+) -> JumpRecord:
+    """Read an exact jump record (change points).
+
+    Columns ``time`` (s) and ``photons`` (the photon number from this time
+    until the next row), optional ``segment`` (integer id).  Each segment ends
+    at an explicit end time, given by (first match wins, and sources that are
+    both present must agree):
+
+    * an *end row*: the segment's last row with the ``photons`` cell left empty,
+      its ``time`` being the end of the segment;
+    * a metadata line ``# end_time: 12.5 s`` (a file with one segment);
+    * the ``end_time`` argument (s; a number for one segment, or a mapping
+      segment id -> end time).
+
+    Parameters
+    ----------
+    path
+        The file (CSV/TSV/.gz/NPZ/Parquet).
+    end_time
+        End time(s) in s for segments without an end row.
+
+    Returns
+    -------
+    JumpRecord
+
+    Raises
+    ------
+    InputError
+        For every problem of the file (see :func:`cavchar.io.tables.read_table`),
+        an empty ``photons`` cell that is not a segment's last row, a segment
+        without an end time, conflicting end times, and every check of
+        :class:`~cavchar.records.JumpRecord` (times, photon numbers, jumps of
+        more than one photon), each naming the line.
+    """
+    table = read_table(path, required=("time", "photons"), optional=("segment",),
+                       allow_empty=("photons",))
+    time, photons = table["time"], table["photons"]
+    segment = _whole_ids(table, "segment")
+    ids_all = np.zeros(time.size, np.int64) if segment is None else segment
+    change = np.flatnonzero(ids_all[1:] != ids_all[:-1]) + 1
+    starts = np.concatenate(([0], change))
+    stops = np.concatenate((change, [time.size]))
+    is_end = np.isnan(photons)
+    ends_here = np.zeros(time.size, bool)
+    ends_here[stops - 1] = True
+    misplaced = is_end & ~ends_here
+    if misplaced.any():
+        row = int(np.argmax(misplaced))
+        raise table.error("the photons cell is empty but this is not the last row of its "
+                          "segment", row, hint="an empty photons cell marks the end row of a "
+                          "segment; give the photon number here")
+    solo = is_end[starts] & (stops - starts == 1)
+    if solo.any():
+        row = int(starts[np.argmax(solo)])
+        raise table.error("this segment has an end row but no change points", row,
+                          hint="give at least one row with a photon number before the end row")
+    seg_ids = ids_all[starts]
+    from_rows = {int(seg_ids[j]): (float(time[stops[j] - 1]), int(stops[j] - 1))
+                 for j in range(seg_ids.size) if is_end[stops[j] - 1]}
+    from_meta: dict[int, float] = {}
+    if "end_time" in table.metadata:
+        from cavchar.units import parse_quantity
+
+        try:
+            value = parse_quantity(table.metadata["end_time"], "time")
+        except InputError as exc:
+            raise InputError(f"metadata end_time: {exc.message}", path=table.path,
+                             hint=exc.hint) from None
+        if seg_ids.size > 1:
+            raise InputError("a '# end_time' line serves a file with one segment, this one "
+                             f"has {seg_ids.size}", path=table.path,
+                             hint="give each segment an end row instead")
+        from_meta = {int(seg_ids[0]): value}
+    try:
+        from_arg = _end_time_argument(end_time, seg_ids)
+    except InputError as exc:
+        raise InputError(exc.message, path=table.path, hint=exc.hint) from None
+    ends = np.empty(seg_ids.size)
+    for j, sid in enumerate(seg_ids.tolist()):
+        found = []
+        if sid in from_rows:
+            found.append(("the end row", from_rows[sid][0]))
+        if sid in from_meta:
+            found.append(("the '# end_time' line", from_meta[sid]))
+        if sid in from_arg:
+            found.append(("the end_time option", from_arg[sid]))
+        if not found:
+            raise InputError(
+                f"segment {sid} has no end time", path=table.path,
+                line=table.line(int(stops[j] - 1)),
+                hint="add an end row (the end time, with the photons cell empty) as the "
+                "segment's last row, a '# end_time: 12.5 s' line, or pass end_time "
+                "(--end-time)")
+        for name, value in found[1:]:
+            if not np.isclose(value, found[0][1], rtol=1e-12, atol=0.0):
+                row = from_rows[sid][1] if sid in from_rows else None
+                raise InputError(
+                    f"segment {sid}: {found[0][0]} says it ends at {found[0][1]} s but {name} "
+                    f"says {value} s", path=table.path,
+                    line=None if row is None else table.line(row),
+                    hint="give the end time once")
+        ends[j] = found[0][1]
+    keep = ~is_end
+    lines, kind = _lines(table)
+    if not keep.all():
+        time, photons, lines = time[keep], photons[keep], lines[keep]
+        segment = None if segment is None else segment[keep]
+    return JumpRecord(time, photons, ends, segment=segment, metadata=table.metadata,
+                      source=table.path, lines=lines, line_kind=kind)
+
+
+def read_sampled_record(path: str | os.PathLike) -> SampledRecord:
+    """Read a sampled photon-number record.
+
+    Columns ``time`` (s, probe times, regular or irregular) and ``photons``
+    (photon number observed at that time, whole number >= 0; steps of any size
+    are allowed), optional ``segment`` (integer id).
+
+    Raises
+    ------
+    InputError
+        Every problem of the file or of the record, naming the line.
+    """
+    table = read_table(path, required=("time", "photons"), optional=("segment",))
+    return SampledRecord(table["time"], table["photons"], segment=_whole_ids(table, "segment"),
+                         metadata=table.metadata, source=table.path, **_where(table))
+
+
+def read_probe_record(path: str | os.PathLike) -> ProbeRecord:
+    """Read a raw probe record.
+
+    Columns ``time`` (s) and ``outcome`` (0 or 1; an empty cell is a lost
+    probe, whose time still advances the record), optional ``setting`` (probe
+    phase in rad) and ``segment`` (integer id).
+
+    Raises
+    ------
+    InputError
+        Every problem of the file or of the record, naming the line.
+    """
+    table = read_table(path, required=("time", "outcome"), optional=("setting", "segment"),
+                       allow_empty=("outcome",))
+    return ProbeRecord(table["time"], table["outcome"],
+                       setting=table["setting"] if "setting" in table else None,
+                       segment=_whole_ids(table, "segment"), metadata=table.metadata,
+                       source=table.path, **_where(table))
+
+
+def _infer_signal(table: Table) -> str:
+    names = set(table.names)
+    found = [s for s, cols in RINGDOWN_COLUMNS.items() if cols and set(cols) <= names]
+    if any(_COUNT.match(n) for n in names):
+        found.append("populations")
+    if len(found) == 1:
+        return found[0]
+    kinds = "; ".join(f"{s}: {' + '.join(c) if c else 'count_0, count_1, ...'}"
+                      for s, c in RINGDOWN_COLUMNS.items())
+    if not found:
+        raise InputError(f"cannot tell the signal kind from the columns ({', '.join(table.names)})",
+                         path=table.path, line=table.header_line,
+                         hint=f"name the value column(s) for one kind ({kinds}), or pass --signal")
+    raise InputError(f"the columns fit several signal kinds ({', '.join(found)})",
+                     path=table.path, line=table.header_line, hint="pass --signal to choose one")
+
+
+def read_ringdown(path: str | os.PathLike, signal: str | None = None) -> RingdownTrace:
+    """Read one file of ring-down traces.
+
+    Columns: ``time`` (s); the value column(s) of the signal kind —
+    ``power`` (linear power), ``power_db`` (10 log10 of power), ``amplitude``
+    (field magnitude), ``real`` and ``imag`` (IQ), ``mean_photons`` (mean
+    photon number), or ``count_0``, ``count_1``, ... (shots found with 0, 1, ...
+    photons; populations); optional ``sigma`` (known standard deviation per
+    point; for IQ per quadrature; not for populations) and ``trace`` (integer
+    id, several traces per file).
+
+    Parameters
+    ----------
+    path
+        The file.
+    signal
+        One of :data:`cavchar.records.SIGNALS` (``mean-n`` is accepted for
+        ``mean_n``); by default inferred from the column names.
+
+    Raises
+    ------
+    InputError
+        Every problem of the file or the trace, naming the line.
+    """
+    table = read_table(path, required=("time",), any_columns=True)
+    if signal is None:
+        signal = _infer_signal(table)
+    signal = str(signal).lower().replace("-", "_")
+    if signal not in RINGDOWN_COLUMNS:
+        raise InputError(f"unknown signal kind {signal!r}", path=table.path,
+                         hint=f"choose one of {', '.join(RINGDOWN_COLUMNS)}")
+    if signal == "populations":
+        check_columns(table, ("time",), ("trace",), prefixed=("count_",))
+        levels = sorted(int(_COUNT.match(n).group(1)) for n in table.names if _COUNT.match(n))
+        if not levels:
+            raise InputError("a populations file needs columns count_0, count_1, ...",
+                             path=table.path, line=table.header_line,
+                             hint="one column per photon number, counting the shots")
+        if levels != list(range(len(levels))):
+            missing = sorted(set(range(levels[-1] + 1)) - set(levels))
+            raise InputError(f"count columns skip photon number(s) {missing}",
+                             path=table.path, line=table.header_line,
+                             hint="give count_0 ... count_K without gaps (zeros are fine)")
+        value = np.column_stack([table[f"count_{k}"] for k in levels])
+        sigma = None
+    else:
+        columns = RINGDOWN_COLUMNS[signal]
+        check_columns(table, ("time", *columns), ("sigma", "trace"))
+        value = table["real"] + 1j * table["imag"] if signal == "iq" else table[columns[0]]
+        sigma = table["sigma"] if "sigma" in table else None
+    return RingdownTrace(table["time"], value, signal, sigma=sigma,
+                         trace=_whole_ids(table, "trace"), metadata=table.metadata,
+                         source=table.path, **_where(table))
+
+
+class ResponseTable(NamedTuple):
+    """A calibrated probe response read from a file.
+
+    ``p_one[i, j]`` = P(outcome 1 | photons[i], settings[j]); ``settings`` is
+    None (and ``p_one`` has one column) when the table has no setting column.
+    ``photons`` is 0, 1, ..., K.
+    """
+
+    photons: np.ndarray
+    settings: np.ndarray | None
+    p_one: np.ndarray
+    source: str
+
+
+def read_response_table(path: str | os.PathLike) -> ResponseTable:
+    """Read a probe response table: columns ``photons``, ``p_one`` (probability of
+    outcome 1, in [0, 1]) and optional ``setting`` (rad).
+
+    Every photon number 0..K must appear once for every setting.
+
+    Raises
+    ------
+    InputError
+        Every problem of the file, a probability outside [0, 1], a photon number
+        or (photons, setting) pair given twice, and gaps in the grid.
+    """
+    table = read_table(path, required=("photons", "p_one"), optional=("setting",))
+    photons, p_one = table["photons"], table["p_one"]
+    bad = (photons != np.round(photons)) | (photons < 0)
+    if bad.any():
+        row = int(np.argmax(bad))
+        raise table.error(f"photon number {photons[row]} is not a whole number >= 0", row,
+                          hint="photons must be 0, 1, 2, ...")
+    bad = (p_one < 0) | (p_one > 1)
+    if bad.any():
+        row = int(np.argmax(bad))
+        raise table.error(f"p_one {p_one[row]} is not a probability", row,
+                          hint="p_one must lie in [0, 1]")
+    setting = table["setting"] if "setting" in table else np.zeros_like(photons)
+    n = photons.astype(np.int64)
+    settings = np.unique(setting)
+    grid = np.full((int(n.max()) + 1, settings.size), np.nan)
+    col = np.searchsorted(settings, setting)
+    for row in range(n.size):
+        if not np.isnan(grid[n[row], col[row]]):
+            raise table.error(f"photon number {n[row]} at setting {setting[row]} rad is given "
+                              "twice", row, hint="give each (photons, setting) pair once")
+        grid[n[row], col[row]] = p_one[row]
+    holes = np.argwhere(np.isnan(grid))
+    if holes.size:
+        k, j = holes[0]
+        raise InputError(f"the table has no row for photon number {k} at setting "
+                         f"{settings[j]} rad", path=table.path,
+                         hint="give every photon number 0..K for every setting")
+    return ResponseTable(np.arange(grid.shape[0]), settings if "setting" in table else None,
+                         grid, table.path)
