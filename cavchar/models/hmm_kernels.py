@@ -1,0 +1,601 @@
+"""Compiled hidden-Markov-model kernels for binary probe records.
+
+Model (Rabiner, Proc. IEEE 77, 257 (1989), sections III.A-B): hidden state =
+photon number ``n_t`` in ``0..N-1`` at probe ``t``; outcome ``y_t`` in {0, 1}
+or lost.  With ``P_t`` the transition matrix over the interval before probe
+``t`` (row-stochastic, ``P_t[i, j] = Prob(n_t = j | n_{t-1} = i)``) and
+``e_t[j] = P(y_t | n_t = j)`` (``e_t = 1`` for a lost probe: no emission, time
+still advances) the forward variables obey
+
+    alpha_0 = p0 * e_0,        alpha_t = (alpha_{t-1} @ P_t) * e_t,
+    log L = log sum_j alpha_{T-1}[j].
+
+The scaled forward algorithm divides alpha by its sum; here the division is
+lazy (only when the sum falls below 1e-150, its log is then added to log L),
+which is exact up to rounding and avoids a logarithm per probe.
+
+Transitions come in three forms (:class:`Transitions`):
+
+* ``regular``: one matrix per parameter set (equal probe spacing);
+* ``indexed``: a few matrices per parameter set and, per probe, the index of
+  the one to use (a few distinct spacings);
+* ``eigen``: irregular spacing, exactly, through the eigen-decomposition
+  ``P(dt) = R diag(exp(lambda dt)) L`` of the damped-mode generator:
+  ``alpha P(dt) = ((alpha R) * exp(lambda dt)) L`` (:func:`eigen_parts`).
+
+Outcomes are encoded once as integer codes (:class:`ProbeSequence`): probe
+with setting ``s`` and outcome ``y`` has code ``3 s + y`` with ``y = 2`` for a
+lost probe, and an emission table (``k, C, N``) gives ``P(y | n, s)`` per code
+(:func:`emission_table`).  A per-code log offset (``k, C``) is added to log L
+for each probe: zero for single probes, the log of the scale of a block
+emission in the coarse mode.
+
+All forward kernels are vectorized over k parameter sets (numba ``prange``:
+the sets are shared among threads).  For N <= 16 fully unrolled kernels are
+generated (:mod:`cavchar.models._hmm_unrolled`); the loop kernels below are
+the reference implementation and serve larger N.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numba
+import numpy as np
+from numba import njit, prange
+from numpy.typing import ArrayLike
+
+from cavchar.models import _hmm_unrolled
+
+__all__ = [
+    "ProbeSequence",
+    "Transitions",
+    "emission_table",
+    "eigen_parts",
+    "forward_loglik",
+    "posterior_marginals",
+    "viterbi",
+]
+
+LOST = 2
+_TINY = 1e-150
+
+
+# --------------------------------------------------------------------------- inputs
+
+
+@dataclass(frozen=True, eq=False)
+class ProbeSequence:
+    """Validated integer codes of a probe record, built once per record.
+
+    Attributes
+    ----------
+    codes : ndarray of int32, shape (T,)
+        ``3 * setting_index + outcome`` (outcome 2 = lost probe).
+    n_codes : int
+        ``3 * n_settings``: the number of rows an emission table needs.
+    starts : ndarray of int64, shape (n_segments + 1,)
+        First probe of each independent segment, then T.
+    """
+
+    codes: np.ndarray
+    n_codes: int
+    starts: np.ndarray
+
+    @classmethod
+    def from_outcomes(
+        cls,
+        outcome: ArrayLike,
+        setting_index: ArrayLike | None = None,
+        n_settings: int | None = None,
+        segment_starts: ArrayLike | None = None,
+    ) -> ProbeSequence:
+        """Encode outcomes (0, 1; NaN or -1 = lost) and setting indices (0..S-1)."""
+        y = np.asarray(outcome, dtype=float)
+        if y.ndim != 1 or y.size == 0:
+            raise ValueError("outcome must be a non-empty 1-d array")
+        lost = np.isnan(y) | (y == -1)
+        if np.any(~lost & (y != 0) & (y != 1)):
+            raise ValueError("outcomes must be 0, 1 or lost (NaN / -1)")
+        if setting_index is None:
+            s = np.zeros(y.size, dtype=np.int64)
+            n_settings = 1 if n_settings is None else int(n_settings)
+        else:
+            s = np.asarray(setting_index, dtype=np.int64)
+            if s.shape != y.shape or s.min() < 0:
+                raise ValueError("setting_index must be non-negative, one per probe")
+            n_settings = int(s.max()) + 1 if n_settings is None else int(n_settings)
+            if s.max() >= n_settings:
+                raise ValueError("setting_index out of range")
+        codes = np.where(lost, LOST, 3 * s + np.where(lost, 0, y).astype(np.int64))
+        return cls.from_codes(codes, 3 * n_settings, segment_starts)
+
+    @classmethod
+    def from_codes(
+        cls, codes: ArrayLike, n_codes: int, segment_starts: ArrayLike | None = None
+    ) -> ProbeSequence:
+        """Wrap ready-made codes in ``0..n_codes-1`` (e.g. block patterns of the coarse mode)."""
+        codes = np.ascontiguousarray(codes, dtype=np.int32)
+        if codes.ndim != 1 or codes.size == 0:
+            raise ValueError("codes must be a non-empty 1-d array")
+        if codes.min() < 0 or codes.max() >= n_codes:
+            raise ValueError(f"codes must lie in 0..{n_codes - 1}")
+        if segment_starts is None:
+            starts = np.array([0, codes.size], dtype=np.int64)
+        else:
+            starts = np.asarray(segment_starts, dtype=np.int64)
+            if starts.size == 0 or starts[0] != 0:
+                raise ValueError("segment starts must begin with 0")
+            starts = np.append(starts, codes.size) if starts[-1] != codes.size else starts
+            if np.any(np.diff(starts) <= 0):
+                raise ValueError("segment starts must increase and lie inside the record")
+        return cls(codes, int(n_codes), np.ascontiguousarray(starts))
+
+    @property
+    def n_probes(self) -> int:
+        return int(self.codes.size)
+
+
+@dataclass(frozen=True, eq=False)
+class Transitions:
+    """Transition matrices over the probe intervals, for k parameter sets.
+
+    Build with :meth:`regular`, :meth:`indexed` or :meth:`eigen`.  For a
+    probe ``t`` that starts a segment the transition is not used.
+    """
+
+    kind: str
+    matrices: np.ndarray  # (k, M, N, N); M = 1 for "regular"
+    step_index: np.ndarray  # (T,) int32, "indexed" only
+    right: np.ndarray  # (k, N, N), "eigen" only
+    eigenvalues: np.ndarray  # (k, N)
+    left: np.ndarray  # (k, N, N)
+    dts: np.ndarray  # (T,) seconds, "eigen" only: interval before each probe
+
+    @classmethod
+    def regular(cls, matrices: ArrayLike) -> Transitions:
+        """One matrix per set, ``matrices`` of shape (k, N, N)."""
+        m = np.ascontiguousarray(matrices, dtype=float)
+        if m.ndim != 3 or m.shape[1] != m.shape[2]:
+            raise ValueError("regular transitions need shape (k, N, N)")
+        return cls("regular", m[:, None], *_dummies(m.shape[2]))
+
+    @classmethod
+    def indexed(cls, matrices: ArrayLike, step_index: ArrayLike, check: bool = True) -> Transitions:
+        """Matrices (k, M, N, N) and, per probe, the index (0..M-1) of its interval."""
+        m = np.ascontiguousarray(matrices, dtype=float)
+        idx = np.ascontiguousarray(step_index, dtype=np.int32)
+        if m.ndim != 4 or m.shape[2] != m.shape[3]:
+            raise ValueError("indexed transitions need matrices of shape (k, M, N, N)")
+        if check and (idx.ndim != 1 or idx.min() < 0 or idx.max() >= m.shape[1]):
+            raise ValueError("step_index must be a 1-d array of indices into the matrices")
+        d = _dummies(m.shape[2])
+        return cls("indexed", m, idx, d[1], d[2], d[3], d[4])
+
+    @classmethod
+    def eigen(
+        cls, right: ArrayLike, eigenvalues: ArrayLike, left: ArrayLike, dts: ArrayLike,
+        check: bool = True,
+    ) -> Transitions:
+        """``P(dt) = right diag(exp(eigenvalues dt)) left`` per set; ``dts`` (T,) in seconds."""
+        r = np.ascontiguousarray(right, dtype=float)
+        lam = np.ascontiguousarray(eigenvalues, dtype=float)
+        lt = np.ascontiguousarray(left, dtype=float)
+        dts = np.ascontiguousarray(dts, dtype=float)
+        if r.ndim != 3 or lt.shape != r.shape or lam.shape != r.shape[:2]:
+            raise ValueError("eigen transitions need right, left (k, N, N), eigenvalues (k, N)")
+        if check and (dts.ndim != 1 or not np.all(dts >= 0)):
+            raise ValueError("intervals must be a 1-d array of values >= 0")
+        n = r.shape[1]
+        return cls("eigen", np.zeros((r.shape[0], 1, n, n)), np.zeros(1, np.int32), r, lam, lt,
+                   dts)
+
+    @property
+    def n_sets(self) -> int:
+        return int(self.matrices.shape[0] if self.kind != "eigen" else self.right.shape[0])
+
+    @property
+    def n_levels(self) -> int:
+        return int(self.matrices.shape[-1])
+
+    def select(self, i: int) -> Transitions:
+        """The transitions of parameter set ``i`` alone (k = 1)."""
+        sl = slice(i, i + 1)
+        if self.kind == "eigen":
+            return Transitions("eigen", self.matrices[sl], self.step_index, self.right[sl],
+                               self.eigenvalues[sl], self.left[sl], self.dts)
+        return Transitions(self.kind, self.matrices[sl], self.step_index, self.right,
+                           self.eigenvalues, self.left, self.dts)
+
+    def _args(self):
+        return (self.matrices, self.step_index, self.right, self.eigenvalues, self.left, self.dts)
+
+
+def _dummies(n: int):
+    return (np.zeros(1, np.int32), np.zeros((1, n, n)), np.zeros((1, n)), np.zeros((1, n, n)),
+            np.zeros(1))
+
+
+_MODE = {"regular": 0, "indexed": 1, "eigen": 2}
+
+
+def emission_table(p_one: ArrayLike) -> np.ndarray:
+    """Emission table per code from ``P(1 | n, setting)``.
+
+    Parameters
+    ----------
+    p_one : array, shape (k, S, N) or (S, N)
+        Probability of outcome 1 for photon number n and setting s.
+
+    Returns
+    -------
+    ndarray, shape (k, 3 S, N)
+        Rows ``3s``: ``1 - P(1|n,s)``; ``3s+1``: ``P(1|n,s)``; ``3s+2``: 1 (lost).
+    """
+    p = np.asarray(p_one, dtype=float)
+    if p.ndim == 2:
+        p = p[None]
+    k, s, n = p.shape
+    out = np.empty((k, s, 3, n))
+    out[:, :, 0] = 1.0 - p
+    out[:, :, 1] = p
+    out[:, :, 2] = 1.0
+    return out.reshape(k, 3 * s, n)
+
+
+def eigen_parts(kappa: ArrayLike, n_th: ArrayLike, n_levels: int):
+    """Batched eigen-decomposition of the damped-mode generator.
+
+    With ``pi`` the stationary law, ``S = D^{1/2} Q D^{-1/2}`` (``D = diag(pi)``)
+    is symmetric (detailed balance), ``S = V diag(lambda) V^T``, and
+    ``P(dt) = expm(Q dt) = R diag(exp(lambda dt)) L`` with
+    ``R = D^{-1/2} V`` and ``L = V^T D^{1/2}``.  The rounding error of an entry
+    is about ``eps sqrt(pi_j / pi_i)`` (large only for downward transitions
+    from levels far above the thermal population).
+
+    Parameters
+    ----------
+    kappa, n_th : array (k,)
+        Damping rate in 1/s and thermal photon number of each parameter set.
+    n_levels : int
+
+    Returns
+    -------
+    right (k, N, N), eigenvalues (k, N) in 1/s (<= 0), left (k, N, N)
+    """
+    from cavchar.dynamics import rate_matrix, stationary_distribution
+
+    kappa = np.atleast_1d(np.asarray(kappa, dtype=float))
+    n_th = np.atleast_1d(np.asarray(n_th, dtype=float))
+    k = kappa.size
+    q = np.stack([rate_matrix(kappa[i], n_th[i], n_levels) for i in range(k)])
+    pi = np.stack([stationary_distribution(n_th[i], n_levels) for i in range(k)])
+    with np.errstate(divide="ignore"):
+        h = 0.5 * np.log(pi)  # log sqrt(pi)
+    h = np.maximum(h, -300.0)
+    sym = q * np.exp(h[:, :, None] - h[:, None, :])
+    sym = 0.5 * (sym + np.swapaxes(sym, 1, 2))
+    lam, vecs = np.linalg.eigh(sym)
+    right = vecs * np.exp(-h)[:, :, None]
+    left = np.swapaxes(vecs, 1, 2) * np.exp(h)[:, None, :]
+    return right, np.minimum(lam, 0.0), left
+
+
+# --------------------------------------------------------------------------- loop kernels
+
+
+@njit(cache=True, nogil=True)
+def _propagate(mode, c, t, a, b, x, trans, sidx, right, lam, left, dts):
+    """b = a @ P_t for parameter set c (P_t = transition into probe t)."""
+    n = a.shape[0]
+    if mode == 2:
+        d = dts[t]
+        for m in range(n):
+            acc = 0.0
+            for i in range(n):
+                acc += a[i] * right[c, i, m]
+            x[m] = acc * np.exp(lam[c, m] * d)
+        for j in range(n):
+            acc = 0.0
+            for m in range(n):
+                acc += x[m] * left[c, m, j]
+            b[j] = max(acc, 0.0)
+    else:
+        mm = sidx[t] if mode == 1 else 0
+        for j in range(n):
+            b[j] = 0.0
+        for i in range(n):
+            ai = a[i]
+            for j in range(n):
+                b[j] += ai * trans[c, mm, i, j]
+
+
+@njit(cache=True, nogil=True)
+def _step_matrix(mode, c, t, out, trans, sidx, right, lam, left, dts):
+    """out = P_t for parameter set c."""
+    n = out.shape[0]
+    if mode == 2:
+        d = dts[t]
+        for i in range(n):
+            for j in range(n):
+                acc = 0.0
+                for m in range(n):
+                    acc += right[c, i, m] * np.exp(lam[c, m] * d) * left[c, m, j]
+                out[i, j] = max(acc, 0.0)
+    else:
+        mm = sidx[t] if mode == 1 else 0
+        for i in range(n):
+            for j in range(n):
+                out[i, j] = trans[c, mm, i, j]
+
+
+@njit(parallel=True, cache=True, nogil=True)
+def _forward_loops(mode, trans, sidx, right, lam, left, dts, p0, emis, offs, codes, starts, out):
+    k = out.shape[0]
+    n = p0.shape[1]
+    nseg = starts.shape[0] - 1
+    for c in prange(k):
+        a = np.empty(n)
+        b = np.empty(n)
+        x = np.empty(n)
+        total = 0.0
+        for g in range(nseg):
+            t0 = starts[g]
+            code = codes[t0]
+            ll = offs[c, code]
+            s = 0.0
+            for j in range(n):
+                a[j] = p0[c, j] * emis[c, code, j]
+                s += a[j]
+            dead = not s > 0.0
+            for t in range(t0, starts[g + 1]):
+                if t > t0:
+                    code = codes[t]
+                    _propagate(mode, c, t, a, b, x, trans, sidx, right, lam, left, dts)
+                    ll += offs[c, code]
+                    s = 0.0
+                    for j in range(n):
+                        a[j] = b[j] * emis[c, code, j]
+                        s += a[j]
+                if not s >= _TINY:
+                    if s > 0.0:
+                        ll += np.log(s)
+                        for j in range(n):
+                            a[j] /= s
+                        s = 1.0
+                    else:
+                        dead = True
+                        break
+            if dead:
+                total = -np.inf
+            else:
+                total += ll + np.log(s)
+        out[c] = total
+
+
+@njit(cache=True, nogil=True)
+def _marginals(mode, trans, sidx, right, lam, left, dts, p0, emis, codes, starts, post):
+    """Forward-backward for one parameter set; fills post (T, N); returns log L."""
+    n = p0.shape[0]
+    b = np.empty(n)
+    x = np.empty(n)
+    v = np.empty(n)
+    pm = np.empty((n, n))
+    scale = np.empty(codes.shape[0])
+    total = 0.0
+    for g in range(starts.shape[0] - 1):
+        t0 = starts[g]
+        t1 = starts[g + 1]
+        for t in range(t0, t1):
+            code = codes[t]
+            if t == t0:
+                for j in range(n):
+                    b[j] = p0[j]
+            else:
+                _propagate(mode, 0, t, post[t - 1], b, x, trans, sidx, right, lam, left, dts)
+            s = 0.0
+            for j in range(n):
+                post[t, j] = b[j] * emis[code, j]
+                s += post[t, j]
+            if not s > 0.0:
+                return -np.inf
+            scale[t] = s
+            total += np.log(s)
+            for j in range(n):
+                post[t, j] /= s
+        beta = np.ones(n)
+        for t in range(t1 - 1, t0, -1):
+            code = codes[t]
+            for j in range(n):
+                v[j] = emis[code, j] * beta[j]
+            _step_matrix(mode, 0, t, pm, trans, sidx, right, lam, left, dts)
+            mx = 0.0
+            for i in range(n):
+                acc = 0.0
+                for j in range(n):
+                    acc += pm[i, j] * v[j]
+                beta[i] = acc
+                mx = max(mx, acc)
+            s = 0.0
+            for i in range(n):
+                beta[i] /= mx
+                post[t - 1, i] *= beta[i]
+                s += post[t - 1, i]
+            for i in range(n):
+                post[t - 1, i] /= s
+    return total
+
+
+@njit(cache=True, nogil=True)
+def _viterbi(mode, trans, sidx, right, lam, left, dts, p0, emis, codes, starts, path):
+    """Max-product recursion in linear space, rescaled by the max each probe."""
+    n = p0.shape[0]
+    T = codes.shape[0]
+    back = np.empty((T, n), dtype=np.int16)
+    delta = np.empty(n)
+    new = np.empty(n)
+    pm = np.empty((n, n))
+    total = 0.0
+    for g in range(starts.shape[0] - 1):
+        t0 = starts[g]
+        t1 = starts[g + 1]
+        for t in range(t0, t1):
+            code = codes[t]
+            if t == t0:
+                for j in range(n):
+                    new[j] = p0[j] * emis[code, j]
+            else:
+                _step_matrix(mode, 0, t, pm, trans, sidx, right, lam, left, dts)
+                for j in range(n):
+                    best = -1.0
+                    arg = 0
+                    for i in range(n):
+                        val = delta[i] * pm[i, j]
+                        if val > best:
+                            best = val
+                            arg = i
+                    back[t, j] = arg
+                    new[j] = best * emis[code, j]
+            mx = 0.0
+            for j in range(n):
+                mx = max(mx, new[j])
+            if not mx > 0.0:
+                total = -np.inf
+                mx = 1.0
+            else:
+                total += np.log(mx)
+            for j in range(n):
+                delta[j] = new[j] / mx
+        arg = 0
+        for j in range(1, n):
+            if delta[j] > delta[arg]:
+                arg = j
+        path[t1 - 1] = arg
+        for t in range(t1 - 1, t0, -1):
+            path[t - 1] = back[t, path[t]]
+    return total
+
+
+# --------------------------------------------------------------------------- public API
+
+
+def _batch(arr: ArrayLike, k: int, ndim: int, what: str) -> np.ndarray:
+    a = np.asarray(arr, dtype=float)
+    if a.ndim == ndim - 1:
+        a = a[None]
+    if a.ndim != ndim or a.shape[0] not in (1, k):
+        raise ValueError(f"{what} has shape {a.shape}; expected {ndim} dims with k = {k} or 1")
+    return np.ascontiguousarray(np.broadcast_to(a, (k,) + a.shape[1:]))
+
+
+def forward_loglik(
+    transitions: Transitions,
+    initial: ArrayLike,
+    emission: ArrayLike,
+    sequence: ProbeSequence,
+    offsets: ArrayLike | None = None,
+    *,
+    unrolled: bool | None = None,
+) -> np.ndarray:
+    """Marginal log-likelihood of the outcomes for each of k parameter sets.
+
+    Parameters
+    ----------
+    transitions : Transitions
+        k parameter sets, N levels.
+    initial : array (k, N) or (N,)
+        Distribution of the photon number at the first probe of each segment.
+    emission : array (k, C, N) or (C, N)
+        Emission table per code (:func:`emission_table`), C >= ``sequence.n_codes``.
+    sequence : ProbeSequence
+    offsets : array (k, C) or (C,), optional
+        Log offset added per probe with that code (default 0).
+    unrolled : bool, optional
+        Force (True) or forbid (False) the unrolled kernels; default: use them
+        for N <= 16.
+
+    Returns
+    -------
+    ndarray (k,)
+        ``log L`` (natural log); ``-inf`` when the outcomes are impossible.
+    """
+    k, n = transitions.n_sets, transitions.n_levels
+    p0 = _batch(initial, k, 2, "initial")
+    emis = _batch(emission, k, 3, "emission")
+    if p0.shape[1] != n or emis.shape[2] != n or emis.shape[1] < sequence.n_codes:
+        raise ValueError("initial, emission and transitions disagree on N or the codes")
+    offs = np.zeros((k, emis.shape[1])) if offsets is None else _batch(offsets, k, 2, "offsets")
+    out = np.empty(k)
+    seq = (sequence.codes, sequence.starts, out)
+    use_unrolled = n <= _hmm_unrolled.MAX_UNROLLED_LEVELS if unrolled is None else unrolled
+    tr = transitions
+    if use_unrolled:
+        mod = _hmm_unrolled.load(n)
+        if tr.kind == "regular":
+            mod.forward_regular(np.ascontiguousarray(tr.matrices[:, 0]), p0, emis, offs, *seq)
+        elif tr.kind == "indexed":
+            mod.forward_indexed(tr.matrices, tr.step_index, p0, emis, offs, *seq)
+        else:
+            mod.forward_eigen(tr.right, tr.eigenvalues, tr.left, tr.dts, p0, emis, offs, *seq)
+    else:
+        _forward_loops(_MODE[tr.kind], *tr._args(), p0, emis, offs, *seq)
+    return np.where(np.isnan(out), -np.inf, out)
+
+
+def _single(transitions: Transitions, initial, emission, sequence):
+    if transitions.n_sets != 1:
+        raise ValueError("pass the transitions of one parameter set (Transitions.select(i))")
+    n = transitions.n_levels
+    p0 = np.ascontiguousarray(initial, dtype=float)
+    emis = np.ascontiguousarray(emission, dtype=float)
+    if emis.ndim == 3:
+        emis = emis[0]
+    if p0.shape != (n,) or emis.ndim != 2 or emis.shape[1] != n:
+        raise ValueError("initial must be (N,), emission (C, N)")
+    return (_MODE[transitions.kind], *transitions._args(), p0, emis, sequence.codes,
+            sequence.starts)
+
+
+def posterior_marginals(
+    transitions: Transitions, initial: ArrayLike, emission: ArrayLike, sequence: ProbeSequence
+) -> tuple[np.ndarray, float]:
+    """Forward-backward posterior ``P(n_t = j | all outcomes)`` for one parameter set.
+
+    Returns
+    -------
+    marginals : ndarray (T, N)
+        Rows sum to one.
+    loglik : float
+        The forward log-likelihood (as :func:`forward_loglik`).
+    """
+    args = _single(transitions, initial, emission, sequence)
+    post = np.empty((sequence.n_probes, transitions.n_levels))
+    ll = _marginals(*args, post)
+    if not np.isfinite(ll):
+        post[:] = np.nan
+    return post, float(ll)
+
+
+def viterbi(
+    transitions: Transitions, initial: ArrayLike, emission: ArrayLike, sequence: ProbeSequence
+) -> tuple[np.ndarray, float]:
+    """Most likely photon-number path (Viterbi) for one parameter set.
+
+    Returns
+    -------
+    path : ndarray of int (T,)
+        Photon number at each probe; segments decoded independently.
+    log_prob : float
+        Log of the joint probability of the path and the outcomes.
+    """
+    args = _single(transitions, initial, emission, sequence)
+    path = np.empty(sequence.n_probes, dtype=np.int64)
+    lp = _viterbi(*args, path)
+    return path, float(lp)
+
+
+def set_threads(n: int | None) -> int:
+    """Limit the numba threads used by the kernels (None: all); returns the previous value."""
+    previous = numba.get_num_threads()
+    numba.set_num_threads(numba.config.NUMBA_NUM_THREADS if n is None else int(n))
+    return previous
