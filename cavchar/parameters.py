@@ -24,7 +24,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from cavchar.errors import InputError
-from cavchar.priors import Prior, prior_from_dict
+from cavchar.priors import LogUniform, Prior, Uniform, prior_from_dict
 
 __all__ = ["ParameterSpec", "ParameterSpace", "UNIT_DIMENSIONS"]
 
@@ -130,6 +130,20 @@ class ParameterSpace:
             raise ValueError(f"duplicate parameter names in {names}")
         object.__setattr__(self, "specs", specs)
         object.__setattr__(self, "_log_mask", np.array([s.log_scale for s in specs]))
+        # Fast path: a uniform prior on u (Uniform on x, or LogUniform on a log-scale x, whose
+        # density with the Jacobian is constant in u) is a box; the rest are evaluated per spec.
+        lo, hi, const, generic = np.full(len(specs), -np.inf), np.full(len(specs), np.inf), 0.0, []
+        for i, spec in enumerate(specs):
+            prior = spec.prior
+            if isinstance(prior, Uniform) and not spec.log_scale:
+                lo[i], hi[i] = prior.low, prior.high
+                const -= np.log(prior.high - prior.low)
+            elif isinstance(prior, LogUniform) and spec.log_scale:
+                lo[i], hi[i] = np.log(prior.low), np.log(prior.high)
+                const -= np.log(hi[i] - lo[i])
+            else:
+                generic.append(i)
+        object.__setattr__(self, "_box", (lo, hi, const, tuple(generic)))
 
     @property
     def names(self) -> list[str]:
@@ -164,10 +178,12 @@ class ParameterSpace:
         ``-inf`` outside the support, never NaN.
         """
         u = np.asarray(u, dtype=float)
-        total = self.specs[0].log_prior(u[..., 0])
-        for i in range(1, self.ndim):
+        lo, hi, const, generic = self._box
+        with np.errstate(invalid="ignore"):
+            total = np.where(np.all((u >= lo) & (u <= hi), axis=-1), const, -np.inf)
+        for i in generic:
             total = total + self.specs[i].log_prior(u[..., i])
-        return np.where(np.isnan(total), -np.inf, total)
+        return np.where(np.isnan(total), -np.inf, total) if generic else total
 
     def sample_prior(self, rng: np.random.Generator, size: int) -> np.ndarray:
         """Independent prior draws in physical units, shape ``(size, ndim)``."""
