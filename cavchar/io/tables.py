@@ -1,4 +1,4 @@
-"""One generic reader and writer for numeric tables: CSV/TSV (optionally gzip), NPZ, Parquet.
+"""One generic reader for numeric tables: CSV/TSV (optionally gzip), NPZ, Parquet.
 
 Text files
     The first line that is neither blank nor a comment is the header (column
@@ -30,7 +30,7 @@ import json
 import os
 import re
 import zlib
-from collections.abc import Callable, Iterable, Mapping
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -38,13 +38,14 @@ import numpy as np
 
 from cavchar.errors import InputError
 
-__all__ = ["Table", "read_table", "write_table", "table_format", "check_columns"]
+__all__ = ["Table", "read_table", "table_format", "check_columns", "METADATA_KEY",
+           "PARQUET_METADATA_KEY"]
 
 _GZIP_MAGIC = b"\x1f\x8b"
 _ZIP_MAGIC = b"PK\x03\x04"
 _PARQUET_MAGIC = b"PAR1"
-_METADATA_KEY = "__metadata__"
-_PARQUET_METADATA_KEY = b"cavchar.metadata"
+METADATA_KEY = "__metadata__"
+PARQUET_METADATA_KEY = b"cavchar.metadata"
 _META_LINE = re.compile(r"^#\s*([A-Za-z][A-Za-z0-9 _-]*?)\s*:\s*(.*?)\s*$")
 _NUMBER = re.compile(r"^[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?$", re.ASCII)
 _NAN_WORDS = {"nan", "+nan", "-nan", "inf", "+inf", "-inf", "infinity", "+infinity",
@@ -368,8 +369,8 @@ def _read_npz(path: Path, raw: bytes) -> Table:
         raise InputError(f"not a readable NPZ file ({exc})", path=path,
                          hint="write it with numpy.savez of 1-D numeric arrays") from None
     metadata: dict[str, str] = {}
-    if _METADATA_KEY in arrays:
-        metadata = _metadata_from_json(path, str(arrays.pop(_METADATA_KEY)))
+    if METADATA_KEY in arrays:
+        metadata = _metadata_from_json(path, str(arrays.pop(METADATA_KEY)))
     columns: dict[str, np.ndarray] = {}
     for key, value in arrays.items():
         name = key.strip().lower()
@@ -400,8 +401,8 @@ def _read_parquet(path: Path, raw: bytes) -> Table:
                          hint="write it again, or use CSV or NPZ") from None
     meta = table.schema.metadata or {}
     metadata = {}
-    if _PARQUET_METADATA_KEY in meta:
-        metadata = _metadata_from_json(path, meta[_PARQUET_METADATA_KEY].decode("utf-8"))
+    if PARQUET_METADATA_KEY in meta:
+        metadata = _metadata_from_json(path, meta[PARQUET_METADATA_KEY].decode("utf-8"))
     columns: dict[str, np.ndarray] = {}
     for name, column in zip(table.column_names, table.columns, strict=True):
         key = name.strip().lower()
@@ -502,112 +503,3 @@ def _check_values(table: Table, allow_empty: set[str]) -> None:
                               hint="every row needs a finite value in this column")
         raise table.error(f"column {name!r} holds an infinite value", row,
                           hint="write a finite number (values beyond 1.8e308 overflow)")
-
-
-# ---------------------------------------------------------------------------- writing
-
-
-def write_table(
-    path: str | os.PathLike,
-    columns: Mapping[str, np.ndarray],
-    *,
-    metadata: Mapping[str, object] | None = None,
-    comments: Iterable[str] = (),
-    force: bool = False,
-) -> Path:
-    """Write numeric columns in the format the file name asks for (see :func:`table_format`).
-
-    Float NaN and masked entries (``numpy.ma``) are written as empty cells
-    (text), nulls (Parquet) or NaN (NPZ).  Text files round-trip floats exactly
-    (shortest representation).  The file is written atomically and an existing
-    file is only replaced with ``force=True``.
-
-    Parameters
-    ----------
-    path
-        Destination; ``.csv``, ``.tsv``, either with ``.gz``, ``.npz`` or ``.parquet``.
-    columns
-        Column name -> 1-D array (all the same length).
-    metadata
-        Written as ``# key: value`` lines (text) or stored JSON (binary).
-    comments
-        Free comment lines written first in text files (without the ``#``).
-    force
-        Replace an existing file.
-    """
-    from cavchar.io.atomic import check_can_write, write_bytes_atomic
-
-    target = check_can_write(path, force)
-    fmt = table_format(target)
-    meta = {str(k): str(v) for k, v in (metadata or {}).items()}
-    arrays = {}
-    for name, values in columns.items():
-        array = np.ma.asarray(values)
-        if array.ndim != 1:
-            raise ValueError(f"column {name!r} is not 1-D")
-        if array.dtype.kind == "b":
-            array = array.astype(np.int64)
-        elif array.dtype.kind == "f":
-            array = np.ma.masked_invalid(array)
-        elif array.dtype.kind not in "iu":
-            raise ValueError(f"column {name!r} is not numeric ({array.dtype})")
-        arrays[name] = array
-    if fmt == "npz":
-        buffer = io.BytesIO()
-        plain = {n: (a.astype(np.float64).filled(np.nan) if np.ma.is_masked(a)
-                     else np.asarray(a.data)) for n, a in arrays.items()}
-        np.savez_compressed(buffer, **plain, **{_METADATA_KEY: np.array(json.dumps(meta))})
-        data = buffer.getvalue()
-    elif fmt == "parquet":
-        data = _parquet_bytes(arrays, meta, target)
-    else:
-        sep = "\t" if fmt == "tsv" else ","
-        head = "".join(f"# {c}\n" for c in comments)
-        head += "".join(f"# {k}: {v}\n" for k, v in meta.items())
-        head += sep.join(arrays) + "\n"
-        data = head.encode("utf-8") + _text_rows(arrays, sep)
-        if target.suffix.lower() == ".gz":
-            data = gzip.compress(data, mtime=0)
-    return write_bytes_atomic(target, data, force=force)
-
-
-def _text_rows(arrays: Mapping[str, np.ma.MaskedArray], sep: str) -> bytes:
-    try:
-        import pyarrow as pa
-        import pyarrow.csv as pacsv
-    except ImportError:
-        pa = None
-    if pa is not None:
-        table = pa.table({n: pa.array(np.asarray(a.data), mask=np.ma.getmaskarray(a))
-                          for n, a in arrays.items()})
-        buffer = io.BytesIO()
-        options = pacsv.WriteOptions(include_header=False, delimiter=sep, quoting_style="none")
-        pacsv.write_csv(table, buffer, options)
-        return buffer.getvalue()
-    import pandas as pd
-
-    data = {}
-    for n, a in arrays.items():
-        mask = np.ma.getmaskarray(a)
-        values = np.asarray(a.data)
-        if values.dtype.kind in "iu":
-            data[n] = pd.arrays.IntegerArray(values.astype(np.int64), mask)
-        else:
-            data[n] = np.where(mask, np.nan, values)
-    frame = pd.DataFrame(data)
-    return frame.to_csv(sep=sep, header=False, index=False, na_rep="").encode("utf-8")
-
-
-def _parquet_bytes(arrays, meta: dict[str, str], target: Path) -> bytes:
-    try:
-        import pyarrow as pa
-        import pyarrow.parquet as pq
-    except ImportError:
-        raise InputError("writing Parquet files needs pyarrow, which is not installed",
-                         path=target, hint="pip install pyarrow, or write .csv or .npz") from None
-    table = pa.table({n: pa.array(np.asarray(a.data), mask=np.ma.getmaskarray(a))
-                      for n, a in arrays.items()})
-    table = table.replace_schema_metadata({_PARQUET_METADATA_KEY: json.dumps(meta).encode()})
-    buffer = io.BytesIO()
-    pq.write_table(table, buffer)
-    return buffer.getvalue()
