@@ -329,7 +329,7 @@ def _step_matrix(mode, c, t, out, trans, sidx, right, lam, left, dts):
                 out[i, j] = trans[c, mm, i, j]
 
 
-@njit(parallel=True, cache=True, nogil=True)
+@njit(parallel=True, cache=True, nogil=True, fastmath={"contract"})
 def _forward_loops(mode, trans, sidx, right, lam, left, dts, p0, emis, offs, codes, starts, out):
     k = out.shape[0]
     n = p0.shape[1]
