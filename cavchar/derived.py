@@ -1,0 +1,183 @@
+"""Quantities derived from posterior draws of the lifetime and the thermal photon number.
+
+Per draw (equations; Q and linewidth from Q = 2 pi x stored energy / energy lost per
+cycle, see CHECKS.md):
+
+    quality_factor        Q = 2 pi nu T_c
+    linewidth             FWHM = kappa / (2 pi) = 1 / (2 pi T_c)        [Hz]
+    amplitude_decay_time  2 T_c (the field decays at half the energy rate)   [s]
+    effective_temperature T_eff = h nu / (k_B ln(1 + 1/n_th))         [K]
+    stage_occupation      n(nu, T_stage) = 1 / expm1(h nu / k_B T_stage)
+    excess_photons        n_th - n(nu, T_stage)
+
+and :func:`planck_check`, the comparison of the mode with its stage.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from cavchar.errors import InputError
+
+__all__ = ["add_derived_quantities", "planck_check", "COLUMN_INFO", "CREDIBLE_68",
+           "PILE_UP_RATIO"]
+
+#: derived column -> (unit, dimension, label)
+COLUMN_INFO: dict[str, tuple[str, str, str]] = {
+    "lifetime": ("s", "time", "T_c"),
+    "n_thermal": ("", "dimensionless", "n_th"),
+    "quality_factor": ("", "dimensionless", "Q"),
+    "linewidth": ("Hz", "frequency", "linewidth (FWHM)"),
+    "amplitude_decay_time": ("s", "time", "amplitude decay time 2 T_c"),
+    "effective_temperature": ("K", "temperature", "T_eff"),
+    "stage_occupation": ("", "dimensionless", "n(nu, T_stage)"),
+    "excess_photons": ("", "dimensionless", "n_th - n(nu, T_stage)"),
+}
+
+#: probability mass of a one-sigma interval of a normal law (the "68%" intervals)
+CREDIBLE_68 = math.erf(1.0 / math.sqrt(2.0))
+
+#: n_th counts as piled up against zero when its 2.5% quantile is below this fraction
+#: of its 97.5% quantile (the 95% interval spans more than two decades)
+PILE_UP_RATIO = 0.01
+
+#: P(hotter) above this reads "hotter than the stage"; below 1 - it "colder"
+DECISION_PROBABILITY = 0.95
+
+
+def _positive(value: float | None, what: str, allow_zero: bool = False) -> float | None:
+    if value is None:
+        return None
+    value = float(value)
+    ok = value >= 0 if allow_zero else value > 0
+    if not (math.isfinite(value) and ok):
+        raise InputError(f"{what} must be a {'non-negative' if allow_zero else 'positive'} "
+                         f"finite number, got {value!r}")
+    return value
+
+
+def add_derived_quantities(samples: pd.DataFrame, freq_hz: float | None = None,
+                           stage_temp_k: float | None = None) -> pd.DataFrame:
+    """Add derived columns to a table of posterior draws.
+
+    Parameters
+    ----------
+    samples
+        Draws with a ``lifetime`` column (T_c in s) and optionally ``n_thermal``.
+    freq_hz
+        Mode frequency nu in Hz; needed for the quality factor and the temperatures.
+    stage_temp_k
+        Stage temperature in K; adds ``stage_occupation`` (constant column) and, with
+        ``n_thermal``, ``excess_photons``.
+
+    Returns
+    -------
+    DataFrame
+        A new table (the input is not changed) with ``linewidth`` [Hz] and
+        ``amplitude_decay_time`` [s] always; ``quality_factor`` with ``freq_hz``;
+        ``effective_temperature`` [K] with ``freq_hz`` and ``n_thermal``;
+        ``stage_occupation`` and ``excess_photons`` with ``freq_hz`` and ``stage_temp_k``.
+    """
+    from cavchar.thermal import effective_temperature, planck_occupation
+
+    if "lifetime" not in samples.columns:
+        raise InputError("derived quantities need a 'lifetime' column (T_c in s)")
+    freq_hz = _positive(freq_hz, "mode frequency")
+    stage_temp_k = _positive(stage_temp_k, "stage temperature", allow_zero=True)
+    out = samples.copy()
+    t_c = out["lifetime"].to_numpy(dtype=float)
+    if np.any(~(t_c > 0)):
+        raise InputError("lifetime draws must be positive")
+    out["linewidth"] = 1.0 / (2.0 * np.pi * t_c)
+    out["amplitude_decay_time"] = 2.0 * t_c
+    if freq_hz is not None:
+        out["quality_factor"] = 2.0 * np.pi * freq_hz * t_c
+    has_n = "n_thermal" in out.columns
+    if has_n and freq_hz is not None:
+        n = out["n_thermal"].to_numpy(dtype=float)
+        out["effective_temperature"] = effective_temperature(freq_hz, n)
+    if freq_hz is not None and stage_temp_k is not None:
+        n_stage = float(planck_occupation(freq_hz, stage_temp_k))
+        out["stage_occupation"] = n_stage
+        if has_n:
+            out["excess_photons"] = out["n_thermal"].to_numpy(dtype=float) - n_stage
+    return out
+
+
+def _interval(x: np.ndarray) -> dict[str, float]:
+    lo68, med, hi68 = np.quantile(x, [(1 - CREDIBLE_68) / 2, 0.5, (1 + CREDIBLE_68) / 2])
+    lo95, hi95 = np.quantile(x, [0.025, 0.975])
+    return {"median": float(med), "lo68": float(lo68), "hi68": float(hi68),
+            "lo95": float(lo95), "hi95": float(hi95)}
+
+
+def planck_check(samples: pd.DataFrame, freq_hz: float, stage_temp_k: float) -> dict[str, Any]:
+    """Compare the mode's thermal photon number with the Planck occupation of its stage.
+
+    Parameters
+    ----------
+    samples
+        Posterior draws with an ``n_thermal`` column.
+    freq_hz
+        Mode frequency nu in Hz.
+    stage_temp_k
+        Stage temperature in K.
+
+    Returns
+    -------
+    dict (plain JSON)
+        ``stage_occupation`` n(nu, T_stage); ``prob_hotter_than_stage`` = fraction of
+        draws with ``n_th > n(nu, T_stage)`` (equivalently ``T_eff > T_stage``, since
+        the Planck occupation increases with T); ``verdict`` ("hotter than the stage"
+        if that probability exceeds 0.95, "colder than the stage" below 0.05, else
+        "consistent with the stage"); ``n_thermal``, ``effective_temperature_k`` and
+        ``excess_photons``: median with 68% and 95% equal-tailed intervals;
+        ``piles_up_at_zero`` (2.5% quantile of n_th below 1% of its 97.5% quantile)
+        and then ``n_thermal_upper95`` / ``effective_temperature_upper95_k``, the
+        one-sided 95% upper limits to quote instead of an interval.
+    """
+    from cavchar.thermal import effective_temperature, planck_occupation
+
+    if "n_thermal" not in samples.columns:
+        raise InputError("a Planck check needs posterior draws of the thermal photon number",
+                         hint="this fit has no n_thermal parameter")
+    freq_hz = _positive(freq_hz, "mode frequency")
+    stage_temp_k = _positive(stage_temp_k, "stage temperature", allow_zero=True)
+    n = samples["n_thermal"].to_numpy(dtype=float)
+    if n.size == 0:
+        raise InputError("no posterior draws to check")
+    n_stage = float(planck_occupation(freq_hz, stage_temp_k))
+    t_eff = effective_temperature(freq_hz, n)
+    p_hot = float(np.mean(n > n_stage))
+    if p_hot > DECISION_PROBABILITY:
+        verdict = "hotter than the stage"
+    elif p_hot < 1 - DECISION_PROBABILITY:
+        verdict = "colder than the stage"
+    else:
+        verdict = "consistent with the stage"
+    n_int = _interval(n)
+    piles_up = bool(n_int["lo95"] < PILE_UP_RATIO * n_int["hi95"])
+    out: dict[str, Any] = {
+        "freq_hz": freq_hz,
+        "stage_temperature_k": stage_temp_k,
+        "stage_occupation": n_stage,
+        "prob_hotter_than_stage": p_hot,
+        "decision_probability": DECISION_PROBABILITY,
+        "verdict": verdict,
+        "n_thermal": n_int,
+        "effective_temperature_k": _interval(t_eff),
+        "excess_photons": _interval(n - n_stage),
+        "piles_up_at_zero": piles_up,
+        "pile_up_ratio": PILE_UP_RATIO,
+        "n_draws": int(n.size),
+    }
+    if piles_up:
+        n_upper = float(np.quantile(n, 0.95))
+        out["n_thermal_upper95"] = n_upper
+        # T_eff increases with n, so the limit maps through exactly
+        out["effective_temperature_upper95_k"] = float(effective_temperature(freq_hz, n_upper))
+    return out

@@ -1,0 +1,391 @@
+"""FitResult: the frozen, typed outcome of every fit, and its plain-JSON file format.
+
+A result holds the posterior draws (derived quantities included), the parameter
+specifications, the MAP, the sampler diagnostics, every setting, the
+provenance (input SHA-256, command line, seed, versions, date) and the checks
+(Planck check, posterior predictive checks).  ``summary()`` gives median,
+mean, sd, equal-tailed 68% and 95% intervals and MAP per quantity; asymmetric
+intervals stay asymmetric.  The JSON layout is described field by field in
+docs/inference.md; its version string is :data:`SCHEMA_VERSION`.
+"""
+
+from __future__ import annotations
+
+import copy
+import gzip
+import io
+import json
+import math
+import os
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import pandas as pd
+
+from cavchar.derived import COLUMN_INFO, CREDIBLE_68, add_derived_quantities, planck_check
+from cavchar.errors import InputError
+from cavchar.parameters import ParameterSpec
+
+if TYPE_CHECKING:
+    from cavchar.inference.sampler import PosteriorRun
+
+__all__ = ["FitResult", "SCHEMA_VERSION", "to_plain_json", "default_draws_name"]
+
+#: schema of the result JSON: "<name>/<major>"; readers accept every major they know
+SCHEMA_VERSION = "cavchar-fit-result/1"
+_SCHEMA_NAME, _KNOWN_MAJORS = "cavchar-fit-result", (1,)
+
+#: per-draw bookkeeping columns kept in ``samples`` but left out of ``summary()``
+BOOKKEEPING = ("log_posterior", "log_likelihood")
+
+_SUMMARY_COLUMNS = ["unit", "median", "mean", "sd", "lo68", "hi68", "lo95", "hi95", "map"]
+_Q68 = ((1 - CREDIBLE_68) / 2, (1 + CREDIBLE_68) / 2)
+
+
+def to_plain_json(value: Any) -> Any:
+    """Convert to plain JSON types: numpy scalars and arrays to numbers and lists, tuples
+    to lists, paths to strings, non-finite floats to None (strict JSON has no NaN)."""
+    if isinstance(value, Mapping):
+        return {str(k): to_plain_json(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [to_plain_json(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return to_plain_json(value.tolist())
+    if isinstance(value, bool | np.bool_):
+        return bool(value)
+    if isinstance(value, int | np.integer):
+        return int(value)
+    if isinstance(value, float | np.floating):
+        value = float(value)
+        return value if math.isfinite(value) else None
+    if value is None or isinstance(value, str):
+        return value
+    if isinstance(value, os.PathLike):
+        return os.fspath(value)
+    if hasattr(value, "to_dict"):
+        return to_plain_json(value.to_dict())
+    raise TypeError(f"cannot store {type(value).__name__} in a result file")
+
+
+def default_draws_name(stem: str = "draws") -> str:
+    """``draws.parquet`` when pyarrow is importable, else ``draws.csv``."""
+    try:
+        import pyarrow  # noqa: F401
+    except ImportError:
+        return f"{stem}.csv"
+    return f"{stem}.parquet"
+
+
+@dataclass(frozen=True, eq=False)
+class FitResult:
+    """Outcome of a fit (immutable fields; the tables given are copied; compared by identity).
+
+    Attributes
+    ----------
+    kind
+        Fit kind, e.g. ``"jumps"``, ``"probes"``, ``"ringdown"``.
+    specs
+        Parameter specifications (names, units, labels, priors), in order.
+    samples
+        Posterior draws, one row per draw: the parameters (SI units), derived
+        columns and ``log_posterior`` / ``log_likelihood``.
+    map_values
+        MAP of each parameter (and of derived quantities computed from it).
+    diagnostics
+        Sampler diagnostics (see docs/inference.md).
+    settings
+        Every setting, as plain JSON: ``{"sampler": {...}, "fit": {...}}``.
+    provenance
+        Input path and SHA-256, command line, seed, versions, date.
+    checks
+        Check results, e.g. ``{"planck": {...}, "dwell_times": {...}}``.
+    extras
+        Model-specific plain-JSON data for plots and reports.
+    converged
+        Whether the sampler passed all convergence checks.
+    trace
+        Optional walker chain ``(n_steps, n_walkers, ndim)`` in physical units for
+        trace plots; kept in memory only, not written to JSON.
+    """
+
+    kind: str
+    specs: tuple[ParameterSpec, ...]
+    samples: pd.DataFrame
+    map_values: dict[str, float]
+    diagnostics: dict[str, Any]
+    settings: dict[str, Any]
+    provenance: dict[str, Any]
+    checks: dict[str, Any] = field(default_factory=dict)
+    extras: dict[str, Any] = field(default_factory=dict)
+    converged: bool = True
+    trace: np.ndarray | None = field(default=None, repr=False, compare=False)
+
+    def __post_init__(self) -> None:
+        specs = tuple(self.specs)
+        missing = [s.name for s in specs if s.name not in self.samples.columns]
+        if missing:
+            raise ValueError(f"samples lack the parameter columns {missing}")
+        object.__setattr__(self, "specs", specs)
+        object.__setattr__(self, "samples", self.samples.reset_index(drop=True).copy())
+        for name in ("map_values", "diagnostics", "settings", "provenance", "checks", "extras"):
+            object.__setattr__(self, name, to_plain_json(copy.deepcopy(getattr(self, name))))
+        object.__setattr__(self, "map_values",
+                           {k: (math.nan if v is None else v) for k, v in self.map_values.items()})
+
+    # ------------------------------------------------------------------ construction
+    @classmethod
+    def from_run(
+        cls,
+        kind: str,
+        run: PosteriorRun,
+        *,
+        freq_hz: float | None = None,
+        stage_temp_k: float | None = None,
+        provenance: Mapping[str, Any] | None = None,
+        fit_settings: Mapping[str, Any] | None = None,
+        checks: Mapping[str, Any] | None = None,
+        extras: Mapping[str, Any] | None = None,
+    ) -> FitResult:
+        """Build a result from a :class:`cavchar.inference.PosteriorRun`.
+
+        Adds the derived quantities (:func:`cavchar.derived.add_derived_quantities`)
+        when there is a ``lifetime`` parameter, the Planck check when ``n_thermal``,
+        ``freq_hz`` and ``stage_temp_k`` are all there, and records ``freq_hz``,
+        ``stage_temp_k`` and ``fit_settings`` under ``settings["fit"]``.  Without
+        ``provenance`` one is collected (no input file) with the run's seed.
+        """
+        from cavchar.provenance import collect_provenance
+
+        names = run.names
+        samples = pd.DataFrame(run.draws, columns=names)
+        map_frame = pd.DataFrame(run.map[None, :], columns=names)
+        if "lifetime" in names:
+            samples = add_derived_quantities(samples, freq_hz, stage_temp_k)
+            map_frame = add_derived_quantities(map_frame, freq_hz, stage_temp_k)
+        samples["log_posterior"] = run.log_posterior
+        samples["log_likelihood"] = run.log_likelihood
+        all_checks = dict(checks or {})
+        if "n_thermal" in names and freq_hz is not None and stage_temp_k is not None:
+            all_checks.setdefault("planck", planck_check(samples, freq_hz, stage_temp_k))
+        prov = dict(provenance) if provenance is not None else collect_provenance()
+        prov["seed"] = run.settings.seed
+        fit = {"freq_hz": freq_hz, "stage_temp_k": stage_temp_k, **dict(fit_settings or {})}
+        return cls(kind=kind, specs=run.specs, samples=samples,
+                   map_values={k: float(v) for k, v in map_frame.iloc[0].items()},
+                   diagnostics=run.diagnostics,
+                   settings={"sampler": run.settings.to_dict(), "fit": fit},
+                   provenance=prov, checks=all_checks, extras=dict(extras or {}),
+                   converged=run.converged, trace=run.trace)
+
+    # ------------------------------------------------------------------ access
+    @property
+    def parameter_names(self) -> list[str]:
+        return [s.name for s in self.specs]
+
+    @property
+    def seed(self) -> int | None:
+        """The sampler seed (from the settings, else the provenance)."""
+        seed = self.settings.get("sampler", {}).get("seed")
+        return self.provenance.get("seed") if seed is None else seed
+
+    def column_info(self, name: str) -> tuple[str, str, str]:
+        """``(unit, dimension, label)`` of a column of :attr:`samples`."""
+        for spec in self.specs:
+            if spec.name == name:
+                return spec.unit, spec.dimension, spec.label
+        if name in COLUMN_INFO:
+            return COLUMN_INFO[name]
+        if name not in self.samples.columns:
+            raise KeyError(f"no column {name!r} in the posterior draws")
+        return "", "dimensionless", name
+
+    def quantity_names(self) -> list[str]:
+        """Summarised columns: the parameters first, then the derived quantities."""
+        rest = [c for c in self.samples.columns
+                if c not in self.parameter_names and c not in BOOKKEEPING]
+        return self.parameter_names + rest
+
+    def summary(self) -> pd.DataFrame:
+        """Per quantity: unit, median, mean, sd, equal-tailed 68% (lo68, hi68; one-sigma mass
+        0.6827) and 95% (lo95, hi95) credible intervals, and the MAP (NaN if unknown)."""
+        rows = {}
+        for name in self.quantity_names():
+            x = self.samples[name].to_numpy(dtype=float)
+            lo68, med, hi68, lo95, hi95 = np.quantile(x, [_Q68[0], 0.5, _Q68[1], 0.025, 0.975])
+            rows[name] = {"unit": self.column_info(name)[0], "median": med,
+                          "mean": float(np.mean(x)), "sd": float(np.std(x, ddof=1)),
+                          "lo68": lo68, "hi68": hi68, "lo95": lo95, "hi95": hi95,
+                          "map": float(self.map_values.get(name, math.nan))}
+        table = pd.DataFrame.from_dict(rows, orient="index", columns=_SUMMARY_COLUMNS)
+        table.index.name = "quantity"
+        return table
+
+    def one_line(self, name: str, upper_limit: bool | None = None) -> str:
+        """One printable line, e.g. ``"T_c = 1.210(+0.040/-0.030) ms (68% credible)"``.
+
+        The median with its asymmetric 68% interval, in one SI prefix chosen by
+        :func:`cavchar.units.format_quantity`; decimals follow the Particle Data
+        Group rounding rule applied to the smaller error (leading three digits
+        100-354: two significant digits, 355-949: one, 950-999: round up to two).
+        ``upper_limit`` (default: when the Planck check found n_th piled up against
+        zero, for ``n_thermal`` and ``effective_temperature``) prints the one-sided
+        95% upper limit instead: ``"n_th < 0.0031 (95% upper limit)"``.
+        """
+        from cavchar.units import format_quantity
+
+        unit, dimension, label = self.column_info(name)
+        x = self.samples[name].to_numpy(dtype=float)
+        if upper_limit is None:
+            upper_limit = (name in ("n_thermal", "effective_temperature")
+                           and bool(self.checks.get("planck", {}).get("piles_up_at_zero")))
+        if upper_limit:
+            limit = format_quantity(float(np.quantile(x, 0.95)), dimension)
+            return f"{label} < {limit} (95% upper limit)"
+        lo, med, hi = np.quantile(x, [_Q68[0], 0.5, _Q68[1]])
+        value, plus, minus, unit_text = _scaled(med, hi - med, med - lo, dimension)
+        return f"{label} = {value}(+{plus}/-{minus}){unit_text} (68% credible)"
+
+    # ------------------------------------------------------------------ files
+    def to_dict(self) -> dict[str, Any]:
+        """The plain-JSON form written by :meth:`to_json`."""
+        summary = self.summary()
+        columns = {c: dict(zip(("unit", "dimension", "label"), self.column_info(c),
+                               strict=True)) for c in self.samples.columns}
+        return to_plain_json({
+            "schema": SCHEMA_VERSION,
+            "kind": self.kind,
+            "converged": self.converged,
+            "seed": self.seed,
+            "parameters": [s.to_dict() for s in self.specs],
+            "columns": columns,
+            "summary": summary.to_dict(orient="index"),
+            "map": self.map_values,
+            "diagnostics": self.diagnostics,
+            "settings": self.settings,
+            "provenance": self.provenance,
+            "checks": self.checks,
+            "extras": self.extras,
+            "samples": {c: self.samples[c].to_numpy(dtype=float) for c in self.samples.columns},
+        })
+
+    def to_json(self, path: str | os.PathLike, force: bool = False) -> Path:
+        """Write the result as strict JSON, atomically; an existing file needs ``force=True``."""
+        from cavchar.io.atomic import write_text_atomic
+
+        return write_text_atomic(path, _dump(self.to_dict()), force=force)
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any], path: str | os.PathLike | None = None
+                  ) -> FitResult:
+        """Inverse of :meth:`to_dict`; raises :class:`InputError` for other files."""
+        schema = data.get("schema") if isinstance(data, Mapping) else None
+        name, _, major = str(schema).partition("/")
+        if name != _SCHEMA_NAME:
+            raise InputError("not a cavchar result file (no schema string)", path=path)
+        if not major.isdigit() or int(major) not in _KNOWN_MAJORS:
+            raise InputError(f"result schema {schema!r} is newer than this cavchar reads",
+                             path=path, hint="update cavchar")
+        try:
+            specs = tuple(ParameterSpec.from_dict(p) for p in data["parameters"])
+            samples = pd.DataFrame({c: np.array(v, dtype=float)
+                                    for c, v in data["samples"].items()})
+            map_values = {k: (math.nan if v is None else float(v))
+                          for k, v in data["map"].items()}
+            return cls(kind=str(data["kind"]), specs=specs, samples=samples,
+                       map_values=map_values, diagnostics=data["diagnostics"],
+                       settings=data["settings"], provenance=data["provenance"],
+                       checks=data.get("checks", {}), extras=data.get("extras", {}),
+                       converged=bool(data["converged"]))
+        except (KeyError, TypeError, ValueError) as exc:
+            raise InputError(f"damaged cavchar result file ({type(exc).__name__}: {exc})",
+                             path=path) from None
+
+    @classmethod
+    def from_json(cls, path: str | os.PathLike) -> FitResult:
+        """Read a file written by :meth:`to_json` (any schema version this cavchar knows)."""
+        try:
+            data = json.loads(Path(path).read_text(encoding="utf-8"))
+        except (OSError, UnicodeDecodeError) as exc:
+            raise InputError(f"cannot read the result file ({exc})", path=path) from None
+        except json.JSONDecodeError as exc:
+            raise InputError(f"not valid JSON: {exc.msg}", path=path, line=exc.lineno) from None
+        return cls.from_dict(data, path=path)
+
+    def write_draws(self, path: str | os.PathLike, force: bool = False) -> Path:
+        """Write the draws table: Parquet for ``.parquet``/``.pq`` (needs pyarrow), else CSV
+        (``.csv``; ``.csv.gz`` compressed), floats written round-trip exact; atomic."""
+        from cavchar.io.atomic import check_can_write, write_bytes_atomic, write_text_atomic
+
+        target = check_can_write(path, force)
+        suffixes = [s.lower() for s in target.suffixes]
+        if suffixes and suffixes[-1] in (".parquet", ".pq"):
+            try:
+                import pyarrow  # noqa: F401
+            except ImportError:
+                raise InputError("writing Parquet needs pyarrow", path=target,
+                                 hint="pip install pyarrow, or write a .csv file") from None
+            buffer = io.BytesIO()
+            self.samples.to_parquet(buffer, index=False)
+            return write_bytes_atomic(target, buffer.getvalue(), force=force)
+        text = self.samples.to_csv(index=False, float_format=None, lineterminator="\n")
+        if suffixes[-2:] == [".csv", ".gz"] or (suffixes and suffixes[-1] == ".gz"):
+            return write_bytes_atomic(target, gzip.compress(text.encode(), mtime=0), force=force)
+        return write_text_atomic(target, text, force=force)
+
+
+def _dump(data: dict[str, Any]) -> str:
+    """Strict JSON: metadata indented, each column of draws on one line."""
+    parts = []
+    for key, value in data.items():
+        if key == "samples":
+            cols = ",\n".join(f"  {json.dumps(c)}: {json.dumps(v, allow_nan=False)}"
+                               for c, v in value.items())
+            body = "{\n" + cols + "\n }" if value else "{}"
+        else:
+            body = json.dumps(value, indent=1, allow_nan=False).replace("\n", "\n ")
+        parts.append(f" {json.dumps(key)}: {body}")
+    return "{\n" + ",\n".join(parts) + "\n}\n"
+
+
+def _pdg_decimals(error: float) -> int:
+    """Decimals that round ``error`` per the Particle Data Group rule (see one_line)."""
+    exponent = math.floor(math.log10(error))
+    lead = int(error / 10 ** (exponent - 2))  # three leading digits, 100..999
+    if lead >= 950:
+        exponent, sig = exponent + 1, 2
+    elif lead >= 355:
+        sig = 1
+    else:
+        sig = 2
+    return sig - 1 - exponent
+
+
+def _scaled(median: float, plus: float, minus: float, dimension: str
+            ) -> tuple[str, str, str, str]:
+    """Median and errors as strings in one display unit (prefix or power of ten)."""
+    from cavchar.units import format_quantity, parse_quantity
+
+    suffix = ""
+    if dimension in ("dimensionless", "phase"):
+        magnitude = abs(median) if median != 0 else max(plus, minus)
+        exponent = 0
+        if magnitude > 0 and not 1e-3 <= magnitude < 1e4:
+            exponent = math.floor(math.log10(magnitude))
+        factor = 10.0**exponent
+        suffix = (f"e{exponent}" if exponent else "") + (" rad" if dimension == "phase" else "")
+    else:
+        text = format_quantity(median, dimension)
+        unit = text.split(" ", 1)[1] if " " in text else ""
+        factor = parse_quantity("1" + unit, dimension) if unit else 1.0
+        suffix = f" {unit}" if unit else ""
+    med, p, m = median / factor, plus / factor, minus / factor
+    smaller = min(p, m)
+    decimals = _pdg_decimals(smaller) if smaller > 0 and math.isfinite(smaller) else 3
+    if decimals < 0:  # errors of tens or more in this unit: round to that place
+        step = 10.0**-decimals
+        med, p, m = (round(v / step) * step for v in (med, p, m))
+        decimals = 0
+    return f"{med:.{decimals}f}", f"{p:.{decimals}f}", f"{m:.{decimals}f}", suffix
