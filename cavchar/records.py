@@ -530,8 +530,19 @@ class RingdownTrace(_Record):
             array = np.asarray(value)
             if array.ndim != 2 or array.shape[0] != m or array.shape[1] < 1:
                 raise self._error(f"a populations trace needs counts of shape ({m}, levels)")
-            flat = self._integers("count", array.reshape(-1), array.size, minimum=0)
-            counts = flat.reshape(array.shape)
+            if array.dtype.kind not in "iu":
+                array = np.asarray(array, dtype=np.float64)
+                for bad, what in ((~np.isfinite(array), "is not finite"),
+                                  (array != np.round(array), "is not a whole number")):
+                    if bad.any():
+                        row, col = np.argwhere(bad)[0]
+                        raise self._error(f"count_{col} = {array[row, col]} {what}", int(row),
+                                          hint="counts must be whole numbers >= 0")
+            counts = array.astype(np.int64)
+            if (counts < 0).any():
+                row, col = np.argwhere(counts < 0)[0]
+                raise self._error(f"count_{col} = {counts[row, col]} is negative", int(row),
+                                  hint="counts must be whole numbers >= 0")
             empty = counts.sum(axis=1) == 0
             if empty.any():
                 raise self._error("no counts at this delay", int(np.argmax(empty)),
