@@ -1,0 +1,91 @@
+"""``cavchar fit jumps``: lifetime and thermal photon number from a photon-number jump record."""
+
+from __future__ import annotations
+
+import argparse
+import shlex
+import sys
+
+from cavchar.cli.common import (
+    HelpFormatter,
+    add_fit_context_options,
+    add_output_options,
+    add_sampler_options,
+    check_outputs,
+    finish_fit_command,
+    quantity,
+    settings_from_args,
+)
+
+EXAMPLES = """examples:
+  cavchar fit jumps record.csv --freq 6.8GHz --stage-temp 20mK -o fit_out
+  cavchar fit jumps samples.csv --sampled --freq 6.8GHz -o fit_out --force
+  cavchar fit jumps record.csv --end-time 2.5s --prior-lifetime loguniform:10us,1s
+
+The record formats are described in docs/data-formats.md.  An exact record holds
+change points (time, photons) and its end time; --sampled reads photon numbers at
+probe times, where several jumps may happen between samples.
+"""
+
+
+def register_fit(kinds: argparse._SubParsersAction) -> None:
+    parser = kinds.add_parser(
+        "jumps",
+        help="exact or sampled photon-number jump records",
+        description="Posterior of the energy lifetime T_c = 1/kappa and the thermal photon "
+        "number n_th of a damped mode from its photon-number record, by MCMC; with the "
+        "mode frequency also Q, linewidth and effective temperature, and with the stage "
+        "temperature the Planck check.",
+        epilog=EXAMPLES,
+        formatter_class=HelpFormatter,
+    )
+    parser.add_argument("record", help="record file (CSV/TSV, .gz, NPZ, Parquet)")
+    parser.add_argument("--sampled", action="store_true",
+                        help="photon numbers at probe times (not exact change points)")
+    parser.add_argument("--end-time", type=quantity("time"), default=None,
+                        help="end of an exact record when the file does not give it, e.g. 2.5s")
+    parser.add_argument("--prior-lifetime", default=None, metavar="PRIOR",
+                        help="prior on T_c, e.g. loguniform:1us,1000s (the default), "
+                        "normal:1.2ms,0.1ms, lognormal:1ms,0.5")
+    parser.add_argument("--prior-n-thermal", default=None, metavar="PRIOR",
+                        help="prior on n_th, e.g. loguniform:1e-6,100 (the default), "
+                        "stage (log-normal around the stage's Planck occupation)")
+    parser.add_argument("--stationary-start", action="store_true",
+                        help="score each segment's first photon number with the thermal "
+                        "(Bose-Einstein) law; only for records starting in equilibrium")
+    add_fit_context_options(parser)
+    add_sampler_options(parser)
+    add_output_options(parser)
+    parser.set_defaults(func=handle)
+
+
+def handle(args: argparse.Namespace) -> int:
+    from cavchar.errors import InputError
+    from cavchar.fits.jumps import JumpPriors, fit_jumps
+    from cavchar.priors import parse_prior, stage_occupation_prior
+
+    check_outputs(args)
+    priors = JumpPriors()
+    if args.prior_lifetime:
+        priors = JumpPriors(lifetime=parse_prior(args.prior_lifetime, "time"),
+                            n_thermal=priors.n_thermal)
+    if args.prior_n_thermal:
+        if args.prior_n_thermal.strip().lower() == "stage":
+            if args.freq is None or args.stage_temp is None:
+                raise InputError("--prior-n-thermal stage needs --freq and --stage-temp")
+            prior = stage_occupation_prior(args.freq, args.stage_temp)
+        else:
+            prior = parse_prior(args.prior_n_thermal, "dimensionless", freq_hz=args.freq)
+        priors = JumpPriors(lifetime=priors.lifetime, n_thermal=prior)
+    result = fit_jumps(
+        args.record,
+        freq_hz=args.freq,
+        stage_temp_k=args.stage_temp,
+        sampled=args.sampled,
+        end_time=args.end_time,
+        priors=priors,
+        stationary_start=args.stationary_start,
+        settings=settings_from_args(args),
+        command="cavchar " + shlex.join(sys.argv[1:]) if sys.argv else None,
+    )
+    return finish_fit_command(result, args)

@@ -1,0 +1,1 @@
+"""Fits: record -> model -> sampler -> FitResult, one module per data shape."""

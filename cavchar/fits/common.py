@@ -1,0 +1,64 @@
+"""What every fit shares after its model: settings, provenance and the result."""
+
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass
+from typing import Any
+
+from cavchar.inference import SamplerSettings
+from cavchar.result import FitResult
+
+__all__ = ["FitContext", "sampler_settings", "finish_fit"]
+
+
+@dataclass(frozen=True)
+class FitContext:
+    """The record being fitted and the physical context of the fit.
+
+    ``record`` is any record of :mod:`cavchar.records` (its ``source`` is the input
+    file, hashed into the provenance) or a list of them.
+    """
+
+    record: Any
+    freq_hz: float | None = None
+    stage_temp_k: float | None = None
+    command: str | None = None
+
+    def sources(self) -> list[str]:
+        records = self.record if isinstance(self.record, (list, tuple)) else [self.record]
+        return [r.source for r in records if getattr(r, "source", None)]
+
+
+def sampler_settings(settings: SamplerSettings | None, seed: int | None) -> SamplerSettings:
+    """The given settings (default ones if None) with ``seed`` applied when given."""
+    settings = settings or SamplerSettings()
+    if seed is not None:
+        settings = dataclasses.replace(settings, seed=int(seed))
+    return settings
+
+
+def finish_fit(
+    kind: str,
+    run,
+    context: FitContext,
+    *,
+    checks: dict[str, Any] | None = None,
+    extras: dict[str, Any] | None = None,
+    model_settings: dict[str, Any] | None = None,
+) -> FitResult:
+    """Build the :class:`FitResult` of a finished run with provenance and derived quantities."""
+    from cavchar.provenance import collect_provenance
+
+    sources = context.sources()
+    provenance = collect_provenance(
+        (sources[0] if len(sources) == 1 else sources) or None,
+        command_line=context.command.split() if context.command else None,
+        seed=run.settings.seed,
+    )
+    if context.command:
+        provenance["command"] = context.command
+    return FitResult.from_run(
+        kind, run, freq_hz=context.freq_hz, stage_temp_k=context.stage_temp_k,
+        provenance=provenance, fit_settings=model_settings, checks=checks, extras=extras,
+    )

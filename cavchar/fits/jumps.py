@@ -1,0 +1,267 @@
+"""Fit a photon-number jump record: energy lifetime, thermal photon number, effective temperature.
+
+``fit_jumps`` takes an exact record (change points; likelihood from four
+sufficient statistics) or a sampled record (photon number at probe times;
+likelihood from the truncated generator's transition matrices), samples the
+posterior of ``(T_c, n_th)`` with the common emcee driver and returns a
+:class:`cavchar.result.FitResult` with derived quantities, the Planck check
+and, for exact records, the dwell-time posterior predictive check.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+
+from cavchar.dynamics import truncation_levels
+from cavchar.errors import InputError, ModelMisfitWarning, PriorDominatedWarning
+from cavchar.fits.common import FitContext, finish_fit, sampler_settings
+from cavchar.inference import SamplerSettings, sample_posterior
+from cavchar.models.jumps import (
+    dwell_times,
+    exact_log_likelihood,
+    jump_statistics,
+    sampled_log_likelihood,
+    sampled_transitions,
+)
+from cavchar.models.jumps_check import dwell_time_check
+from cavchar.parameters import ParameterSpec
+from cavchar.priors import LogUniform, Prior, stage_occupation_prior
+from cavchar.records import JumpRecord, SampledRecord
+
+__all__ = ["fit_jumps", "default_priors", "JumpPriors"]
+
+#: default prior bounds: wide enough for any microwave cavity (1 us .. 1000 s; 1e-6 .. 100)
+DEFAULT_LIFETIME_PRIOR = LogUniform(1e-6, 1e3)
+DEFAULT_N_THERMAL_PRIOR = LogUniform(1e-6, 1e2)
+#: neglected stationary tail of the truncation for sampled records
+TRUNCATION_TAIL = 1e-12
+
+
+@dataclass(frozen=True)
+class JumpPriors:
+    """Priors on the lifetime T_c (s) and the thermal photon number n_th."""
+
+    lifetime: Prior = DEFAULT_LIFETIME_PRIOR
+    n_thermal: Prior = DEFAULT_N_THERMAL_PRIOR
+
+
+def default_priors(freq_hz: float | None = None, stage_temp_k: float | None = None,
+                   n_thermal_from_stage: bool = False) -> JumpPriors:
+    """Log-uniform priors with wide bounds; optionally n_th log-normal around the stage's
+    Planck occupation (:func:`cavchar.priors.stage_occupation_prior`)."""
+    if n_thermal_from_stage:
+        if freq_hz is None or stage_temp_k is None:
+            raise InputError("a prior from the stage temperature needs --freq and --stage-temp")
+        return JumpPriors(n_thermal=stage_occupation_prior(freq_hz, stage_temp_k))
+    return JumpPriors()
+
+
+def _specs(priors: JumpPriors) -> tuple[ParameterSpec, ParameterSpec]:
+    return (
+        ParameterSpec("lifetime", "s", "T_c", priors.lifetime, log_scale=True),
+        ParameterSpec("n_thermal", "", "n_th", priors.n_thermal, log_scale=True),
+    )
+
+
+def _read(record, sampled: bool, end_time: float | None):
+    from cavchar.io.readers import read_jump_record, read_sampled_record
+
+    if isinstance(record, (JumpRecord, SampledRecord)):
+        return record
+    if not isinstance(record, (str, os.PathLike)):
+        raise TypeError("record must be a JumpRecord, a SampledRecord or a file path")
+    if sampled:
+        return read_sampled_record(record)
+    return read_jump_record(record, end_time=end_time)
+
+
+def _exact_guess(stats) -> tuple[float, float]:
+    """Maximum-likelihood start: a = U / A_1, b = D / A_0, kappa = b - a, n_th = a / kappa."""
+    a = max(stats.up, 0.5) / stats.time_n_plus_1
+    b = max(stats.down, 0.5) / max(stats.time_n, 1e-300)
+    if not (math.isfinite(b) and b > 2 * a):
+        b = 2 * a + 1.0 / stats.duration
+    kappa = b - a
+    return 1.0 / kappa, a / kappa
+
+
+def _sampled_guess(record: SampledRecord) -> tuple[float, float]:
+    """Start from the mean relaxation: E[n(t+dt) | n(t)] = n_th + (n - n_th) exp(-kappa dt)."""
+    n = record.photons.astype(float)
+    n_th = max(float(n.mean()), 1e-3)
+    same = np.ones(n.size - 1, bool)
+    if record.segment is not None:
+        same = record.segment[1:] == record.segment[:-1]
+    dt = float(np.median(np.diff(record.time)[same])) if same.any() else 1.0
+    x, y = n[:-1][same], n[1:][same]
+    slope = np.nan
+    if x.size > 2 and np.var(x) > 0:
+        slope = np.cov(x, y, bias=True)[0, 1] / np.var(x)
+    if not (0.01 < slope < 0.999):
+        slope = 0.5
+    return dt / -math.log(slope), n_th
+
+
+def fit_jumps(
+    record: JumpRecord | SampledRecord | str | os.PathLike,
+    *,
+    freq_hz: float | None = None,
+    stage_temp_k: float | None = None,
+    sampled: bool = False,
+    end_time: float | None = None,
+    priors: JumpPriors | None = None,
+    stationary_start: bool = False,
+    settings: SamplerSettings | None = None,
+    seed: int | None = None,
+    command: str | None = None,
+):
+    """Posterior of the energy lifetime and thermal photon number from a jump record.
+
+    Parameters
+    ----------
+    record
+        A :class:`~cavchar.records.JumpRecord` (exact change points), a
+        :class:`~cavchar.records.SampledRecord` (photon number at probe times)
+        or the path of a file in one of these formats (see docs/data-formats.md).
+    freq_hz
+        Mode frequency in Hz: enables Q, effective temperature and the Planck check.
+    stage_temp_k
+        Stage temperature in K: enables the excess over the Planck occupation and
+        the probability that the mode is hotter than its stage.
+    sampled
+        Read a file as a sampled record (several jumps may happen between samples).
+    end_time
+        End of an exact record in s when the file does not give it.
+    priors
+        :class:`JumpPriors` (default: log-uniform, T_c in [1 us, 1000 s], n_th in [1e-6, 100]).
+    stationary_start
+        Score the first photon number of each segment with the Bose–Einstein law
+        (only for records that start in thermal equilibrium).
+    settings, seed
+        Sampler settings; ``seed`` overrides ``settings.seed``.
+    command
+        The command line, stored in the provenance.
+
+    Returns
+    -------
+    FitResult
+        Kind ``"jumps-exact"`` or ``"jumps-sampled"``.
+    """
+    record = _read(record, sampled, end_time)
+    priors = priors or JumpPriors()
+    specs = _specs(priors)
+    settings = sampler_settings(settings, seed)
+    initial = "stationary" if stationary_start else "conditional"
+    context = FitContext(record=record, freq_hz=freq_hz, stage_temp_k=stage_temp_k,
+                         command=command)
+    if isinstance(record, JumpRecord):
+        return _fit_exact(record, specs, settings, initial, context)
+    return _fit_sampled(record, specs, settings, initial, context)
+
+
+def _fit_exact(record, specs, settings, initial, context):
+    stats = jump_statistics(record.time, record.photons, record.end_time, record.segment)
+    if stats.up + stats.down == 0:
+        warnings.warn(f"{record.source or 'the record'} has no jumps: the posterior mostly "
+                      "reflects the prior (the intervals below say how little is known)",
+                      PriorDominatedWarning, stacklevel=3)
+
+    def log_likelihood(theta: np.ndarray) -> np.ndarray:
+        return exact_log_likelihood(stats, theta[:, 0], theta[:, 1], initial=initial)
+
+    run = sample_posterior(log_likelihood, specs, _exact_guess(stats), settings)
+    durations, states, complete = dwell_times(record.time, record.photons, record.end_time,
+                                              record.segment)
+    rng = np.random.default_rng(np.random.SeedSequence(run.settings.seed).spawn(4)[3])
+    check = dwell_time_check(durations, states, complete, run.draws[:, 0], run.draws[:, 1], rng)
+    if check["misfit"]:
+        warnings.warn("dwell-time check: the dwell times of some photon number do not follow "
+                      f"the fitted exponential (smallest p-value {check['smallest_p_value']:.3g}"
+                      f" < {check['threshold']:.3g}); the damped-mode model may not describe "
+                      "this record", ModelMisfitWarning, stacklevel=3)
+    occupation = np.bincount(states, weights=durations) / durations.sum()
+    extras = {
+        "statistics": stats.to_dict(),
+        "occupation_fraction": occupation.tolist(),
+        "initial_state": initial,
+        "record_excerpt": _excerpt(record),
+        "dwell_excerpt": _dwell_excerpt(durations, states, complete, rng),
+    }
+    return finish_fit("jumps-exact", run, context, checks={"dwell_times": check},
+                      extras=extras, model_settings={"initial_state": initial})
+
+
+#: change points / dwells per photon number kept in the result for its figures
+EXCERPT_ROWS = 2000
+
+
+def _excerpt(record) -> dict:
+    """The start of the first segment, for the record figure of reports."""
+    first = record.segments()[0]
+    rows = min(first.time.size, EXCERPT_ROWS)
+    end = first.end_time if rows == first.time.size else float(first.time[rows])
+    return {"time": first.time[:rows].tolist(), "photons": first.photons[:rows].tolist(),
+            "end_time": end, "rows_in_segment": int(first.time.size)}
+
+
+def _dwell_excerpt(durations, states, complete, rng) -> dict:
+    """Up to EXCERPT_ROWS complete dwells per photon number (a seeded random subset)."""
+    out = {}
+    for n in np.unique(states[complete]):
+        d = durations[complete & (states == n)]
+        if d.size > EXCERPT_ROWS:
+            d = rng.choice(d, EXCERPT_ROWS, replace=False)
+        out[str(int(n))] = np.sort(d).tolist()
+    return out
+
+
+def _fit_sampled(record, specs, settings, initial, context):
+    trans = sampled_transitions(record.time, record.photons, record.segment)
+    if trans.n_transitions == 0:
+        raise InputError("the sampled record has fewer than two samples in every segment",
+                         path=record.source, hint="a sampled record needs consecutive samples")
+    guess = _sampled_guess(record)
+    n_high = max(4.0 * guess[1], float(record.photons.mean()) + 1.0, 0.5)
+    for _attempt in range(3):
+        n_levels = truncation_levels(n_high, trans.n_max, TRUNCATION_TAIL)
+
+        def log_likelihood(theta: np.ndarray, n_levels=n_levels) -> np.ndarray:
+            return sampled_log_likelihood(trans, theta[:, 0], theta[:, 1], n_levels,
+                                          initial=initial)
+
+        run = sample_posterior(log_likelihood, specs, guess, settings)
+        n_top = float(np.quantile(run.draws[:, 1], 0.999))
+        if n_top <= n_high:
+            break
+        n_high = 2.0 * n_top
+    r = n_top / (1.0 + n_top)
+    truncation = {
+        "levels": int(n_levels),
+        "largest_observed_photon_number": int(trans.n_max),
+        "designed_for_n_thermal_up_to": n_high,
+        "neglected_tail_at_n_thermal_99.9%": float(r ** (n_levels - trans.n_max)),
+        "rule": "levels = largest observed number + ceil(log(1e-12) / log(r)), "
+                "r = n_th / (1 + n_th); the tail bounds the probability above the top level",
+    }
+    occupation = np.bincount(record.photons) / record.photons.size
+    first = record.segments()[0]
+    rows = min(first.time.size, EXCERPT_ROWS)
+    extras = {
+        "occupation_fraction": occupation.tolist(),
+        "record_excerpt": {"time": first.time[:rows].tolist(),
+                           "photons": first.photons[:rows].tolist(),
+                           "end_time": float(first.time[rows - 1]),
+                           "rows_in_segment": int(first.time.size)},
+        "transitions": int(trans.n_transitions),
+        "distinct_steps": int(trans.steps.size),
+        "truncation": truncation,
+        "initial_state": initial,
+    }
+    return finish_fit("jumps-sampled", run, context, checks={"truncation": truncation},
+                      extras=extras, model_settings={"initial_state": initial,
+                                                     "levels": int(n_levels)})

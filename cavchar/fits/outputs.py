@@ -1,0 +1,135 @@
+"""Files and printed summary of a fit: result JSON, posterior draws, figures."""
+
+from __future__ import annotations
+
+import importlib
+import math
+import os
+from pathlib import Path
+
+from cavchar.io.atomic import check_can_write
+from cavchar.result import FitResult
+
+__all__ = ["print_summary", "summary_text", "planck_statement", "write_fit_outputs",
+           "fit_figures"]
+
+#: kind prefix -> module with ``figures(result) -> dict[name, Figure]``
+FIGURE_MODULES = {
+    "jumps": "cavchar.plots.jumps",
+    "probes": "cavchar.plots.probes",
+    "ringdown": "cavchar.plots.ringdown",
+}
+
+#: quantities printed, in order (those present in the result)
+PRINTED = ("lifetime", "n_thermal", "effective_temperature", "quality_factor", "linewidth",
+           "amplitude_decay_time", "excess_photons")
+
+
+def summary_text(result: FitResult) -> str:
+    """A table with units: median, 68% and 95% intervals of the main quantities."""
+    from cavchar.units import format_quantity
+
+    table = result.summary()
+    lines = [f"{result.kind} fit ({'converged' if result.converged else 'NOT converged'}; "
+             f"{len(result.samples)} draws, seed {result.seed})",
+             f"  {'quantity':<34}{'median':>12}{'68% interval':>28}{'95% interval':>28}"]
+    names = [n for n in PRINTED if n in table.index]
+    names += [n for n in result.parameter_names if n not in names]
+    for name in names:
+        unit, dimension, label = result.column_info(name)
+        row = table.loc[name]
+
+        def fmt(x: float, dimension: str = dimension) -> str:
+            return format_quantity(float(x), dimension, 4) if math.isfinite(x) else "nan"
+
+        lines.append(f"  {label:<34}{fmt(row['median']):>12}"
+                     f"{'[' + fmt(row['lo68']) + ', ' + fmt(row['hi68']) + ']':>28}"
+                     f"{'[' + fmt(row['lo95']) + ', ' + fmt(row['hi95']) + ']':>28}")
+    planck = result.checks.get("planck")
+    if planck:
+        lines.append("  " + planck_statement(planck))
+    for name in ("lifetime", "n_thermal"):
+        if name in table.index:
+            lines.append("  " + result.one_line(name))
+    return "\n".join(lines)
+
+
+def planck_statement(planck: dict) -> str:
+    """The Planck check in words, e.g. "the mode is hotter than its 20 mK stage with
+    probability 0.998; effective temperature 61 (+4/-3) mK"."""
+    from cavchar.units import format_quantity
+
+    stage = format_quantity(planck["stage_temperature_k"], "temperature")
+    p_hot = planck["prob_hotter_than_stage"]
+    if planck.get("piles_up_at_zero") and "effective_temperature_upper95_k" in planck:
+        limit = format_quantity(planck["effective_temperature_upper95_k"], "temperature")
+        temp = f"effective temperature below {limit} (95% upper limit)"
+    else:
+        t = planck["effective_temperature_k"]
+        med_text = format_quantity(t["median"], "temperature", 3)
+        value, unit = med_text.split(" ") if " " in med_text else (med_text, "")
+        scale = t["median"] / float(value) if float(value) else 1.0
+        plus = (t["hi68"] - t["median"]) / scale
+        minus = (t["median"] - t["lo68"]) / scale
+        temp = f"effective temperature {value} (+{plus:.2g}/-{minus:.2g}) {unit} (68% credible)"
+    if planck["verdict"] == "hotter than the stage":
+        head = f"the mode is hotter than its {stage} stage with probability {p_hot:.3g}"
+    elif planck["verdict"] == "colder than the stage":
+        head = (f"the mode is colder than its {stage} stage with probability "
+                f"{1 - p_hot:.3g}")
+    else:
+        head = (f"the mode is consistent with its {stage} stage (probability hotter "
+                f"{p_hot:.3g})")
+    return f"{head}; {temp}"
+
+
+def print_summary(result: FitResult) -> None:
+    print(summary_text(result))
+
+
+def fit_figures(result: FitResult) -> dict:
+    """Every figure of a fit: model-specific ones, the corner plot and the chain traces."""
+    from cavchar.plots.common import corner_plot, trace_plot
+
+    figures = {}
+    module_name = FIGURE_MODULES.get(result.kind.split("-")[0])
+    if module_name is not None:
+        try:
+            module = importlib.import_module(module_name)
+        except ModuleNotFoundError:
+            module = None
+        if module is not None and hasattr(module, "figures"):
+            figures.update(module.figures(result))
+    figures["corner"] = corner_plot(result)
+    figures["traces"] = trace_plot(result)
+    return figures
+
+
+def write_fit_outputs(result: FitResult, out_dir: str | os.PathLike, *, force: bool = False,
+                      figures: bool = True) -> list[Path]:
+    """Write ``result.json``, ``draws.csv`` (Parquet when pyarrow is there) and the figures
+    (PNG and PDF) into ``out_dir``.  Every target is checked first, so an existing file
+    without ``force`` stops the whole set before anything is written."""
+    import matplotlib.pyplot as plt
+
+    from cavchar.plots.common import save_figure
+    from cavchar.result import default_draws_name
+
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    draws_name = default_draws_name()
+    check_can_write(out / "result.json", force)
+    check_can_write(out / draws_name, force)
+    made = fit_figures(result) if figures else {}
+    try:
+        for name in made:
+            for fmt in ("png", "pdf"):
+                check_can_write(out / f"{name}.{fmt}", force)
+        written = [result.to_json(out / "result.json", force=force),
+                   result.write_draws(out / draws_name, force=force)]
+        for name, fig in made.items():
+            written += save_figure(fig, out / name, force=force)
+    finally:
+        for fig in made.values():
+            plt.close(fig)
+    return written
