@@ -1,0 +1,1 @@
+"""Figures (matplotlib imported lazily, inside the functions)."""
