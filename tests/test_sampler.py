@@ -181,3 +181,12 @@ def test_bad_settings_are_input_errors():
     with pytest.raises(InputError, match="too few"):
         sample_posterior(lambda x: np.zeros(x.shape[0]), three, [0, 0, 0],
                          SamplerSettings(n_walkers=4, quiet=True))
+
+
+def test_stuck_walkers_fail_the_checks():
+    from cavchar.inference.sampler import _check
+
+    chain = np.random.default_rng(1).standard_normal((400, 8, 2))
+    chain[:, 3, 1] = 0.25  # one walker never moves in parameter b
+    out = _check(chain, None, ["a", "b"], SamplerSettings(), final=True)
+    assert any("not moving" in text and "b" in text for text in out["failed"])

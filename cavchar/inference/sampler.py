@@ -234,7 +234,11 @@ def _make_moves(name: str):
 
 
 class _Progress:
-    """A text progress bar on stderr, redrawn at most every 0.25 s."""
+    """A text progress bar on stderr, redrawn at most every 0.25 s.
+
+    ``total`` starts at ``max_steps`` and is lowered after each check to the expected
+    length (burn-in + ``min_tau_multiple`` tau, or what ``target_ess`` needs).
+    """
 
     def __init__(self, total: int, quiet: bool) -> None:
         self.total, self.quiet = total, quiet
@@ -252,7 +256,7 @@ class _Progress:
         width = 24
         filled = int(width * min(step, self.total) / self.total)
         bar = "#" * filled + "-" * (width - filled)
-        sys.stderr.write(f"\rsampling [{bar}] {step}/{self.total} steps  "
+        sys.stderr.write(f"\rsampling [{bar}] {step}/~{self.total} steps  "
                          f"{now - self.start:5.1f} s  {self.note}   ")
         sys.stderr.flush()
         self.shown = True
@@ -271,7 +275,10 @@ def _check(chain: np.ndarray, tau_prev: np.ndarray | None, names: list[str],
     n_steps = chain.shape[0]
     tau_all = diag.integrated_time(chain)
     tau_ref = tau_all if tau_prev is None else tau_prev
-    burn = int(min(math.ceil(settings.burn_in_taus * np.nanmax(tau_ref)), n_steps // 2))
+    finite_ref = tau_ref[np.isfinite(tau_ref)]
+    burn = n_steps // 2
+    if finite_ref.size:
+        burn = int(min(math.ceil(settings.burn_in_taus * finite_ref.max()), burn))
     tau = diag.integrated_time(chain[burn:])
     kept = n_steps - burn
     failed: list[str] = []
@@ -394,8 +401,15 @@ def sample_posterior(
         final = n_steps >= settings.max_steps
         check = _check(sampler.get_chain(), tau_prev, names, settings, final=final)
         history.append({"steps": n_steps, "tau": _as_dict(names, check["tau"])})
-        tau_max = float(np.nanmax(check["tau"])) if np.isfinite(check["tau"]).any() else math.nan
-        progress.note = f"tau {tau_max:.1f}"
+        finite = check["tau"][np.isfinite(check["tau"])]
+        if finite.size:  # expected length: burn-in plus the required multiple of tau
+            expected = check["burn"] + settings.min_tau_multiple * finite.max()
+            if settings.target_ess is not None:
+                expected = max(expected, check["burn"]
+                               + settings.target_ess * finite.max() / settings.n_walkers)
+            progress.total = int(min(settings.max_steps,
+                                     max(expected, n_steps + settings.chunk)))
+            progress.note = f"tau {finite.max():.1f} steps"
         if not check["failed"]:
             break
         if np.isfinite(check["tau"]).all():
