@@ -80,7 +80,7 @@ def test_negative_control_misscaled_interval_is_detected(gauss_run):
 
 def test_stretch_move_also_recovers_gaussian():
     run = sample_posterior(gauss_loglike, GAUSS_SPECS, [0.5, 0.5],
-                           SamplerSettings(seed=5, quiet=True, moves="stretch"))
+                           SamplerSettings(seed=5, quiet=True, moves="stretch", n_walkers=16))
     assert run.converged
     law = stats.norm(MU[1], np.sqrt(COV[1, 1]))
     assert quantile_misses(run.draws[:, 1], law, min_ess(run, "b")) == []
@@ -108,14 +108,14 @@ def test_gamma_posterior_of_a_rate():
 
 
 def test_same_seed_gives_identical_draws():
-    settings = SamplerSettings(seed=123, max_steps=600, chunk=300, quiet=True,
+    settings = SamplerSettings(seed=123, max_steps=300, chunk=300, quiet=True,
                                allow_unconverged=True)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", ConvergenceWarning)
         one = sample_posterior(gauss_loglike, GAUSS_SPECS, [0.0, 0.0], settings)
         two = sample_posterior(gauss_loglike, GAUSS_SPECS, [0.0, 0.0], settings)
         other = sample_posterior(gauss_loglike, GAUSS_SPECS, [0.0, 0.0],
-                                 SamplerSettings(seed=124, max_steps=600, chunk=300,
+                                 SamplerSettings(seed=124, max_steps=300, chunk=300,
                                                  quiet=True, allow_unconverged=True))
     assert np.array_equal(one.draws, two.draws)
     assert np.array_equal(one.log_posterior, two.log_posterior)
