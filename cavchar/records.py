@@ -80,11 +80,16 @@ class TraceSegment(NamedTuple):
     sigma: np.ndarray | None
 
 
-def _readonly(array: np.ndarray) -> np.ndarray:
-    """A read-only copy (the caller's array is never frozen or aliased)."""
-    out = np.array(array, copy=True, order="C")
-    out.setflags(write=False)
-    return out
+def _readonly(array: np.ndarray, given: object = None) -> np.ndarray:
+    """``array`` made read-only, copied only if it is a writeable array of the caller
+    (``given``): the caller's arrays are never frozen, nor aliased while writeable.
+    Read-only input arrays are kept as they are (no copy)."""
+    array = np.ascontiguousarray(array)
+    if array.flags.writeable and isinstance(given, np.ndarray) and np.may_share_memory(
+            array, given):
+        array = array.copy()
+    array.setflags(write=False)
+    return array
 
 
 @dataclass(frozen=True, eq=False, repr=False)
@@ -96,7 +101,7 @@ class _Record:
         object.__setattr__(self, "metadata", meta)
         if self.lines is not None:
             lines = np.asarray(self.lines, dtype=np.int64)
-            object.__setattr__(self, "lines", _readonly(lines))
+            object.__setattr__(self, "lines", _readonly(lines, self.lines))
 
     def _error(self, message: str, row: int | None = None, hint: str | None = None) -> InputError:
         line = None
@@ -127,13 +132,14 @@ class _Record:
             array = raw.astype(np.int64)
         else:
             floats = self._float(name, raw, n)
-            whole = np.round(floats)
-            bad = floats != whole
+            big = np.abs(floats) >= 2.0**62  # beyond int64: astype would wrap
+            array = np.where(big, 0.0, floats).astype(np.int64) if big.any() else \
+                floats.astype(np.int64)
+            bad = (array != floats) | big
             if bad.any():
                 row = int(np.argmax(bad))
                 raise self._error(f"{name} {floats[row]} is not a whole number", row,
                                   hint=f"{name} must be whole numbers")
-            array = whole.astype(np.int64)
         if array.ndim != 1 or array.size != n:
             raise self._error(f"{name} must be a 1-D array of {n} values")
         if minimum is not None and (array < minimum).any():
@@ -265,7 +271,7 @@ class JumpRecord(_Record):
                               "one photon at a time", row, hint=_SAMPLED_HINT)
         for name, value in (("time", time), ("photons", photons), ("end_time", end),
                             ("segment", segment), ("segment_ids", ids), ("bounds", bounds)):
-            object.__setattr__(self, name, _readonly(value))
+            object.__setattr__(self, name, _readonly(value, getattr(self, name, None)))
 
     def __repr__(self) -> str:
         return (f"JumpRecord({self.time.size} rows, {self.n_jumps} jumps, "
@@ -350,7 +356,7 @@ class SampledRecord(_Record):
         self._increasing(time, bounds, "segment")
         for name, value in (("time", time), ("photons", photons), ("segment", segment),
                             ("segment_ids", ids), ("bounds", bounds)):
-            object.__setattr__(self, name, _readonly(value))
+            object.__setattr__(self, name, _readonly(value, getattr(self, name, None)))
 
     def __repr__(self) -> str:
         return (f"SampledRecord({self.time.size} samples, {self.segment_ids.size} segment(s), "
@@ -419,7 +425,8 @@ class ProbeRecord(_Record):
         self._increasing(time, bounds, "segment")
         for name, value in (("time", time), ("outcome", outcome), ("setting", setting),
                             ("segment", segment), ("segment_ids", ids), ("bounds", bounds)):
-            object.__setattr__(self, name, None if value is None else _readonly(value))
+            object.__setattr__(self, name, None if value is None
+                               else _readonly(value, getattr(self, name, None)))
 
     def __repr__(self) -> str:
         return (f"ProbeRecord({self.time.size} probes, {self.n_lost} lost, "
@@ -514,7 +521,8 @@ class RingdownTrace(_Record):
         self._increasing(time, bounds, "trace")
         for name, item in (("time", time), ("value", value), ("sigma", sigma),
                            ("trace", trace), ("trace_ids", ids), ("bounds", bounds)):
-            object.__setattr__(self, name, None if item is None else _readonly(item))
+            object.__setattr__(self, name, None if item is None
+                               else _readonly(item, getattr(self, name, None)))
 
     def _value(self, signal: str, value: ArrayLike, m: int) -> np.ndarray:
         if signal == "iq":

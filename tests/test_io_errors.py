@@ -48,6 +48,7 @@ TEXT_CASES = [
      ["starts again"]),
     ("header-only", SAMPLED, "time,photons\n", 1, ["no data rows"]),
     ("only-comments", SAMPLED, "# nothing here\n\n", None, ["no header"]),
+    ("empty-after-blank", SAMPLED, "time,photons\n0,1\n\n# note\n1,\n", 5, ["empty"]),
     ("lines-count-comments", SAMPLED, "# a\n\ntime,photons\n# b\n0,0\n\n1,x\n", 7, ["'x'"]),
     ("multi-photon-jump", JUMPS, "time,photons\n0,0\n1,2\n3,\n", 3,
      ["jumps from 0 to 2", "sampled"]),

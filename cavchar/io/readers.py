@@ -50,14 +50,19 @@ def _whole_ids(table: Table, name: str) -> np.ndarray | None:
         row = int(np.argmax(bad))
         raise table.error(f"{name} {values[row]} is not a whole number", row,
                           hint=f"{name} ids must be integers")
-    return values.astype(np.int64)
+    return _frozen(values.astype(np.int64))
+
+
+def _frozen(array: np.ndarray) -> np.ndarray:
+    array.setflags(write=False)
+    return array
 
 
 def _lines(table: Table) -> tuple[np.ndarray, str]:
     """Source line (text) or 1-based row (binary) of every table row."""
     if table.row_lines is not None:
-        return table.row_lines, "line"
-    return np.arange(1, table.n_rows + 1), "row"
+        return _frozen(table.row_lines), "line"
+    return _frozen(np.arange(1, table.n_rows + 1)), "row"
 
 
 def _where(table: Table) -> dict:
@@ -183,9 +188,12 @@ def read_jump_record(
         ends[j] = found[0][1]
     keep = ~is_end
     lines, kind = _lines(table)
-    if not keep.all():
-        time, photons, lines = time[keep], photons[keep], lines[keep]
-        segment = None if segment is None else segment[keep]
+    if seg_ids.size == 1 and is_end[-1]:  # one segment closed by its end row: views
+        time, photons, lines = time[:-1], photons[:-1], lines[:-1]
+        segment = None if segment is None else segment[:-1]
+    elif not keep.all():  # the end rows go; the copies are ours, so records need not copy
+        time, photons, lines = _frozen(time[keep]), _frozen(photons[keep]), _frozen(lines[keep])
+        segment = None if segment is None else _frozen(segment[keep])
     return JumpRecord(time, photons, ends, segment=segment, metadata=table.metadata,
                       source=table.path, lines=lines, line_kind=kind)
 
