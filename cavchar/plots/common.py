@@ -321,8 +321,11 @@ def trace_plot(
     return fig
 
 
-def figure_bytes(fig, fmt: str = "png", dpi: float | None = None) -> bytes:
-    """The figure encoded as ``png``, ``pdf`` or ``svg`` bytes."""
+def figure_bytes(fig, fmt: str = "png", dpi: float | None = None, tight: bool = True) -> bytes:
+    """The figure encoded as ``png``, ``pdf`` or ``svg`` bytes.
+
+    ``tight`` crops the canvas to the drawn artists (costs a second rendering pass).
+    """
     fmt = fmt.lower().lstrip(".")
     if fmt not in FIGURE_FORMATS:
         raise InputError(f"unknown figure format {fmt!r}", hint="use png, pdf or svg")
@@ -332,14 +335,15 @@ def figure_bytes(fig, fmt: str = "png", dpi: float | None = None) -> bytes:
         metadata["CreationDate"] = None  # reproducible bytes
     elif fmt == "svg":
         metadata["Date"] = None
-    fig.savefig(buffer, format=fmt, dpi=DEFAULT_DPI if dpi is None else dpi, bbox_inches="tight",
-                metadata=metadata, facecolor="white")
+    fig.savefig(buffer, format=fmt, dpi=DEFAULT_DPI if dpi is None else dpi,
+                bbox_inches="tight" if tight else None, metadata=metadata, facecolor="white")
     return buffer.getvalue()
 
 
-def figure_data_uri(fig, dpi: float | None = None) -> str:
+def figure_data_uri(fig, dpi: float | None = None, tight: bool = True) -> str:
     """``data:image/png;base64,...`` of the figure, for an ``<img src=...>``."""
-    return "data:image/png;base64," + base64.b64encode(figure_bytes(fig, "png", dpi)).decode()
+    data = figure_bytes(fig, "png", dpi, tight)
+    return "data:image/png;base64," + base64.b64encode(data).decode()
 
 
 def save_figure(

@@ -1,0 +1,268 @@
+"""The figures of a report: data with the posterior fit, model checks, corner and traces
+of each result, and the comparison of several results.
+
+Data figures of one fit kind come from its plotting module
+``cavchar.plots.<family>`` (``jumps``, ``probes``, ``ringdown``; the family is the
+part of ``result.kind`` before the first ``-``), first match wins:
+
+* ``report_figures(result, record=None) -> list[(title, caption, Figure)]``;
+* ``figures(result) -> dict[name, Figure]`` (the hook the fit commands use; titles
+  and captions from the module's ``FIGURE_CAPTIONS = {name: (title, caption)}``
+  when it has one);
+* otherwise the adapters below draw what they can with the module's plain
+  plotting functions.  The record is the one given to the report,
+or the input file named in the result's provenance when it is still there and
+its SHA-256 matches (so a figure never shows data other than the fitted ones).
+"""
+
+from __future__ import annotations
+
+import importlib
+import importlib.util
+import warnings
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from cavchar.errors import CavcharError, CavcharWarning
+
+__all__ = ["Figure", "kind_family", "load_input_record", "data_figures", "sampler_figures",
+           "comparison_figure"]
+
+
+@dataclass
+class Figure:
+    """A figure of the report: title, caption and the matplotlib figure."""
+
+    title: str
+    caption: str
+    figure: Any
+
+
+def kind_family(kind: str) -> str:
+    """``"jumps-exact"`` -> ``"jumps"``."""
+    return str(kind).split("-", 1)[0].split("_", 1)[0]
+
+
+def _provenance_input(result: Any) -> tuple[str | None, str | None]:
+    prov = getattr(result, "provenance", None) or {}
+    path, sha = prov.get("input_path"), prov.get("input_sha256")
+    if isinstance(path, list):
+        path = path[0] if len(path) == 1 else None
+        sha = sha[0] if isinstance(sha, list) and len(sha) == 1 else None
+    return path, sha
+
+
+def load_input_record(result: Any) -> tuple[Any | None, str]:
+    """The fitted record, re-read from the input file of the provenance.
+
+    Returns
+    -------
+    (record or None, note)
+        ``note`` says why there is no record (file gone, changed, unreadable).
+    """
+    from cavchar.provenance import sha256_of_file
+
+    path, sha = _provenance_input(result)
+    if not path:
+        return None, "the result names no single input file"
+    file = Path(path)
+    if not file.is_file():
+        return None, f"the input file {path} is not there any more"
+    try:
+        if sha and sha256_of_file(file) != sha:
+            return None, f"the input file {path} has changed since the fit (SHA-256 differs)"
+        return _read_record(result, file), ""
+    except CavcharError as exc:
+        return None, f"the input file could not be read again ({exc})"
+
+
+def _read_record(result: Any, file: Path) -> Any:
+    from cavchar.io import readers
+
+    kind = str(result.kind)
+    fit = (getattr(result, "settings", None) or {}).get("fit", {})
+    family = kind_family(kind)
+    if family == "jumps":
+        if "sampled" in kind:
+            return readers.read_sampled_record(file)
+        return readers.read_jump_record(file, end_time=fit.get("end_time"))
+    if family == "probes":
+        return readers.read_probe_record(file)
+    if family == "ringdown":
+        return readers.read_ringdown(file, signal=fit.get("signal"))
+    raise CavcharError(f"no reader known for fit kind {kind!r}")
+
+
+def _provider(family: str):
+    name = f"cavchar.plots.{family}"
+    try:
+        if importlib.util.find_spec(name) is None:
+            return None, None
+    except (ImportError, ValueError):
+        return None, None
+    module = importlib.import_module(name)
+    return module, getattr(module, "report_figures", None)
+
+
+#: titles and captions of figures that plotting modules return from ``figures(result)``
+KNOWN_CAPTIONS: dict[str, tuple[str, str]] = {
+    "record": ("The record and the fitted photon-number law",
+               "Left: photon number against time (an excerpt of the record). Right: fraction "
+               "of the time spent in each photon number, with the Bose–Einstein law of the "
+               "fitted n_th (median and 95% band)."),
+    "dwell_check": ("Dwell-time check",
+                    "Fraction of complete dwells in each photon number longer than a given "
+                    "time, against the exponential law of the fit (dashed: median; band: 95%). "
+                    "The damped-mode model predicts a straight line on this log scale."),
+}
+
+
+def _column(result: Any, name: str) -> np.ndarray | None:
+    samples = getattr(result, "samples", None)
+    if samples is None or name not in samples.columns:
+        return None
+    return np.asarray(samples[name], dtype=float)
+
+
+def _jump_figures(module, result: Any, record: Any) -> list[Figure]:
+    from cavchar.models.jumps import dwell_times
+    from cavchar.records import JumpRecord
+
+    out: list[Figure] = []
+    life, nth = _column(result, "lifetime"), _column(result, "n_thermal")
+    if not isinstance(record, JumpRecord) or life is None or nth is None:
+        return out
+    durations, states, complete = dwell_times(record.time, record.photons, record.end_time,
+                                              record.segment)
+    occupation = np.bincount(states, weights=durations) / durations.sum()
+    segment = record.segments()[0]
+    pick = np.linspace(0, nth.size - 1, min(nth.size, 2000)).astype(int)
+    if hasattr(module, "plot_record_and_occupation"):
+        fig = module.plot_record_and_occupation(segment.time, segment.photons, segment.end_time,
+                                                nth[pick], occupation)
+        out.append(Figure("The record and the fitted photon-number law",
+                          "Left: photon number against time (first segment, at most 2,000 "
+                          "jumps). Right: fraction of the time spent in each photon number, "
+                          "with the Bose–Einstein law of the fitted n_th (median and 95% band).",
+                          fig))
+    if hasattr(module, "plot_dwell_check"):
+        fig = module.plot_dwell_check(durations, states, complete, life[pick], nth[pick])
+        out.append(Figure("Dwell-time check",
+                          "Fraction of complete dwells in each photon number longer than a "
+                          "given time, against the exponential law of the fit (dashed: median; "
+                          "band: 95%). A straight line on this log scale is what the "
+                          "damped-mode model predicts.", fig))
+    return out
+
+
+def data_figures(result: Any, record: Any | None = None) -> tuple[list[Figure], list[str]]:
+    """Figures of the data with the posterior fit and of the model checks.
+
+    Returns
+    -------
+    (figures, notes)
+        ``notes`` say in words what could not be drawn and why.
+    """
+    family = kind_family(result.kind)
+    notes: list[str] = []
+    module, provider = _provider(family)
+    if module is None:
+        return [], [f"no plotting module for fits of kind {result.kind!r} is installed"]
+
+    def need_record() -> Any:
+        nonlocal record
+        if record is None:
+            record, why = load_input_record(result)
+            if record is None and why:
+                notes.append(f"The data panels are left out: {why}.")
+        return record
+
+    try:
+        figures: list[Figure] = []
+        if provider is not None:
+            made = provider(result, need_record())
+            figures = [f if isinstance(f, Figure) else Figure(*f) for f in made]
+        elif hasattr(module, "figures"):
+            captions = {**KNOWN_CAPTIONS, **getattr(module, "FIGURE_CAPTIONS", {})}
+            for name, fig in module.figures(result).items():
+                title, caption = captions.get(name, (name.replace("_", " ").capitalize(), ""))
+                figures.append(Figure(title, caption, fig))
+        if not figures and family == "jumps":
+            figures = _jump_figures(module, result, need_record())
+    except CavcharError as exc:
+        warnings.warn(f"report: the data figures of a {result.kind} fit failed ({exc})",
+                      CavcharWarning, stacklevel=2)
+        return [], [f"The data figures could not be drawn: {exc}."]
+    if not figures and not notes:
+        notes.append(f"The plotting module of {family} fits offers no figure for the report yet.")
+    return figures, notes
+
+
+def sampler_figures(result: Any, truths: dict[str, float] | None = None) -> list[Figure]:
+    """Corner plot and chain traces of one result."""
+    from cavchar.plots.common import corner_plot, result_trace, trace_plot
+
+    out = [Figure("Posterior draws (corner plot)",
+                  "Marginal posterior of each fitted parameter (diagonal; dashed lines at the "
+                  "16th, 50th and 84th percentiles) and of each pair (contours holding about "
+                  "39% and 86% of the draws)." + (" Red lines: the true values of the "
+                                                 "simulation." if truths else ""),
+                  corner_plot(result, truths=truths))]
+    stored = result_trace(result) is not None
+    out.append(Figure("Chain traces",
+                      "Position of the sampler's walkers step by step (grey), their median "
+                      "(dashed) and the discarded burn-in (shaded)." if stored else
+                      "The result file keeps no walker chain, so the kept draws are shown in "
+                      "their stored order; a steady band without drifts is what to look for.",
+                      trace_plot(result)))
+    return out
+
+
+_COMPARE = (("lifetime", "lifetime T_c", "time"),
+            ("n_thermal", "thermal photons n_th", "dimensionless"),
+            ("effective_temperature", "effective temperature", "temperature"))
+
+
+def comparison_figure(results: Sequence[Any], labels: Sequence[str]):
+    """Lifetime, n_th and effective temperature of several results side by side.
+
+    Each result is one column: point at the median, thick bar the 68 % and thin
+    bar the 95 % interval; each result keeps its own marker so the figure reads
+    in greyscale.
+    """
+    from cavchar.plots.common import display_unit
+    from cavchar.plots.style import apply_style, new_figure, series
+
+    panels = [(name, title, dim) for name, title, dim in _COMPARE
+              if any(_column(r, name) is not None for r in results)]
+    if not panels:
+        return None
+    with apply_style():
+        fig = new_figure((max(4.5, 1.1 * len(results) + 2.5), 2.1 * len(panels) + 0.7))
+        axes = np.atleast_1d(fig.subplots(len(panels), 1, sharex=True))
+        for ax, (name, title, dim) in zip(axes, panels, strict=True):
+            columns = [_column(r, name) for r in results]
+            pooled = np.concatenate([c for c in columns if c is not None])
+            factor, unit = display_unit(pooled, dim)
+            for i, values in enumerate(columns):
+                if values is None:
+                    continue
+                lo95, lo68, med, hi68, hi95 = np.quantile(
+                    values * factor, [0.025, 0.15865, 0.5, 0.84135, 0.975])
+                style = series(i, line=False)
+                ax.plot([i, i], [lo95, hi95], color=style["color"], lw=1.0, solid_capstyle="butt")
+                ax.plot([i, i], [lo68, hi68], color=style["color"], lw=4.0, solid_capstyle="butt")
+                ax.plot([i], [med], linestyle="none", ms=6, **style)
+            if name == "n_thermal" and pooled.min() > 0 and pooled.max() / pooled.min() > 30:
+                ax.set_yscale("log")
+            ax.set_ylabel(f"{title} [{unit}]" if unit else title, fontsize=8)
+        axes[-1].set_xticks(np.arange(len(results)), list(labels), rotation=20, ha="right")
+        axes[-1].set_xlim(-0.6, len(results) - 0.4)
+        axes[0].set_title("results side by side (thick bar 68%, thin bar 95%)")
+        fig.align_ylabels(axes)
+        fig.tight_layout()
+    return fig

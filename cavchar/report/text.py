@@ -1,0 +1,230 @@
+"""Words and numbers of the report: intervals in readable units, the Planck check in
+plain sentences, small HTML tables.
+
+Numbers: a median and its interval share one display unit (an SI prefix chosen
+from the median by :func:`cavchar.units.format_quantity`, or a power of ten for
+large or small dimensionless numbers such as Q); decimals follow the Particle
+Data Group rounding rule applied to the smaller half-width of the 68 %
+interval (leading digits 100-354: two significant digits, 355-949: one,
+950-999: round up to two; PDG, Review of Particle Physics, "Rounding", from
+memory), the same rule :meth:`cavchar.result.FitResult.one_line` uses.
+"""
+
+from __future__ import annotations
+
+import html
+import math
+from collections.abc import Iterable, Mapping, Sequence
+from typing import Any
+
+__all__ = ["esc", "display_scale", "decimals_for", "format_number", "format_interval_row",
+           "format_quantity_text", "planck_sentences", "probability_text", "table_html",
+           "prior_text"]
+
+_POWERS = {"-": "⁻", "0": "⁰", "1": "¹", "2": "²", "3": "³", "4": "⁴", "5": "⁵", "6": "⁶",
+           "7": "⁷", "8": "⁸", "9": "⁹"}
+
+
+def esc(value: Any) -> str:
+    """HTML-escaped text of any value."""
+    return html.escape("" if value is None else str(value), quote=True)
+
+
+def display_scale(median: float, dimension: str) -> tuple[float, str]:
+    """(factor, unit text): SI value / factor is shown followed by the unit text.
+
+    Dimensionless numbers outside [1e-3, 1e4) get a power of ten (``"× 10⁹"``);
+    others an SI prefix (``"ms"``, ``"mK"``, ``"kHz"``).
+    """
+    from cavchar.units import format_quantity, parse_quantity
+
+    if not math.isfinite(median):
+        return 1.0, ""
+    if dimension in ("dimensionless", "phase", "rate"):
+        unit = {"phase": "rad", "rate": "1/s"}.get(dimension, "")
+        magnitude = abs(median)
+        if magnitude == 0 or 1e-3 <= magnitude < 1e4:
+            return 1.0, unit
+        exponent = math.floor(math.log10(magnitude))
+        power = "".join(_POWERS[c] for c in str(exponent))
+        return 10.0**exponent, f"× 10{power}" + (f" {unit}" if unit else "")
+    text = format_quantity(median, dimension)
+    unit = text.split(" ", 1)[1] if " " in text else ""
+    factor = parse_quantity("1" + unit, dimension) if unit else 1.0
+    return factor, unit
+
+
+def decimals_for(error: float) -> int:
+    """Decimal places that show ``error`` (> 0) by the PDG rule (may be negative)."""
+    if not (math.isfinite(error) and error > 0):
+        return 3
+    exponent = math.floor(math.log10(error))
+    lead = int(round(error / 10 ** (exponent - 2), 6))
+    if lead >= 950:
+        exponent, sig = exponent + 1, 2
+    elif lead >= 355:
+        sig = 1
+    else:
+        sig = 2
+    return sig - 1 - exponent
+
+
+def format_number(value: float, decimals: int) -> str:
+    """``value`` with ``decimals`` places (negative: rounded to tens, hundreds ...)."""
+    if value is None or not math.isfinite(value):
+        return "–"
+    if decimals < 0:
+        step = 10.0**-decimals
+        return f"{round(value / step) * step:.0f}"
+    return f"{value:.{decimals}f}"
+
+
+def format_interval_row(row: Mapping[str, float], dimension: str) -> dict[str, str]:
+    """Median, 68 % and 95 % intervals of one summary row as display strings.
+
+    Parameters
+    ----------
+    row
+        Mapping with ``median``, ``lo68``, ``hi68``, ``lo95``, ``hi95`` in SI units.
+    dimension
+        Dimension name of :mod:`cavchar.units`.
+
+    Returns
+    -------
+    dict
+        ``median``, ``interval68`` ("a – b"), ``interval95``, ``errors`` ("+x/−y"),
+        ``unit`` (display unit text).
+    """
+    med = float(row["median"])
+    factor, unit = display_scale(med, dimension)
+    m, lo68, hi68 = med / factor, row["lo68"] / factor, row["hi68"] / factor
+    lo95, hi95 = row["lo95"] / factor, row["hi95"] / factor
+    plus, minus = hi68 - m, m - lo68
+    d = decimals_for(min(plus, minus) if min(plus, minus) > 0 else max(plus, minus))
+    f = format_number
+    return {
+        "median": f(m, d),
+        "interval68": f"{f(lo68, d)} – {f(hi68, d)}",
+        "interval95": f"{f(lo95, d)} – {f(hi95, d)}",
+        "errors": f"+{f(plus, d)}/−{f(minus, d)}",
+        "unit": unit,
+    }
+
+
+def format_quantity_text(value: float, dimension: str, digits: int = 3) -> str:
+    """One value with its unit (``"20 mK"``, ``"2.31 × 10⁹"``)."""
+    if value is None or not math.isfinite(value):
+        return "–"
+    factor, unit = display_scale(value, dimension)
+    text = f"{value / factor:.{digits}g}"
+    return f"{text} {unit}".strip()
+
+
+def probability_text(p: float, n_draws: int | None = None) -> str:
+    """A posterior probability from draws, honest at the ends (``"above 0.9997"``)."""
+    if p is None or not math.isfinite(p):
+        return "unknown"
+    if n_draws:
+        if p >= 1.0:
+            return f"above {1 - 1 / n_draws:.4f} (every one of {n_draws} draws)"
+        if p <= 0.0:
+            return f"below {1 / n_draws:.1g} (none of {n_draws} draws)"
+    if 0.001 <= p <= 0.999:
+        return f"{p:.3f}"
+    return f"{p:.2g}"
+
+
+def _interval_words(block: Mapping[str, float], dimension: str) -> str:
+    row = format_interval_row(block, dimension)
+    unit = f" {row['unit']}" if row["unit"] else ""
+    return f"{row['median']} ({row['errors']}){unit}"
+
+
+def planck_sentences(check: Mapping[str, Any]) -> list[str]:
+    """The Planck check of a result (``checks["planck"]``) as plain sentences."""
+    t_stage = format_quantity_text(check.get("stage_temperature_k", math.nan), "temperature")
+    p = check.get("prob_hotter_than_stage")
+    n = check.get("n_draws")
+    decide = float(check.get("decision_probability", 0.95))
+    n_stage = check.get("stage_occupation", math.nan)
+    out = []
+    teff = check.get("effective_temperature_k")
+    if check.get("piles_up_at_zero") and "n_thermal_upper95" in check:
+        t_up = format_quantity_text(check.get("effective_temperature_upper95_k"), "temperature")
+        n_up = format_quantity_text(check["n_thermal_upper95"], "dimensionless", 2)
+        temp_words = f"effective temperature below {t_up} (n_th < {n_up}, 95% upper limits)"
+    elif teff:
+        temp_words = f"effective temperature {_interval_words(teff, 'temperature')}"
+    else:
+        temp_words = ""
+    tail = f"; {temp_words}" if temp_words else ""
+    if p is None:
+        return ["No Planck comparison is available for this fit."]
+    if p >= decide:
+        out.append(f"The mode is hotter than its {t_stage} stage with probability "
+                   f"{probability_text(p, n)}{tail}.")
+    elif p <= 1 - decide:
+        out.append(f"The mode is not hotter than its {t_stage} stage: the probability that it "
+                   f"is hotter is only {probability_text(p, n)}{tail}.")
+    else:
+        out.append(f"These data cannot tell whether the mode is hotter than its {t_stage} stage "
+                   f"(probability {probability_text(p, n)}){tail}.")
+    n_th = check.get("n_thermal")
+    if n_th:
+        excess = check.get("excess_photons")
+        words = (f"Thermal photon number {_interval_words(n_th, 'dimensionless')} against a "
+                 f"Planck occupation of {format_quantity_text(n_stage, 'dimensionless')} at the "
+                 "stage temperature")
+        if excess:
+            words += f"; excess {_interval_words(excess, 'dimensionless')}"
+        out.append(words + " (68% credible intervals).")
+    return out
+
+
+def prior_text(prior: Mapping[str, Any] | None, dimension: str) -> str:
+    """A prior's description from its ``to_dict()`` form, bounds in readable units."""
+    if not prior:
+        return "–"
+    family = str(prior.get("family", "?"))
+
+    def q(key: str) -> str:
+        value = prior.get(key)
+        return "–" if value is None else format_quantity_text(float(value), dimension, 3)
+
+    if family in ("loguniform", "log-uniform"):
+        return f"log-uniform on [{q('low')}, {q('high')}]"
+    if family == "uniform":
+        return f"uniform on [{q('low')}, {q('high')}]"
+    if family == "normal":
+        text = f"normal, mean {q('mean')}, sd {q('sd')}"
+        if prior.get("low") is not None or prior.get("high") is not None:
+            text += f", cut to [{q('low')}, {q('high')}]"
+        return text
+    if family in ("lognormal", "log-normal"):
+        return f"log-normal, median {q('median')}, width {prior.get('sigma_log', '?')} in ln"
+    return esc(family)
+
+
+def table_html(header: Sequence[str], rows: Iterable[Sequence[Any]], *,
+               css_class: str = "grid", caption: str | None = None,
+               raw: bool = False, numeric_from: int = 1) -> str:
+    """A small HTML table; cells are escaped unless ``raw`` (then they are HTML already).
+
+    Columns from ``numeric_from`` on are right-aligned (class ``num``).
+    """
+    cell = (lambda v: "" if v is None else str(v)) if raw else esc
+    parts = [f'<table class="{esc(css_class)}">']
+    if caption:
+        parts.append(f"<caption>{esc(caption)}</caption>")
+    parts.append("<thead><tr>" + "".join(
+        f'<th scope="col"{" class=num" if i >= numeric_from else ""}>{esc(h)}</th>'
+        for i, h in enumerate(header)) + "</tr></thead><tbody>")
+    for row in rows:
+        cells = []
+        for i, value in enumerate(row):
+            tag = "th scope=\"row\"" if i == 0 else "td"
+            klass = ' class="num"' if i >= numeric_from else ""
+            cells.append(f"<{tag}{klass}>{cell(value)}</{tag.split()[0]}>")
+        parts.append("<tr>" + "".join(cells) + "</tr>")
+    parts.append("</tbody></table>")
+    return "".join(parts)

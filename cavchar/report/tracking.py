@@ -1,0 +1,170 @@
+"""Report sections for the cooldown log's outputs: trend, qualification, thermal budget.
+
+Each takes the object returned by :mod:`cavchar.tracking` (``Trend``,
+``Qualification``, ``Budget``) and gives a :class:`~cavchar.report.sections.Section`
+with a table and, where :mod:`cavchar.plots.trend` offers one, a figure.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+from collections.abc import Callable
+from typing import Any
+
+from cavchar.report.figures import Figure
+from cavchar.report.sections import Section
+from cavchar.report.text import esc, format_interval_row, format_quantity_text, table_html
+
+__all__ = ["section_for", "trend_section", "qualification_section", "budget_section"]
+
+FigureHtml = Callable[[Figure], str]
+
+
+def _trend_plots():
+    if importlib.util.find_spec("cavchar.plots.trend") is None:
+        return None
+    import cavchar.plots.trend as module
+
+    return module
+
+
+def _interval_cell(stats: Any, dimension: str) -> str:
+    if stats is None:
+        return "–"
+    row = {"median": stats.median, "lo68": stats.low_68, "hi68": stats.high_68,
+           "lo95": stats.low_95, "hi95": stats.high_95}
+    text = format_interval_row(row, dimension)
+    unit = f" {text['unit']}" if text["unit"] else ""
+    return f"{text['median']}{unit} [{text['interval95']}]"
+
+
+def trend_section(trend: Any, figure_html: FigureHtml) -> Section:
+    """Lifetime, n_th and effective temperature per cooldown, with drop probabilities."""
+    ref = trend.reference
+    drop = f"P(T_c fell by > {100 * trend.fraction:g}% vs {ref})" if ref else "drop probability"
+    header = ["cooldown", "date", "fit kind", "stage temperature", "T_c [95%]", "n_th [95%]",
+              "T_eff [95%]", drop]
+    rows = []
+    for row in trend.rows:
+        p = row.drop_probability
+        p_text = "reference" if row.fit_id == trend.reference_fit else (
+            "–" if p is None else f"{p:.3f} ± {row.drop_mc_error:.3f}")
+        rows.append([row.cooldown, row.start_date or "–", row.kind,
+                     format_quantity_text(row.stage_temp_k, "temperature")
+                     if row.stage_temp_k else "–",
+                     _interval_cell(row.stats.get("lifetime"), "time"),
+                     _interval_cell(row.stats.get("n_thermal"), "dimensionless"),
+                     _interval_cell(row.stats.get("effective_temperature"), "temperature"),
+                     p_text])
+    freq = format_quantity_text(trend.freq_hz, "frequency", 5) if trend.freq_hz else "unknown"
+    parts = [f"<p>Cavity <b>{esc(trend.cavity)}</b> (mode frequency {esc(freq)}), "
+             f"{esc(trend.selection)}. Intervals are equal-tailed 95% credible intervals of the "
+             "draws stored in the log; the drop probability compares each cooldown's lifetime "
+             "draws with the reference's (± its Monte Carlo error).</p>",
+             table_html(header, rows, css_class="grid summary")]
+    parts += [f'<p class="note">{esc(n)}</p>' for n in trend.notes]
+    plots = _trend_plots()
+    if plots is not None and hasattr(plots, "plot_trend"):
+        parts.append(figure_html(Figure(
+            f"Trend of cavity {trend.cavity} across cooldowns",
+            "Median with 68% (thick) and 95% (thin) intervals per cooldown; the lifetime points "
+            "carry the probability that the lifetime fell against the reference.",
+            plots.plot_trend(trend))))
+    return Section(f"Trend across cooldowns: {trend.cavity}", "".join(parts), "trend")
+
+
+_BADGE = {"PASS": "pass", "FAIL": "fail", "UNDECIDED": "undecided"}
+
+
+def _badge(status: str) -> str:
+    return f'<span class="badge {_BADGE.get(status, "warn")}">{esc(status)}</span>'
+
+
+def qualification_section(qualification: Any, figure_html: FigureHtml) -> Section:
+    """PASS / FAIL / UNDECIDED per requirement of a spec."""
+    from cavchar.tracking.qualify import QUANTITIES
+
+    spec = qualification.spec
+    rows = []
+    for v in qualification.verdicts:
+        dim = QUANTITIES[v.requirement.quantity][0]
+        estimate = "–"
+        if v.median is not None:
+            estimate = (f"{format_quantity_text(v.median, dim, 3)} "
+                        f"[{format_quantity_text(v.low_95, dim, 3)} – "
+                        f"{format_quantity_text(v.high_95, dim, 3)}]")
+        p = "–" if v.probability is None else f"{v.probability:.3f} ± {v.mc_error:.3f}"
+        evidence = v.evidence.description if v.evidence is not None else "none"
+        rows.append([esc(v.requirement.describe()), _badge(v.status), esc(p), esc(estimate),
+                     esc(evidence), esc(v.hint or "")])
+    title = spec.title or "Qualification"
+    parts = [f'<p class="statement">{_badge(qualification.status)} {esc(title)}'
+             + (f" (spec file {esc(spec.path)})" if spec.path else "") + "</p>",
+             "<p>A requirement passes when the posterior probability that it is met reaches "
+             "its credibility, fails when the probability that it is not met does, and is "
+             "undecided otherwise.</p>",
+             table_html(["requirement", "verdict", "P(met)", "median [95%]", "evidence", "note"],
+                        rows, css_class="grid", raw=True, numeric_from=9)]
+    if spec.notes:
+        parts.append(f'<p class="note">{esc(spec.notes)}</p>')
+    return Section(f"Qualification: {title}", "".join(parts), "qualification")
+
+
+def budget_section(budget: Any, figure_html: FigureHtml) -> Section:
+    """The thermal budget: n_th against stage temperature and the stated model."""
+    points = [[p["label"], format_quantity_text(p["stage_temp_k"], "temperature"),
+               format_quantity_text(p["planck_occupation"], "dimensionless", 3),
+               _interval_cell(_Stats(p, "n_thermal_"), "dimensionless"), p["approximation"]]
+              for p in budget.points]
+    params = []
+    for fit in (budget.excess, budget.two_bath):
+        if fit is None:
+            continue
+        for name, stats in fit.parameters.items():
+            dim = "temperature" if "temperature" in name else "dimensionless"
+            params.append([f"{fit.model}: {name.replace('_', ' ')}",
+                           _interval_cell(stats, dim), "yes" if fit.converged else "no"])
+    freq = format_quantity_text(budget.freq_hz, "frequency", 5)
+    limit = (" The excess reaches down to its prior floor: only its upper limit means "
+             "something." if budget.excess_is_upper_limit else "")
+    parts = [f'<p class="statement">Stated model: <b>{esc(budget.model)}</b>. '
+             f"{esc(budget.reason)}.{esc(limit)}</p>",
+             f"<p>Mode frequency {esc(freq)}; each point is one fit's posterior of n_th.</p>",
+             table_html(["measurement", "stage temperature", "Planck occupation",
+                         "n_th [95%]", "likelihood from"], points, css_class="grid"),
+             table_html(["budget parameter", "median [95%]", "converged"], params,
+                        css_class="grid")]
+    parts += [f'<p class="note">{esc(n)}</p>' for n in budget.notes]
+    plots = _trend_plots()
+    if plots is not None and hasattr(plots, "plot_budget"):
+        parts.append(figure_html(Figure(
+            "Thermal photons against stage temperature",
+            "Measured n_th (68% and 95% intervals), the Planck occupation of the stage and the "
+            "stated budget model (median and 95% band).", plots.plot_budget(budget))))
+    return Section("Thermal budget", "".join(parts), "budget")
+
+
+class _Stats:
+    """Interval fields from a budget point's flat ``n_thermal_*`` keys."""
+
+    def __init__(self, point: dict, prefix: str) -> None:
+        self.median = point[prefix + "median"]
+        self.low_68, self.high_68 = point[prefix + "low_68"], point[prefix + "high_68"]
+        self.low_95, self.high_95 = point[prefix + "low_95"], point[prefix + "high_95"]
+
+
+def section_for(obj: Any, figure_html: FigureHtml) -> Section:
+    """The report section of a Trend, Qualification or Budget object."""
+    name = type(obj).__name__
+    if name == "Trend":
+        return trend_section(obj, figure_html)
+    if name == "Qualification":
+        return qualification_section(obj, figure_html)
+    if name == "Budget":
+        return budget_section(obj, figure_html)
+    if isinstance(obj, tuple) and len(obj) == 2 and all(isinstance(x, str) for x in obj):
+        return Section(obj[0], obj[1])
+    from cavchar.errors import InputError
+
+    raise InputError(f"the report cannot show a {name} as a section",
+                     hint="give a Section, a Trend, a Qualification or a Budget")
