@@ -1,0 +1,157 @@
+"""``cavchar budget``: thermal budget of a mode from n_th at several stage temperatures."""
+
+from __future__ import annotations
+
+import argparse
+import json
+from pathlib import Path
+
+from cavchar.cli.common import HelpFormatter, add_output_options, quantity
+from cavchar.cli.log import add_log_file_option
+from cavchar.errors import InputError
+
+EXAMPLES = """examples:
+  cavchar budget --cavity mirrors-B                       # every logged fit with n_th
+  cavchar budget --cavity mirrors-B --cooldown CD12 -o budget/
+  cavchar budget --result a.json --stage-temp 20mK --result b.json --stage-temp 80mK \\
+                 --result c.json --stage-temp 150mK --freq 6.8GHz
+
+Models: two-bath n_th = (1-f) n(nu, T_stage) + f n(nu, T_hot), and stage occupation
+plus a constant excess n_th = n(nu, T_stage) + n_x.  The two-bath model is stated when
+T_hot is identifiable (95% interval within a factor 10, clear of its prior bounds);
+otherwise the excess model is, and the output says so.  Each fit's n_th posterior serves
+as its likelihood (normal or kernel-density approximation in ln n_th, see --approximation).
+With -o DIR: budget.json and budget.png.
+"""
+
+
+def register(subparsers: argparse._SubParsersAction) -> None:
+    parser = subparsers.add_parser(
+        "budget", help="thermal budget: hot because the stage is warm, or because something "
+        "hot leaks in?",
+        description="Fit n_th measured at several stage temperatures [K] with a two-bath "
+        "model (or the stage occupation plus a constant excess when the hot bath's "
+        "temperature is not identifiable), with credible intervals by MCMC.",
+        epilog=EXAMPLES, formatter_class=HelpFormatter)
+    add_log_file_option(parser)
+    parser.add_argument("--cavity", default=None, help="cavity name (data from the log)")
+    parser.add_argument("--cooldown", action="append", default=None,
+                        help="only fits of this cooldown (repeatable)")
+    parser.add_argument("--kind", default=None, help="only fits of this kind")
+    parser.add_argument("--result", action="append", default=None, metavar="RESULT.json",
+                        help="result file instead of the log (repeatable)")
+    parser.add_argument("--stage-temp", type=quantity("temperature"), action="append",
+                        default=None, help="stage temperature of each --result, in order, "
+                        "e.g. 20mK (default: the result's own setting)")
+    parser.add_argument("--freq", type=quantity("frequency"), default=None,
+                        help="mode frequency, e.g. 6.8GHz (default: from the data)")
+    parser.add_argument("--approximation", choices=("auto", "lognormal", "kde"),
+                        default="auto", help="how each n_th posterior becomes a likelihood")
+    parser.add_argument("--t-hot-max", type=quantity("temperature"), default=300.0,
+                        help="upper bound of the prior on T_hot, e.g. 300K")
+    parser.add_argument("--seed", type=int, default=1, help="random seed of the sampler")
+    parser.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    add_output_options(parser)
+    parser.set_defaults(func=handle)
+
+
+def _points_from_results(args: argparse.Namespace):
+    from cavchar.tracking.budget import BudgetPoint, n_thermal_prior
+    from cavchar.tracking.records import read_result_file
+
+    temps = args.stage_temp or []
+    if temps and len(temps) != len(args.result):
+        raise InputError(f"{len(args.result)} --result but {len(temps)} --stage-temp",
+                         hint="give one --stage-temp per --result, or none")
+    points, freqs = [], set()
+    for i, path in enumerate(args.result):
+        entry = read_result_file(path)
+        if "n_thermal" not in entry.draws:
+            raise InputError("the result has no n_th draws", path=path)
+        temp = temps[i] if temps else entry.stage_temp_k
+        if temp is None:
+            raise InputError("the result has no stage temperature", path=path,
+                             hint="give --stage-temp for each --result")
+        if entry.freq_hz is not None:
+            freqs.add(entry.freq_hz)
+        points.append(BudgetPoint(str(path), float(temp), entry.draws["n_thermal"],
+                                  *n_thermal_prior(entry.parameters)))
+    return points, (max(freqs) if freqs else None)
+
+
+def print_budget(budget) -> None:
+    from cavchar.units import format_quantity
+
+    print(f"thermal budget at {format_quantity(budget.freq_hz, 'frequency', 6)}")
+    print(f"  {'data':<28} {'stage':>9} {'n_th median [95%]':<28} {'Planck n(stage)':>15}")
+    for p in budget.points:
+        print(f"  {p['label']:<28} {format_quantity(p['stage_temp_k'], 'temperature'):>9} "
+              f"{p['n_thermal_median']:.3g} [{p['n_thermal_low_95']:.3g}, "
+              f"{p['n_thermal_high_95']:.3g}]".ljust(70) + f"{p['planck_occupation']:>11.3g}")
+    print(f"stated model: {budget.model}")
+    print(f"  {budget.reason}")
+    x = budget.excess.parameters["excess_photons"]
+    if budget.excess_is_upper_limit:
+        print(f"  excess photons n_x < {x.high_95:.3g} (95% upper limit; no excess detected)")
+    else:
+        print(f"  excess photons n_x = {x.median:.3g}  68%: [{x.low_68:.3g}, {x.high_68:.3g}]  "
+              f"95%: [{x.low_95:.3g}, {x.high_95:.3g}]")
+    if budget.two_bath is not None:
+        tb = budget.two_bath.parameters
+        lead = "" if budget.model == budget.two_bath.model else "  (not identified) "
+        t, f, s = tb["hot_temperature"], tb["hot_fraction"], tb["excess_share_at_coldest"]
+        print(f"  two-bath{lead}: T_hot = {format_quantity(t.median, 'temperature')} 95%: "
+              f"[{format_quantity(t.low_95, 'temperature')}, "
+              f"{format_quantity(t.high_95, 'temperature')}]; f = {f.median:.3g} 95%: "
+              f"[{f.low_95:.3g}, {f.high_95:.3g}]")
+        print(f"  share of n_th from the hot side at the coldest stage: {s.median:.3g} "
+              f"95%: [{s.low_95:.3g}, {s.high_95:.3g}]")
+    for note in budget.notes:
+        print(f"note: {note}")
+
+
+def handle(args: argparse.Namespace) -> int:
+    from cavchar.tracking.budget import points_from_log, thermal_budget
+
+    if (args.result is None) == (args.cavity is None):
+        raise InputError("give either --cavity (data from the log) or --result files")
+    out = None if args.out is None else Path(args.out)
+    if out is not None and out.exists() and not out.is_dir():
+        raise InputError("--out must be a folder", path=out)
+    if args.result is not None:
+        points, freq = _points_from_results(args)
+    else:
+        if args.stage_temp:
+            raise InputError("--stage-temp goes with --result; logged fits carry their own")
+        from cavchar.tracking.store import open_log
+
+        with open_log(args.log_file, create=False) as log:
+            points, freq = points_from_log(log, args.cavity, cooldowns=args.cooldown,
+                                           kind=args.kind)
+    freq = args.freq or freq
+    if freq is None:
+        raise InputError("the mode frequency is unknown", hint="give --freq, e.g. 6.8GHz")
+    if out is not None:
+        from cavchar.io.atomic import check_can_write
+
+        for name in ("budget.json", "budget.png"):
+            check_can_write(out / name, args.force)
+    budget = thermal_budget(points, freq, approximation=args.approximation,
+                            t_hot_max_k=args.t_hot_max, seed=args.seed)
+    if args.json:
+        print(json.dumps(budget.to_dict(), indent=1))
+    else:
+        print_budget(budget)
+    if out is not None:
+        import io
+
+        from cavchar.io.atomic import write_bytes_atomic, write_text_atomic
+        from cavchar.plots.trend import plot_budget
+
+        write_text_atomic(out / "budget.json", json.dumps(budget.to_dict(), indent=1),
+                          force=args.force)
+        buffer = io.BytesIO()
+        plot_budget(budget).savefig(buffer, format="png", dpi=120)
+        write_bytes_atomic(out / "budget.png", buffer.getvalue(), force=args.force)
+        print(f"wrote {out / 'budget.json'} and {out / 'budget.png'}")
+    return 0

@@ -1,0 +1,297 @@
+"""``cavchar log``: the cooldown log (cavities, cooldowns, fits with their posterior draws).
+
+Also :func:`log_fit_result` (re-exported from :mod:`cavchar.tracking.store`)
+for the ``--log`` option of the fit commands, and :func:`add_log_file_option`
+shared by ``log``, ``trend``, ``qualify`` and ``budget``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+from datetime import date
+
+from cavchar.cli.common import HelpFormatter, quantity
+from cavchar.errors import InputError
+from cavchar.tracking.store import LOG_ENV, log_fit_result, open_log
+
+__all__ = ["register", "add_log_file_option", "log_fit_result"]
+
+EXAMPLES = """examples:
+  cavchar log cavity mirrors-B --freq 6.8GHz --notes "second mirror set"
+  cavchar log cooldown CD12 --start 2026-03-01 --stage-temp 12mK --stage still=0.9K
+  cavchar log add results/fit.json --cavity mirrors-B --cooldown CD12
+  cavchar log add fit.json --cavity new-cavity --cooldown CD13 --create
+  cavchar log list --cavity mirrors-B
+  cavchar log show 7
+  cavchar log export all.json          # or all.csv; re-import with `cavchar log import`
+  cavchar log delete 7 --confirm
+
+The log is an SQLite file: --log-file, else $CAVCHAR_LOG, else ./cavchar.sqlite.
+"""
+
+
+def add_log_file_option(parser: argparse.ArgumentParser) -> None:
+    """``--log-file PATH`` (default: $CAVCHAR_LOG or ./cavchar.sqlite)."""
+    parser.add_argument("--log-file", metavar="PATH", default=None,
+                        help=f"cooldown log file (default: ${LOG_ENV}, else ./cavchar.sqlite)")
+
+
+def register(subparsers: argparse._SubParsersAction) -> None:
+    parser = subparsers.add_parser(
+        "log", help="cooldown log: cavities, cooldowns and logged fits",
+        description="Keep fits of each cavity across cooldowns in an SQLite log, with a "
+        "compact copy of the posterior draws of lifetime [s], n_th and effective "
+        "temperature [K] for later comparisons.",
+        epilog=EXAMPLES, formatter_class=HelpFormatter)
+    actions = parser.add_subparsers(dest="log_action", metavar="ACTION")
+
+    def sub(name: str, help_text: str) -> argparse.ArgumentParser:
+        p = actions.add_parser(name, help=help_text, description=help_text,
+                               epilog=EXAMPLES, formatter_class=HelpFormatter)
+        add_log_file_option(p)
+        return p
+
+    p = sub("add", "log fit result files (JSON written by a fit) for a cavity and cooldown")
+    p.add_argument("results", nargs="+", metavar="RESULT.json", help="result file(s)")
+    p.add_argument("--cavity", required=True, help="cavity name")
+    p.add_argument("--cooldown", required=True, help="cooldown label")
+    p.add_argument("--stage-temp", type=quantity("temperature"), default=None,
+                   help="stage temperature of the measurement, e.g. 20mK (default: the fit's "
+                   "setting, else the cooldown's base temperature)")
+    p.add_argument("--create", action="store_true",
+                   help="create the cavity and cooldown if they are not in the log yet")
+    p.add_argument("--keep-duplicate", action="store_true",
+                   help="log a fit again even if the same input and settings are logged")
+    p.set_defaults(func=_add)
+
+    p = sub("cavity", "register a cavity (or show the registered ones without NAME)")
+    p.add_argument("name", nargs="?", help="cavity name")
+    p.add_argument("--freq", type=quantity("frequency"), default=None,
+                   help="mode frequency, e.g. 6.8GHz")
+    p.add_argument("--notes", default="", help="free text")
+    p.set_defaults(func=_cavity)
+
+    p = sub("cooldown", "register a cooldown (or show the registered ones without LABEL)")
+    p.add_argument("label", nargs="?", help="cooldown label")
+    p.add_argument("--start", default=None, help="start date, YYYY-MM-DD")
+    p.add_argument("--stage-temp", type=quantity("temperature"), default=None,
+                   help="base stage temperature, e.g. 12mK")
+    p.add_argument("--stage", action="append", default=[], metavar="NAME=TEMP",
+                   help="another stage temperature, e.g. still=0.9K (repeatable)")
+    p.add_argument("--notes", default="", help="free text")
+    p.set_defaults(func=_cooldown)
+
+    p = sub("list", "list logged fits with lifetime and n_th medians")
+    p.add_argument("--cavity", default=None, help="only this cavity")
+    p.add_argument("--cooldown", default=None, help="only this cooldown")
+    p.add_argument("--kind", default=None, help="only fits of this kind")
+    p.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    p.set_defaults(func=_list)
+
+    p = sub("show", "show one logged fit: settings, provenance and intervals")
+    p.add_argument("fit_id", type=int, metavar="FIT_ID")
+    p.add_argument("--json", action="store_true", help="print JSON")
+    p.set_defaults(func=_show)
+
+    p = sub("export", "export the log (or one cavity) to JSON or CSV (re-importable)")
+    p.add_argument("file", metavar="FILE", help="output file, .json or .csv")
+    p.add_argument("--format", choices=("json", "csv"), default=None,
+                   help="file format (default: from the suffix)")
+    p.add_argument("--cavity", default=None, help="only this cavity's fits")
+    p.add_argument("--force", action="store_true", help="overwrite an existing file")
+    p.set_defaults(func=_export)
+
+    p = sub("import", "add the contents of an export file (JSON or CSV) to the log")
+    p.add_argument("file", metavar="FILE")
+    p.set_defaults(func=_import)
+
+    p = sub("delete", "delete logged fits (needs --confirm)")
+    p.add_argument("fit_ids", type=int, nargs="+", metavar="FIT_ID")
+    p.add_argument("--confirm", action="store_true",
+                   help="really delete (without it nothing is deleted)")
+    p.set_defaults(func=_delete)
+
+    p = sub("check", "check the log file's integrity (SQLite integrity check)")
+    p.set_defaults(func=_check)
+
+    parser.set_defaults(func=lambda args: (parser.print_help(), 2)[1])
+
+
+def _add(args: argparse.Namespace) -> int:
+    from cavchar.tracking.records import read_result_file
+
+    entries = [read_result_file(path) for path in args.results]  # read all before writing
+    with open_log(args.log_file) as log:
+        for path, entry in zip(args.results, entries, strict=True):
+            fit_id = log.add_fit(entry, args.cavity, args.cooldown, stage_temp_k=args.stage_temp,
+                                 create=args.create,
+                                 on_duplicate="keep" if args.keep_duplicate else "error")
+            print(f"logged {path} as fit {fit_id} (cavity {args.cavity}, cooldown "
+                  f"{args.cooldown}) in {log.path}")
+    return 0
+
+
+def _cavity(args: argparse.Namespace) -> int:
+    from cavchar.units import format_quantity
+
+    with open_log(args.log_file, create=args.name is not None) as log:
+        if args.name is not None:
+            cav = log.add_cavity(args.name, freq_hz=args.freq, notes=args.notes)
+            print(f"added cavity {cav.name} to {log.path}")
+            return 0
+        for cav in log.cavities():
+            freq = "-" if cav.freq_hz is None else format_quantity(cav.freq_hz, "frequency", 7)
+            print(f"{cav.name:<20} {freq:>14}  {cav.notes}")
+    return 0
+
+
+def _cooldown(args: argparse.Namespace) -> int:
+    from cavchar.units import format_quantity, parse_quantity
+
+    if args.start is not None:
+        try:
+            date.fromisoformat(args.start)
+        except ValueError:
+            raise InputError(f"--start {args.start!r} is not a date",
+                             hint="write YYYY-MM-DD") from None
+    stages = {}
+    for text in args.stage:
+        name, sep, value = text.partition("=")
+        if not sep or not name.strip():
+            raise InputError(f"--stage {text!r} must read NAME=TEMP", hint="e.g. still=0.9K")
+        stages[name.strip()] = parse_quantity(value, "temperature")
+    with open_log(args.log_file, create=args.label is not None) as log:
+        if args.label is not None:
+            cool = log.add_cooldown(args.label, start_date=args.start,
+                                    stage_temp_k=args.stage_temp, stage_temps=stages,
+                                    notes=args.notes)
+            print(f"added cooldown {cool.label} to {log.path}")
+            return 0
+        for cool in log.cooldowns():
+            base = ("-" if cool.stage_temp_k is None
+                    else format_quantity(cool.stage_temp_k, "temperature"))
+            others = ", ".join(f"{k} {format_quantity(v, 'temperature')}"
+                               for k, v in cool.stage_temps.items())
+            print(f"{cool.label:<14} {cool.start_date or '-':<11} {base:>9}  {others}  "
+                  f"{cool.notes}")
+    return 0
+
+
+def _medians(log, fits) -> dict[int, dict[str, float]]:
+    import numpy as np
+
+    from cavchar.tracking.trend import fit_draws
+
+    return {i: {k: float(np.median(v)) for k, v in d.items()}
+            for i, d in fit_draws(log, fits).items()}
+
+
+def _list(args: argparse.Namespace) -> int:
+    from cavchar.units import format_quantity
+
+    with open_log(args.log_file, create=False) as log:
+        fits = log.fits(cavity=args.cavity, cooldown=args.cooldown, kind=args.kind)
+        medians = _medians(log, fits)
+    if args.json:
+        print(json.dumps([{"id": f.id, "cavity": f.cavity, "cooldown": f.cooldown,
+                           "kind": f.kind, "logged_at": f.logged_at,
+                           "stage_temp_k": f.stage_temp_k,
+                           "medians": medians[f.id]} for f in fits], indent=1))
+        return 0
+    if not fits:
+        print("no fits logged" + (" for this selection" if args.cavity or args.cooldown
+                                  or args.kind else ""))
+        return 0
+    print(f"{'id':>5}  {'cavity':<16} {'cooldown':<12} {'kind':<10} {'lifetime':>10} "
+          f"{'n_th':>10} {'T_eff':>9} {'stage':>9}  logged")
+    for f in fits:
+        m = medians[f.id]
+        life = format_quantity(m["lifetime"], "time") if "lifetime" in m else "-"
+        nth = f"{m['n_thermal']:.3g}" if "n_thermal" in m else "-"
+        teff = (format_quantity(m["effective_temperature"], "temperature")
+                if "effective_temperature" in m else "-")
+        stage = "-" if f.stage_temp_k is None else format_quantity(f.stage_temp_k, "temperature")
+        print(f"{f.id:>5}  {f.cavity:<16} {f.cooldown:<12} {f.kind:<10} {life:>10} {nth:>10} "
+              f"{teff:>9} {stage:>9}  {f.logged_at}")
+    print("(medians of the stored posterior draws)")
+    return 0
+
+
+def _show(args: argparse.Namespace) -> int:
+    from cavchar.tracking.trend import TREND_QUANTITIES, fit_draws, interval
+    from cavchar.units import format_quantity
+
+    with open_log(args.log_file, create=False) as log:
+        fit = log.fit(args.fit_id)
+        draws = fit_draws(log, [fit])[fit.id]
+    stats = {k: interval(v) for k, v in draws.items()}
+    if args.json:
+        from dataclasses import asdict
+
+        print(json.dumps({**asdict(fit), "intervals": {k: v.as_dict() for k, v in stats.items()}},
+                         indent=1, sort_keys=True))
+        return 0
+    freq = "-" if fit.freq_hz is None else format_quantity(fit.freq_hz, "frequency", 7)
+    stage = "-" if fit.stage_temp_k is None else format_quantity(fit.stage_temp_k, "temperature")
+    print(f"fit {fit.id}: {fit.kind} (model {fit.model or '-'}) of cavity {fit.cavity}, "
+          f"cooldown {fit.cooldown}")
+    print(f"  mode frequency {freq}, stage temperature {stage}")
+    print(f"  fitted {fit.fitted_at or '-'}, logged {fit.logged_at}, cavchar "
+          f"{fit.tool_version or '-'}, seed {fit.seed}")
+    print(f"  input SHA-256 {fit.input_sha256 or '-'}")
+    print(f"  source {fit.source or '-'}")
+    print(f"  draws stored {next(iter(stats.values())).n_draws} of {fit.n_draws_total}")
+    for name, (_, _, dim) in TREND_QUANTITIES.items():
+        if name in stats:
+            s = stats[name]
+            print(f"  {name:<22} {format_quantity(s.median, dim)}  68%: "
+                  f"[{format_quantity(s.low_68, dim)}, {format_quantity(s.high_68, dim)}]  "
+                  f"95%: [{format_quantity(s.low_95, dim)}, {format_quantity(s.high_95, dim)}]")
+    print("  settings: " + json.dumps(fit.settings, sort_keys=True))
+    return 0
+
+
+def _export(args: argparse.Namespace) -> int:
+    from cavchar.tracking.exchange import export_log
+
+    with open_log(args.log_file, create=False) as log:
+        if args.cavity is not None:
+            log.cavity(args.cavity)
+        count = export_log(log, args.file, fmt=args.format, cavity=args.cavity,
+                           force=args.force)
+    print(f"exported {count} fit(s) to {args.file}")
+    return 0
+
+
+def _import(args: argparse.Namespace) -> int:
+    from cavchar.tracking.exchange import import_log
+
+    with open_log(args.log_file) as log:
+        report = import_log(log, args.file)
+    print(f"imported {report.fits_added} fit(s), skipped {report.fits_skipped} already logged; "
+          f"new cavities {report.cavities_added}, new cooldowns {report.cooldowns_added}")
+    return 0
+
+
+def _delete(args: argparse.Namespace) -> int:
+    with open_log(args.log_file, create=False) as log:
+        fits = [log.fit(i) for i in args.fit_ids]
+        if not args.confirm:
+            listed = ", ".join(f"{f.id} ({f.cavity}, {f.cooldown}, {f.kind})" for f in fits)
+            raise InputError(f"nothing deleted: would delete fit(s) {listed}",
+                             hint="add --confirm to delete them")
+        count = log.delete_fits(args.fit_ids)
+    print(f"deleted {count} fit(s)")
+    return 0
+
+
+def _check(args: argparse.Namespace) -> int:
+    with open_log(args.log_file, create=False) as log:
+        result = log.integrity_check()
+        count = len(log.fits())
+    if result != "ok":
+        raise InputError(f"the log file is damaged: {result}", path=log.path,
+                         hint="restore it from a backup or an export")
+    print(f"{log.path}: ok ({count} fit(s))")
+    return 0

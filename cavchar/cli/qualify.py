@@ -1,0 +1,101 @@
+"""``cavchar qualify``: PASS / FAIL / UNDECIDED of a cavity against a spec file (TOML)."""
+
+from __future__ import annotations
+
+import argparse
+import json
+
+from cavchar.cli.common import HelpFormatter, quantity
+from cavchar.cli.log import add_log_file_option
+from cavchar.errors import InputError
+
+EXAMPLES = """spec file (TOML), one table per requirement:
+  title = "mirror set acceptance"
+  [lifetime]
+  at_least = "2 ms"
+  credibility = 0.95
+  [thermal_photons]
+  at_most = 0.01
+  credibility = 0.9
+  [effective_temperature]
+  at_most = "60 mK"
+  credibility = 0.9
+quantities: lifetime [s], thermal_photons, effective_temperature [K], quality_factor,
+linewidth [Hz]; bounds: at_least or at_most (number in SI units or text with a unit).
+
+examples:
+  cavchar qualify spec.toml --cavity mirrors-B --cooldown CD12
+  cavchar qualify spec.toml --result fit.json --freq 6.8GHz
+  cavchar qualify spec.toml --cavity mirrors-B --fit 7 --json
+
+PASS if P(met) >= credibility, FAIL if P(not met) >= credibility, else UNDECIDED.
+Exit code 0 all PASS, 4 any FAIL, 5 otherwise any UNDECIDED (2 bad input).
+"""
+
+
+def register(subparsers: argparse._SubParsersAction) -> None:
+    parser = subparsers.add_parser(
+        "qualify", help="check a cavity against a spec: PASS / FAIL / UNDECIDED (exit 0/4/5)",
+        description="Judge each requirement of a spec file from the posterior draws of a "
+        "logged fit (or a result file): the posterior probability that it is met, against "
+        "its credibility level.",
+        epilog=EXAMPLES, formatter_class=HelpFormatter)
+    parser.add_argument("spec", metavar="SPEC.toml", help="spec file")
+    add_log_file_option(parser)
+    parser.add_argument("--cavity", default=None, help="cavity name (data from the log)")
+    parser.add_argument("--cooldown", default=None,
+                        help="only fits of this cooldown (default: all of the cavity's fits)")
+    parser.add_argument("--fit", type=int, default=None, metavar="FIT_ID",
+                        help="use only this logged fit")
+    parser.add_argument("--result", default=None, metavar="RESULT.json",
+                        help="judge a result file instead of the log")
+    parser.add_argument("--freq", type=quantity("frequency"), default=None,
+                        help="mode frequency for Q and T_eff if the data lack it, e.g. 6.8GHz")
+    parser.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    parser.set_defaults(func=handle)
+
+
+def print_qualification(report) -> None:
+    from cavchar.tracking.qualify import QUANTITIES
+    from cavchar.units import format_quantity
+
+    title = f" {report.spec.title!r}" if report.spec.title else ""
+    print(f"spec{title} ({report.spec.path}): {report.status}")
+    for v in report.verdicts:
+        dim = QUANTITIES[v.requirement.quantity][0]
+        print(f"  {v.status:<9} {v.requirement.describe()}")
+        if v.probability is not None:
+            print(f"            P(met) = {v.probability:.3f} (+- {v.mc_error:.3f} Monte Carlo); "
+                  f"median {format_quantity(v.median, dim)}, 95%: "
+                  f"[{format_quantity(v.low_95, dim)}, {format_quantity(v.high_95, dim)}]")
+        if v.evidence is not None:
+            print(f"            data: {v.evidence.description}")
+        if v.hint:
+            print(f"            {v.hint}")
+
+
+def handle(args: argparse.Namespace) -> int:
+    from cavchar.tracking.qualify import evidence_from_entry, evidence_from_log, qualify, read_spec
+
+    spec = read_spec(args.spec)
+    if (args.result is None) == (args.cavity is None):
+        raise InputError("give either --cavity (data from the log) or --result (a result file)")
+    if args.result is not None:
+        if args.cooldown or args.fit is not None:
+            raise InputError("--cooldown and --fit select logged fits; they do not go with "
+                             "--result")
+        from cavchar.tracking.records import read_result_file
+
+        evidence = evidence_from_entry(read_result_file(args.result), freq_hz=args.freq)
+    else:
+        from cavchar.tracking.store import open_log
+
+        with open_log(args.log_file, create=False) as log:
+            evidence = evidence_from_log(log, args.cavity, cooldown=args.cooldown,
+                                         fit_id=args.fit, freq_hz=args.freq)
+    report = qualify(spec, evidence)
+    if args.json:
+        print(json.dumps(report.to_dict(), indent=1))
+    else:
+        print_qualification(report)
+    return report.exit_code

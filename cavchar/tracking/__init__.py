@@ -1,0 +1,42 @@
+"""Memory of cavchar: the cooldown log and the comparisons built on it.
+
+* :mod:`cavchar.tracking.store`   SQLite log of cavities, cooldowns and fits
+  (with a compact copy of the posterior draws of the key parameters);
+* :mod:`cavchar.tracking.trend`   lifetime, n_th and effective temperature per
+  cooldown, and the probability that the lifetime fell;
+* :mod:`cavchar.tracking.qualify` PASS / FAIL / UNDECIDED against a TOML spec;
+* :mod:`cavchar.tracking.budget`  thermal budget across stage temperatures.
+
+Names are imported lazily so that ``import cavchar.tracking`` stays light.
+"""
+
+from __future__ import annotations
+
+import importlib
+
+_PUBLIC = {
+    "CooldownLog": "cavchar.tracking.store",
+    "FitEntry": "cavchar.tracking.store",
+    "open_log": "cavchar.tracking.store",
+    "resolve_log_path": "cavchar.tracking.store",
+    "entry_from_result": "cavchar.tracking.store",
+    "read_result_file": "cavchar.tracking.store",
+    "log_fit_result": "cavchar.tracking.store",
+    "cooldown_trend": "cavchar.tracking.trend",
+    "drop_probability": "cavchar.tracking.trend",
+    "read_spec": "cavchar.tracking.qualify",
+    "qualify": "cavchar.tracking.qualify",
+    "thermal_budget": "cavchar.tracking.budget",
+}
+
+__all__ = list(_PUBLIC)
+
+
+def __getattr__(name: str):
+    if name in _PUBLIC:
+        return getattr(importlib.import_module(_PUBLIC[name]), name)
+    raise AttributeError(f"module 'cavchar.tracking' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted(__all__)

@@ -1,0 +1,371 @@
+"""Qualification of a cavity against a spec: PASS, FAIL or UNDECIDED per requirement.
+
+Spec file (TOML, read with :mod:`tomllib`): one table per quantity, each with
+exactly one bound and a credibility level::
+
+    title = "Mirror set acceptance"        # optional
+    notes = "free text"                    # optional
+
+    [lifetime]                 # energy lifetime T_c
+    at_least = "2 ms"          # number (SI) or text with a unit
+    credibility = 0.95         # or "95%"
+
+    [thermal_photons]          # n_th
+    at_most = 0.01
+    credibility = 0.9
+
+Quantities: ``lifetime`` [s], ``thermal_photons`` [-], ``effective_temperature``
+[K], ``quality_factor`` [-] (``Q = 2 pi nu T_c``), ``linewidth`` [Hz]
+(``1 / (2 pi T_c)``); Q and linewidth need the mode frequency.
+
+Decision, with p = P(requirement met | data) from the stored posterior draws
+and credibility c: PASS if p >= c, FAIL if 1 - p >= c, UNDECIDED otherwise.
+Exit codes: 0 all PASS, 4 any FAIL, 5 otherwise any UNDECIDED.
+
+More data.  For an UNDECIDED requirement, let m and s be the mean and sd of
+ln(quantity) over the draws and L = ln(threshold).  If the estimate stays
+where it is and the posterior sd shrinks as 1/sqrt(amount of data), the
+requirement is decided at credibility c once |m - L| / (s / sqrt(k)) >= z_c,
+z_c = Phi^-1(c), i.e. with k = (z_c s / |m - L|)^2 times the present data.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import re
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from cavchar.errors import InputError
+
+__all__ = ["QUANTITIES", "Requirement", "Spec", "Evidence", "Verdict", "Qualification",
+           "read_spec", "parse_spec", "qualify", "EXIT_PASS", "EXIT_FAIL", "EXIT_UNDECIDED"]
+
+EXIT_PASS, EXIT_FAIL, EXIT_UNDECIDED = 0, 4, 5
+
+#: spec key -> (dimension for cavchar.units, unit symbol, what it is)
+QUANTITIES = {
+    "lifetime": ("time", "s", "energy lifetime T_c"),
+    "thermal_photons": ("dimensionless", "", "thermal photon number n_th"),
+    "effective_temperature": ("temperature", "K", "effective mode temperature"),
+    "quality_factor": ("dimensionless", "", "quality factor Q = 2 pi nu T_c"),
+    "linewidth": ("frequency", "Hz", "linewidth (FWHM) 1/(2 pi T_c)"),
+}
+_TOP_KEYS = {"title", "notes"}
+_REQUIREMENT_KEYS = {"at_least", "at_most", "credibility", "notes"}
+
+
+@dataclass(frozen=True)
+class Requirement:
+    """One requirement: ``quantity`` at least / at most ``threshold`` (SI) at ``credibility``."""
+
+    quantity: str
+    bound: str          # "at_least" or "at_most"
+    threshold: float
+    credibility: float
+    notes: str = ""
+
+    def describe(self) -> str:
+        from cavchar.units import format_quantity
+
+        dim = QUANTITIES[self.quantity][0]
+        word = ">=" if self.bound == "at_least" else "<="
+        return (f"{self.quantity} {word} {format_quantity(self.threshold, dim)} "
+                f"at {100 * self.credibility:g}% credibility")
+
+
+@dataclass(frozen=True)
+class Spec:
+    """A parsed spec file."""
+
+    title: str
+    requirements: tuple[Requirement, ...]
+    path: str | None = None
+    notes: str = ""
+
+
+def _line_of(text: str, section: str | None, key: str) -> int | None:
+    """1-based line of ``key = ...`` (inside ``[section]`` if given) in TOML text."""
+    current = None
+    for number, line in enumerate(text.splitlines(), start=1):
+        stripped = line.strip()
+        header = re.match(r"^\[\s*([^\]]+?)\s*\]", stripped)
+        if header:
+            current = header.group(1).strip().strip('"')
+            if section is None and current == key:
+                return number
+            continue
+        if re.match(rf"^\"?{re.escape(key)}\"?\s*=", stripped) and current == section:
+            return number
+    return None
+
+
+def _credibility(value: object, where: str, path: str | None, line: int | None) -> float:
+    text = str(value).strip()
+    try:
+        level = float(text[:-1]) / 100 if text.endswith("%") else float(text)
+    except ValueError:
+        level = math.nan
+    if isinstance(value, bool) or not 0.5 < level < 1.0:
+        raise InputError(f"{where}: credibility must be a probability between 0.5 and 1 "
+                         f"(e.g. 0.95 or \"95%\"), not {value!r}", path=path, line=line)
+    return level
+
+
+def parse_spec(text: str, path: str | os.PathLike | None = None) -> Spec:
+    """Parse spec text (TOML); InputError naming the key and line for any mistake."""
+    from cavchar.units import parse_quantity
+
+    where = None if path is None else str(path)
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        match = re.search(r"line (\d+)", str(exc))
+        raise InputError(f"not valid TOML ({exc})", path=where,
+                         line=int(match.group(1)) if match else None) from None
+    requirements = []
+    for key, value in data.items():
+        if key in _TOP_KEYS:
+            if not isinstance(value, str):
+                raise InputError(f"'{key}' must be text", path=where,
+                                 line=_line_of(text, None, key))
+            continue
+        if key not in QUANTITIES:
+            raise InputError(f"unknown key '{key}'", path=where,
+                             line=_line_of(text, None, key),
+                             hint="known: " + ", ".join([*QUANTITIES, *sorted(_TOP_KEYS)]))
+        if not isinstance(value, dict):
+            raise InputError(f"'{key}' must be a table [{key}] with a bound and a credibility",
+                             path=where, line=_line_of(text, None, key))
+        for inner in value:
+            if inner not in _REQUIREMENT_KEYS:
+                raise InputError(f"unknown key '{inner}' in [{key}]", path=where,
+                                 line=_line_of(text, key, inner),
+                                 hint="known: " + ", ".join(sorted(_REQUIREMENT_KEYS)))
+        bounds = [b for b in ("at_least", "at_most") if b in value]
+        if len(bounds) != 1:
+            raise InputError(f"[{key}] needs exactly one of 'at_least' or 'at_most'",
+                             path=where, line=_line_of(text, None, key))
+        bound = bounds[0]
+        if "credibility" not in value:
+            raise InputError(f"[{key}] has no 'credibility' (e.g. credibility = 0.95)",
+                             path=where, line=_line_of(text, None, key))
+        line = _line_of(text, key, bound)
+        raw = value[bound]
+        if isinstance(raw, bool) or not isinstance(raw, int | float | str):
+            raise InputError(f"[{key}] {bound} must be a number or text with a unit", path=where,
+                             line=line)
+        try:
+            threshold = parse_quantity(raw, QUANTITIES[key][0])
+        except InputError as exc:
+            raise InputError(f"[{key}] {bound}: {exc.message}", path=where, line=line,
+                             hint=exc.hint) from None
+        if not (math.isfinite(threshold) and threshold > 0):
+            raise InputError(f"[{key}] {bound} must be a positive value", path=where, line=line)
+        level = _credibility(value["credibility"], f"[{key}]", where,
+                             _line_of(text, key, "credibility"))
+        requirements.append(Requirement(key, bound, threshold, level,
+                                        str(value.get("notes", ""))))
+    if not requirements:
+        raise InputError("the spec has no requirement", path=where,
+                         hint="add e.g. [lifetime] at_least = \"1 ms\" credibility = 0.95")
+    return Spec(title=str(data.get("title", "")), requirements=tuple(requirements),
+                path=where, notes=str(data.get("notes", "")))
+
+
+def read_spec(path: str | os.PathLike) -> Spec:
+    """Read a spec file (TOML, UTF-8)."""
+    file = Path(path)
+    try:
+        text = file.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read the spec file ({exc})", path=file) from None
+    return parse_spec(text, file)
+
+
+@dataclass(frozen=True)
+class Evidence:
+    """One fit's stored draws and what it is (the data a verdict rests on)."""
+
+    description: str
+    draws: dict
+    freq_hz: float | None = None
+    fit_id: int | None = None
+    kind: str | None = None
+    input_sha256: str | None = None
+    n_draws_total: int | None = None
+
+    def quantity(self, name: str) -> np.ndarray | None:
+        """Draws of a spec quantity in SI units, or None if this fit cannot give them."""
+        lifetime = self.draws.get("lifetime")
+        if name == "lifetime":
+            return lifetime
+        if name == "thermal_photons":
+            return self.draws.get("n_thermal")
+        if name == "effective_temperature":
+            if "effective_temperature" in self.draws:
+                return self.draws["effective_temperature"]
+            if "n_thermal" in self.draws and self.freq_hz:
+                from cavchar.thermal import effective_temperature
+
+                return effective_temperature(self.freq_hz, self.draws["n_thermal"])
+            return None
+        if lifetime is None:
+            return None
+        if name == "linewidth":
+            return 1.0 / (2.0 * math.pi * lifetime)
+        if name == "quality_factor" and self.freq_hz:
+            return 2.0 * math.pi * self.freq_hz * lifetime
+        return None
+
+
+@dataclass(frozen=True)
+class Verdict:
+    """Outcome of one requirement."""
+
+    requirement: Requirement
+    status: str                     # "PASS", "FAIL" or "UNDECIDED"
+    probability: float | None       # P(requirement met | data)
+    mc_error: float | None
+    median: float | None
+    low_95: float | None
+    high_95: float | None
+    evidence: Evidence | None
+    data_factor: float | None       # times the present data that would decide it
+    hint: str
+
+
+@dataclass(frozen=True)
+class Qualification:
+    """All verdicts of a spec; ``exit_code`` is 0 / 4 / 5."""
+
+    spec: Spec
+    verdicts: tuple[Verdict, ...]
+
+    @property
+    def status(self) -> str:
+        states = {v.status for v in self.verdicts}
+        return "FAIL" if "FAIL" in states else "UNDECIDED" if "UNDECIDED" in states else "PASS"
+
+    @property
+    def exit_code(self) -> int:
+        return {"PASS": EXIT_PASS, "FAIL": EXIT_FAIL, "UNDECIDED": EXIT_UNDECIDED}[self.status]
+
+    def to_dict(self) -> dict:
+        return {"title": self.spec.title, "spec": self.spec.path, "status": self.status,
+                "exit_code": self.exit_code, "requirements": [_verdict_dict(v)
+                                                              for v in self.verdicts]}
+
+
+def _verdict_dict(v: Verdict) -> dict:
+    r, e = v.requirement, v.evidence
+    return {"quantity": r.quantity, "bound": r.bound, "threshold_si": r.threshold,
+            "unit": QUANTITIES[r.quantity][1], "credibility": r.credibility,
+            "status": v.status, "probability_met": v.probability, "mc_error": v.mc_error,
+            "median": v.median, "low_95": v.low_95, "high_95": v.high_95,
+            "data_factor": v.data_factor, "hint": v.hint,
+            "evidence": None if e is None else {
+                "description": e.description, "fit_id": e.fit_id, "kind": e.kind,
+                "input_sha256": e.input_sha256, "n_draws_stored": _n(e),
+                "n_draws_total": e.n_draws_total}}
+
+
+def _n(e: Evidence) -> int:
+    return max((len(v) for v in e.draws.values()), default=0)
+
+
+def _more_data(values: np.ndarray, req: Requirement) -> tuple[float | None, str]:
+    from scipy.special import ndtri
+
+    logs = np.log(values[values > 0])
+    if logs.size < 2:
+        return None, "the draws do not allow a forecast"
+    m, s = float(logs.mean()), float(logs.std(ddof=1))
+    gap = abs(m - math.log(req.threshold))
+    z = float(ndtri(req.credibility))
+    if gap == 0 or (z * s / gap) ** 2 > 1e4:
+        return None, "the estimate sits on the threshold: more data of the same kind will " \
+                     "hardly decide it"
+    k = max((z * s / gap) ** 2, 1.0)
+    met = (m > math.log(req.threshold)) == (req.bound == "at_least")
+    return k, (f"about {k:.2g} times the present data would decide it "
+               f"({'PASS' if met else 'FAIL'} if the estimate stays where it is; "
+               "posterior sd scaling as 1/sqrt(data))")
+
+
+def judge(req: Requirement, evidence: Evidence | None) -> Verdict:
+    """The verdict on one requirement from one fit's draws."""
+    values = None if evidence is None else evidence.quantity(req.quantity)
+    if values is None or len(values) == 0:
+        need = ("the mode frequency" if evidence is not None and "lifetime" in evidence.draws
+                else "a fit that measures it")
+        return Verdict(req, "UNDECIDED", None, None, None, None, None, evidence, None,
+                       f"no data on {QUANTITIES[req.quantity][2]}: needs {need}")
+    values = np.asarray(values, dtype=float)
+    met = values >= req.threshold if req.bound == "at_least" else values <= req.threshold
+    p = float(met.mean())
+    error = math.sqrt(p * (1.0 - p) / values.size)  # binomial, for independent draws
+    low, median, high = (float(q) for q in np.quantile(values, [0.025, 0.5, 0.975]))
+    if p >= req.credibility:
+        status, factor, hint = "PASS", None, ""
+    elif 1.0 - p >= req.credibility:
+        status, factor, hint = "FAIL", None, ""
+    else:
+        status = "UNDECIDED"
+        factor, hint = _more_data(values, req)
+    return Verdict(req, status, p, error, median, low, high, evidence, factor, hint)
+
+
+def qualify(spec: Spec, evidence: Evidence | dict[str, Evidence]) -> Qualification:
+    """Judge every requirement of ``spec``.
+
+    ``evidence`` is one fit for all requirements, or a mapping quantity ->
+    Evidence (e.g. the lifetime from a ring-down and n_th from a jump record).
+    """
+    verdicts = []
+    for req in spec.requirements:
+        chosen = evidence.get(req.quantity) if isinstance(evidence, dict) else evidence
+        verdicts.append(judge(req, chosen))
+    return Qualification(spec, tuple(verdicts))
+
+
+def evidence_from_log(log, cavity: str, cooldown: str | None = None,
+                      fit_id: int | None = None, freq_hz: float | None = None,
+                      quantities: tuple[str, ...] = tuple(QUANTITIES)) -> dict[str, Evidence]:
+    """For each quantity, the latest fit of ``cavity`` (in ``cooldown``) that measures it.
+
+    With ``fit_id`` only that fit is used; ``freq_hz`` [Hz] stands in for fits
+    logged without a mode frequency.
+    """
+    if fit_id is not None:
+        fits = [log.fit(fit_id)]
+        if fits[0].cavity != cavity:
+            raise InputError(f"fit {fit_id} belongs to cavity {fits[0].cavity!r}, "
+                             f"not {cavity!r}")
+    else:
+        fits = log.fits(cavity=cavity, cooldown=cooldown)
+    if not fits:
+        where = f" in cooldown {cooldown!r}" if cooldown else ""
+        raise InputError(f"cavity {cavity!r} has no logged fits{where}")
+    chosen: dict[str, Evidence] = {}
+    for fit in reversed(fits):  # newest first
+        ev = Evidence(description=f"fit {fit.id} ({fit.kind}, cooldown {fit.cooldown}, "
+                      f"logged {fit.logged_at})", draws=log.draws(fit.id),
+                      freq_hz=fit.freq_hz or freq_hz,
+                      fit_id=fit.id, kind=fit.kind, input_sha256=fit.input_sha256,
+                      n_draws_total=fit.n_draws_total)
+        for q in quantities:
+            if q not in chosen and ev.quantity(q) is not None:
+                chosen[q] = ev
+    return chosen
+
+
+def evidence_from_entry(entry, freq_hz: float | None = None) -> Evidence:
+    """Evidence from a result file read with :func:`cavchar.tracking.records.read_result_file`."""
+    return Evidence(description=f"result file {entry.source} ({entry.kind})",
+                    draws=dict(entry.draws), freq_hz=freq_hz or entry.freq_hz, kind=entry.kind,
+                    input_sha256=entry.input_sha256, n_draws_total=entry.n_draws_total)
