@@ -195,3 +195,22 @@ def test_csv_round_trip_is_exact_for_any_floats(tmp_path_factory, start, steps, 
     back = read_jump_record(write_jump_record(record, path))
     assert np.array_equal(back.time, record.time)
     assert back.end_time[0] == record.end_time[0]
+
+
+def test_atomic_writes(tmp_path):
+    from cavchar.io import check_can_write, write_bytes_atomic, write_text_atomic
+
+    target = write_text_atomic(tmp_path / "new" / "deeper" / "notes.txt", "first\n")
+    assert target.read_text() == "first\n"  # missing folders are created
+    with pytest.raises(InputError, match="--force"):
+        write_bytes_atomic(target, b"second")
+    assert target.read_text() == "first\n"  # untouched
+    write_bytes_atomic(target, b"second", force=True)
+    assert target.read_bytes() == b"second"
+    with pytest.raises(InputError, match="is a folder"):
+        check_can_write(tmp_path, force=True)
+    blocker = tmp_path / "plain-file"
+    blocker.write_text("x")
+    with pytest.raises(InputError, match="not a folder"):
+        check_can_write(blocker / "inside.csv")
+    assert sorted(p.name for p in target.parent.iterdir()) == ["notes.txt"]  # no temp files
