@@ -364,3 +364,20 @@ def test_log_fit_result_helper(tmp_path):
         warnings.simplefilter("always")
         assert log_fit_result(result, "A", "cd1", path) == fit_id  # duplicate: skipped
     assert any("not logged again" in str(w.message) for w in caught)
+
+
+def test_fit_log_options(tmp_path, capsys):
+    import argparse
+
+    from cavchar.cli.log import add_fit_log_options, log_from_args
+
+    parser = argparse.ArgumentParser()
+    add_fit_log_options(parser)
+    result = random_result(np.random.default_rng(14))
+    assert log_from_args(result, parser.parse_args([])) is None
+    args = parser.parse_args(["--log", "A", "cd1", "--log-file", str(tmp_path / "l.sqlite"),
+                              "--log-create"])
+    fit_id = log_from_args(result, args)
+    assert "logged as fit 1 (cavity A, cooldown cd1)" in capsys.readouterr().out
+    with open_log(tmp_path / "l.sqlite", create=False) as log:
+        assert log.fit(fit_id).cavity == "A"

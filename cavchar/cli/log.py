@@ -15,7 +15,8 @@ from cavchar.cli.common import HelpFormatter, quantity
 from cavchar.errors import InputError
 from cavchar.tracking.store import LOG_ENV, log_fit_result, open_log
 
-__all__ = ["register", "add_log_file_option", "log_fit_result"]
+__all__ = ["register", "add_log_file_option", "add_fit_log_options", "log_from_args",
+           "log_fit_result"]
 
 EXAMPLES = """examples:
   cavchar log cavity mirrors-B --freq 6.8GHz --notes "second mirror set"
@@ -35,6 +36,30 @@ def add_log_file_option(parser: argparse.ArgumentParser) -> None:
     """``--log-file PATH`` (default: $CAVCHAR_LOG or ./cavchar.sqlite)."""
     parser.add_argument("--log-file", metavar="PATH", default=None,
                         help=f"cooldown log file (default: ${LOG_ENV}, else ./cavchar.sqlite)")
+
+
+def add_fit_log_options(parser: argparse.ArgumentParser) -> None:
+    """``--log CAVITY COOLDOWN``, ``--log-file PATH`` and ``--log-create`` for a fit command.
+
+    After the fit, call :func:`log_from_args` with the result.
+    """
+    parser.add_argument("--log", nargs=2, metavar=("CAVITY", "COOLDOWN"), default=None,
+                        help="log the fit in the cooldown log under this cavity and cooldown")
+    add_log_file_option(parser)
+    parser.add_argument("--log-create", action="store_true",
+                        help="with --log: create the cavity and cooldown if they are new")
+
+
+def log_from_args(result, args: argparse.Namespace) -> int | None:
+    """Log ``result`` if ``--log`` was given (see :func:`add_fit_log_options`); prints and
+    returns the fit id (the earlier id, with a warning, when it is already logged)."""
+    if getattr(args, "log", None) is None:
+        return None
+    cavity, cooldown = args.log
+    fit_id = log_fit_result(result, cavity, cooldown, getattr(args, "log_file", None),
+                            create=bool(getattr(args, "log_create", False)))
+    print(f"logged as fit {fit_id} (cavity {cavity}, cooldown {cooldown})")
+    return fit_id
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:

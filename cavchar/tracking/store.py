@@ -307,8 +307,12 @@ class CooldownLog:
         return fit_id, True
 
     def fits(self, *, cavity: str | None = None, cooldown: str | None = None,
-             kind: str | None = None) -> list[FitRecord]:
-        """Logged fits (oldest first), optionally of one cavity, cooldown or kind."""
+             kind: str | None = None, summaries: bool = True) -> list[FitRecord]:
+        """Logged fits (oldest first), optionally of one cavity, cooldown or kind.
+
+        With ``summaries=False`` the stored summaries are not read (``summary`` is
+        ``{}``), which saves time over thousands of fits.
+        """
         where, params = [], []
         if cavity is not None:
             where.append("f.cavity_id = ?")
@@ -319,7 +323,8 @@ class CooldownLog:
         if kind is not None:
             where.append("f.kind = ?")
             params.append(kind)
-        sql = f"SELECT {_FIT_COLUMNS} FROM {_FIT_FROM}"
+        columns = _FIT_COLUMNS if summaries else _FIT_COLUMNS.replace("f.summary", "'{}'")
+        sql = f"SELECT {columns} FROM {_FIT_FROM}"
         if where:
             sql += " WHERE " + " AND ".join(where)
         return [_fit_record(r) for r in self._query(sql + " ORDER BY f.id", params)]

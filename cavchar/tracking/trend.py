@@ -63,6 +63,31 @@ def interval(draws: np.ndarray) -> Interval:
     return Interval(*(float(v) for v in q), n_draws=int(values.size))
 
 
+_QUANTILES = np.array([0.5, 0.16, 0.84, 0.025, 0.975])
+
+
+def _sorted_intervals(arrays: dict[int, np.ndarray]
+                      ) -> tuple[dict[int, Interval], dict[int, np.ndarray]]:
+    """Intervals of many draw sets at once: rows of equal length are stacked and sorted
+    in one call; quantiles by linear interpolation at (n - 1) q (numpy's default
+    method).  Returns the intervals and the sorted draws, both by key."""
+    by_length: dict[int, list[int]] = {}
+    for key, values in arrays.items():
+        by_length.setdefault(len(values), []).append(key)
+    intervals, sorted_rows = {}, {}
+    for n, keys in by_length.items():
+        block = np.sort(np.stack([arrays[k] for k in keys]), axis=1)
+        position = _QUANTILES * (n - 1)
+        low = np.floor(position).astype(int)
+        high = np.minimum(low + 1, n - 1)
+        weight = position - low
+        q = block[:, low] * (1 - weight) + block[:, high] * weight
+        for row, key in enumerate(keys):
+            intervals[key] = Interval(*(float(v) for v in q[row]), n_draws=n)
+            sorted_rows[key] = block[row]
+    return intervals, sorted_rows
+
+
 def drop_probability(draws: np.ndarray, reference: np.ndarray, fraction: float = 0.1
                      ) -> tuple[float, float]:
     """P(X < (1 - fraction) Y) for independent X ~ ``draws`` and Y ~ ``reference``.
@@ -81,11 +106,18 @@ def drop_probability(draws: np.ndarray, reference: np.ndarray, fraction: float =
     """
     if not 0.0 <= fraction < 1.0:
         raise InputError(f"the drop fraction must lie in [0, 1), not {fraction}")
-    x = np.sort(np.asarray(draws, dtype=float))
-    y = np.sort(np.asarray(reference, dtype=float))
+    return _drop_sorted(np.sort(np.asarray(draws, dtype=float)),
+                        np.sort(np.asarray(reference, dtype=float)), fraction)
+
+
+def _drop_sorted(x: np.ndarray, y: np.ndarray, fraction: float) -> tuple[float, float]:
+    """:func:`drop_probability` for draws already sorted ascending."""
     limit = (1.0 - fraction) * y
-    b = np.searchsorted(x, limit, side="left") / x.size        # P(X < (1-d) y_j)
-    a = 1.0 - np.searchsorted(limit, x, side="right") / y.size  # P((1-d) Y > x_i)
+    counts = np.searchsorted(x, limit, side="left")  # c_j = #{i: x_i < (1-d) y_j}
+    b = counts / x.size                                  # P(X < (1-d) y_j)
+    # x_i < (1-d) y_j exactly when i < c_j, so #{j: c_j > i} counts the y_j above x_i
+    above = y.size - np.cumsum(np.bincount(counts, minlength=x.size + 1))[: x.size]
+    a = above / y.size                                   # P((1-d) Y > x_i)
     probability = float(b.mean())
     error = float(np.sqrt(a.var() / x.size + b.var() / y.size))
     return probability, error
@@ -195,7 +227,7 @@ def cooldown_trend(log: CooldownLog, cavity: str, *, reference: str | None = Non
         cooldown, by log order, is used otherwise).
     """
     cav = log.cavity(cavity)
-    fits = log.fits(cavity=cavity, kind=kind)
+    fits = log.fits(cavity=cavity, kind=kind, summaries=False)
     if not fits:
         what = f" of kind {kind!r}" if kind else ""
         raise InputError(f"cavity {cavity!r} has no logged fits{what}",
@@ -226,13 +258,19 @@ def cooldown_trend(log: CooldownLog, cavity: str, *, reference: str | None = Non
         ref_lifetime = draws[ref_fit.id].get("lifetime")
         if ref_lifetime is None:
             raise InputError(f"reference fit {ref_fit.id} has no lifetime draws")
+    if not 0.0 <= fraction < 1.0:
+        raise InputError(f"the drop fraction must lie in [0, 1), not {fraction}")
+    batched = {name: _sorted_intervals({i: d[name] for i, d in draws.items() if name in d})
+               for name in TREND_QUANTITIES}
     rows = []
     for fit in chosen:
-        stats = {name: interval(v) for name, v in draws[fit.id].items()}
+        stats = {name: batched[name][0][fit.id] for name in TREND_QUANTITIES
+                 if fit.id in batched[name][0]}
         probability = error = None
         if ref_lifetime is not None and fit.id != ref_fit.id and "lifetime" in draws[fit.id]:
-            probability, error = drop_probability(draws[fit.id]["lifetime"], ref_lifetime,
-                                                  fraction)
+            lifetimes = batched["lifetime"][1]
+            probability, error = _drop_sorted(lifetimes[fit.id], lifetimes[ref_fit.id],
+                                              fraction)
         cool = order[fit.cooldown][1]
         rows.append(TrendRow(cooldown=fit.cooldown, start_date=cool.start_date, fit_id=fit.id,
                              kind=fit.kind, n_fits=counts[fit.cooldown],
