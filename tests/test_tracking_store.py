@@ -329,8 +329,9 @@ def test_cli_log_commands(tmp_path, run_cli, monkeypatch):
     code, out, _ = run_cli("log", "add", "r1.json", "r2.json", "--cavity", "C", "--cooldown", "x",
                            "--stage-temp", "30mK")
     assert code == 0 and "as fit 2" in out
-    code, _, err = run_cli("log", "add", "r1.json", "--cavity", "C", "--cooldown", "x")
-    assert code == 2 and "already in the log as fit 1" in err
+    random_result(rng, sha="3" * 64).to_json(tmp_path / "r3.json")
+    code, _, err = run_cli("log", "add", "r3.json", "r1.json", "--cavity", "C", "--cooldown", "x")
+    assert code == 2 and "already in the log as fit 1" in err  # and r3 is not logged either
     code, out, _ = run_cli("log", "list", "--json")
     rows = json.loads(out)
     assert [r["id"] for r in rows] == [1, 2] and rows[0]["stage_temp_k"] == 0.03

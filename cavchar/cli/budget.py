@@ -98,7 +98,7 @@ def print_budget(budget) -> None:
               f"95%: [{x.low_95:.3g}, {x.high_95:.3g}]")
     if budget.two_bath is not None:
         tb = budget.two_bath.parameters
-        lead = "" if budget.model == budget.two_bath.model else "  (not identified) "
+        lead = "" if budget.model == budget.two_bath.model else " (not identified)"
         t, f, s = tb["hot_temperature"], tb["hot_fraction"], tb["excess_share_at_coldest"]
         print(f"  two-bath{lead}: T_hot = {format_quantity(t.median, 'temperature')} 95%: "
               f"[{format_quantity(t.low_95, 'temperature')}, "

@@ -147,11 +147,14 @@ def _add(args: argparse.Namespace) -> int:
     from cavchar.tracking.records import read_result_file
 
     entries = [read_result_file(path) for path in args.results]  # read all before writing
+    on_duplicate = "keep" if args.keep_duplicate else "error"
     with open_log(args.log_file) as log:
-        for path, entry in zip(args.results, entries, strict=True):
-            fit_id = log.add_fit(entry, args.cavity, args.cooldown, stage_temp_k=args.stage_temp,
-                                 create=args.create,
-                                 on_duplicate="keep" if args.keep_duplicate else "error")
+        with log.transaction() as con:  # all files or none
+            ids = [log._add_fit_locked(con, entry, args.cavity, args.cooldown,
+                                       stage_temp_k=args.stage_temp, create=args.create,
+                                       on_duplicate=on_duplicate, logged_at=None)[0]
+                   for entry in entries]
+        for path, fit_id in zip(args.results, ids, strict=True):
             print(f"logged {path} as fit {fit_id} (cavity {args.cavity}, cooldown "
                   f"{args.cooldown}) in {log.path}")
     return 0
