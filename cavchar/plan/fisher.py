@@ -12,8 +12,9 @@ over independent data, so ``amount`` units carry ``amount`` times as much.
   :func:`cavchar.models.jumps.exact_fisher_information`;
 * sampled jump records: the expected information per transition of the
   stationary chain, ``I = sum_ij pi_i P_ij grad log P_ij grad log P_ij^T`` with
-  ``P = expm(Q dt)`` and ``grad P`` from the exact Fréchet derivative of the
-  matrix exponential (Al-Mohy & Higham 2009, ``scipy.linalg.expm_frechet``);
+  ``P = expm(Q dt)`` and ``grad P`` in closed form from the symmetric
+  eigen-decomposition of the generator (Daleckii–Krein formula for the
+  derivative of a matrix function; Higham, *Functions of Matrices*, 2008, ch. 3);
 * probe records: no closed form exists for a hidden Markov model, so the
   information per probe is estimated from the observed information
   ``-d2 log L`` (central differences of the forward-algorithm log-likelihood)
@@ -39,9 +40,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from numpy.typing import ArrayLike
-from scipy import linalg, special
+from scipy import special
 
-from cavchar.dynamics import rate_matrix, stationary_distribution, truncation_levels
+from cavchar.dynamics import stationary_distribution, truncation_levels
 from cavchar.errors import InputError
 
 __all__ = [
@@ -143,15 +144,56 @@ def exact_jump_information(lifetime: float, n_thermal: float) -> Information:
                        "s", np.zeros(2), extra={"method": "closed form"})
 
 
-def _transition_derivatives(lifetime: float, n_thermal: float, interval: float, n_levels: int):
-    """``P(dt)`` (N, N) and ``dP/d(T_c, n_th)`` (2, N, N) by Fréchet derivatives of expm."""
+def _transition_derivatives(lifetime: float, n_thermal: float, intervals: ArrayLike,
+                            n_levels: int) -> tuple[np.ndarray, np.ndarray]:
+    """``P(dt)`` (m, N, N) and ``dP/d(T_c, n_th)`` (2, m, N, N), analytically.
+
+    With ``S = D^{1/2} Q D^{-1/2} = V diag(lam) V^T`` (``D = diag(pi)``, see
+    :mod:`cavchar.dynamics`) ``P = D^{-1/2} exp(S dt) D^{1/2}``, so
+
+        dP_ij = (g_j - g_i) P_ij + [D^{-1/2} V (F o (V^T dS V)) V^T D^{1/2}]_ij
+
+    with ``g_n = d ln sqrt(pi_n) = (n/2) d ln r`` (``r = n_th/(1+n_th)``) and the
+    Daleckii–Krein divided differences ``F_kl = (e^{lam_k dt} - e^{lam_l dt}) /
+    (lam_k - lam_l)`` (``dt e^{lam_k dt}`` on the diagonal), evaluated as
+    ``e^{max dt} dt (1 - e^{-|lam_k - lam_l| dt}) / (|lam_k - lam_l| dt)``.  One
+    symmetric eigen-decomposition serves every interval.  The rounding error of
+    row ``i`` is amplified by ``sqrt(pi_j/pi_i)``; every use here weights row
+    ``i`` by its population, which cancels it.
+    """
     kappa = 1.0 / lifetime
-    q = rate_matrix(kappa, n_thermal, n_levels)
-    dq_dt = -q / lifetime  # Q is proportional to kappa = 1/T_c
-    dq_dn = rate_matrix(kappa, 1.0, n_levels) - rate_matrix(kappa, 0.0, n_levels)  # Q linear in n
-    p, d_t = linalg.expm_frechet(q * interval, dq_dt * interval)
-    d_n = linalg.expm_frechet(q * interval, dq_dn * interval, compute_expm=False)
-    return p, np.stack([d_t, d_n])
+    a, b = kappa * n_thermal, kappa * (1.0 + n_thermal)
+    n = np.arange(n_levels, dtype=float)
+
+    def sym(da: float, db: float, dab: float) -> np.ndarray:
+        out = np.diag(-(da * (n + 1) * (n < n_levels - 1) + db * n))
+        out += np.diag(dab * n[1:], 1) + np.diag(dab * n[1:], -1)
+        return out
+
+    root = math.sqrt(a * b)
+    s_mat = sym(a, b, root)
+    # d/dT_c: a, b scale with kappa = 1/T_c; d/dn_th: da = db = kappa
+    d_sym = [-s_mat / lifetime, sym(kappa, kappa, kappa * (a + b) / (2 * root))]
+    g = [np.zeros(n_levels), 0.5 * n / (n_thermal * (1.0 + n_thermal))]
+    lam, vecs = np.linalg.eigh(s_mat)
+    lam = np.minimum(lam, 0.0)
+    half = 0.5 * n * math.log(n_thermal / (1.0 + n_thermal))  # ln sqrt(pi_n) + const
+    scale = np.exp(half[None, :] - half[:, None])  # sqrt(pi_j / pi_i)
+    dts = np.atleast_1d(np.asarray(intervals, dtype=float))
+    decay = np.exp(lam[None, :] * dts[:, None])  # (m, N)
+    p = np.einsum("ik,mk,jk->mij", vecs, decay, vecs) * scale
+    top = np.maximum(lam[:, None], lam[None, :])
+    gap = np.abs(lam[:, None] - lam[None, :])
+    x = gap[None] * dts[:, None, None]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio = np.where(x > 1e-12, -np.expm1(-x) / np.where(x > 0, x, 1.0), 1.0)
+    div = np.exp(top[None] * dts[:, None, None]) * dts[:, None, None] * ratio  # (m, N, N)
+    grads = []
+    for d_s, g_n in zip(d_sym, g, strict=True):
+        inner = vecs.T @ d_s @ vecs
+        df = np.einsum("ik,mkl,jl->mij", vecs, div * inner[None], vecs) * scale
+        grads.append((g_n[None, None, :] - g_n[None, :, None]) * p + df)
+    return np.clip(p, 0.0, 1.0), np.stack(grads)
 
 
 def sampled_jump_information(lifetime: float, n_thermal: float, interval: float,
@@ -168,14 +210,15 @@ def sampled_jump_information(lifetime: float, n_thermal: float, interval: float,
     if not (math.isfinite(interval) and interval > 0):
         raise InputError(f"the sampling interval must be a positive time, not {interval} s")
     n_levels = n_levels or truncation_levels(n_thermal, 2, TAIL)
-    p, grad = _transition_derivatives(lifetime, n_thermal, interval, n_levels)
+    p, grad = _transition_derivatives(lifetime, n_thermal, [interval], n_levels)
+    p, grad = p[0], grad[:, 0]
     pi = stationary_distribution(n_thermal, n_levels)
     use = p > 1e-12
     w = np.where(use, pi[:, None] / np.where(use, p, 1.0), 0.0)
     matrix = np.einsum("ij,aij,bij->ab", w, grad, grad)
     return Information(("lifetime", "n_thermal"), np.array([lifetime, n_thermal]), matrix,
                        "transition", np.zeros(2),
-                       extra={"method": "expected information, Frechet derivative of expm",
+                       extra={"method": "expected information, analytic derivative of P(dt)",
                               "interval_s": interval, "levels": n_levels})
 
 
@@ -459,16 +502,14 @@ def _population_information(times, lifetime, n_thermal, initial, shots, t0):
     n_max = int(np.flatnonzero(p0 > 0).max())
     n_levels = max(truncation_levels(n_thermal, n_max, TAIL), p0.size)
     p0 = np.pad(p0, (0, n_levels - p0.size))
-    info = np.zeros((2, 2))
-    for tau in np.asarray(times, dtype=float) - t0:
-        if tau < 0:
-            raise InputError("populations are measured after the preparation: times >= t0")
-        p, grad = _transition_derivatives(lifetime, n_thermal, max(tau, 0.0), n_levels)
-        pop, dpop = p0 @ p, np.einsum("i,aij->aj", p0, grad)
-        use = pop > 1e-12
-        info += shots * np.einsum("j,aj,bj->ab", np.where(use, 1 / np.where(use, pop, 1), 0),
-                                  dpop, dpop)
-    return info
+    tau = np.asarray(times, dtype=float) - t0
+    if np.any(tau < 0):
+        raise InputError("populations are measured after the preparation: times >= t0")
+    p, grad = _transition_derivatives(lifetime, n_thermal, tau, n_levels)
+    pop, dpop = p0 @ p, np.einsum("i,amij->amj", p0, grad)  # (m, N), (2, m, N)
+    use = pop > 1e-12
+    weight = np.where(use, 1 / np.where(use, pop, 1.0), 0.0)
+    return shots * np.einsum("mj,amj,bmj->ab", weight, dpop, dpop)
 
 
 def ringdown_information(

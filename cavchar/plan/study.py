@@ -94,16 +94,18 @@ class StudyResult:
         return pd.DataFrame(rows)
 
 
-def maximize(loglik: LogLik, x0: ArrayLike, scale: ArrayLike, *, max_iter: int = 60,
-             tol: float = 1e-5) -> tuple[np.ndarray, np.ndarray, bool]:
+def maximize(loglik: LogLik, x0: ArrayLike, scale: ArrayLike, *, max_iter: int = 50,
+             tol: float = 1e-3) -> tuple[np.ndarray, np.ndarray, bool]:
     """Maximum of a batched log-likelihood by Newton steps in units of ``scale``.
 
-    Returns the maximizer, the covariance ``-H^{-1}`` there (observed
-    information) and whether a finite maximum with a negative-definite
-    Hessian was found.
+    Stops when the Newton step is below ``tol`` scale units (1e-3 of a standard
+    deviation: far below the spread a study measures) at a point with a
+    negative-definite Hessian.  Returns the maximizer, the covariance
+    ``-H^{-1}`` there (observed information) and whether it succeeded.
     """
     x0 = np.asarray(x0, dtype=float)
     scale = np.asarray(scale, dtype=float)
+    failed = (x0, np.full((x0.size,) * 2, np.nan), False)
 
     def f(z):
         return loglik(x0 + np.atleast_2d(z) * scale)
@@ -114,10 +116,14 @@ def maximize(loglik: LogLik, x0: ArrayLike, scale: ArrayLike, *, max_iter: int =
         for _ in range(max_iter):
             g, hess, f0 = numerical_hessian(f, z, h)
             if not (np.isfinite(f0) and np.all(np.isfinite(hess)) and np.all(np.isfinite(g))):
-                return x0 + z * scale, np.full((x0.size,) * 2, np.nan), False
+                return failed
             w, v = np.linalg.eigh(hess)
-            if w.max() < 0:
+            concave = w.max() < 0
+            if concave:
                 step = -np.linalg.solve(hess, g)
+                if np.linalg.norm(step) < tol:
+                    cov = -np.linalg.inv(hess) * np.outer(scale, scale)
+                    return x0 + (z + step) * scale, cov, True
             else:  # not concave here: ascend along the gradient, curvature-limited
                 step = v @ ((v.T @ g) / np.maximum(np.abs(w), 1.0))
             norm = np.linalg.norm(step)
@@ -128,12 +134,7 @@ def maximize(loglik: LogLik, x0: ArrayLike, scale: ArrayLike, *, max_iter: int =
                     break
                 step /= 2
             z = z + step
-            if np.linalg.norm(step) < tol and w.max() < 0:
-                break
-        _g, hess, f0 = numerical_hessian(f, z, h)
-    ok = bool(np.isfinite(f0) and np.all(np.isfinite(hess)) and np.linalg.eigvalsh(hess).max() < 0)
-    cov = -np.linalg.inv(hess) * np.outer(scale, scale) if ok else np.full((x0.size,) * 2, np.nan)
-    return x0 + z * scale, cov, ok
+    return failed
 
 
 def _run(n_records: int, seed, names, truth, scale, make_loglik, start=None) -> StudyResult:
@@ -233,7 +234,7 @@ def study_ringdown(signal: str, times: ArrayLike, lifetime: float, n_traces: int
     """Study of ``n_traces`` ring-down traces per record (arguments as
     :func:`cavchar.plan.fisher.ringdown_information`); ``scale``: the forecast sds
     of every fitted parameter (default: computed from the Fisher information)."""
-    from cavchar.dynamics import populations
+    from cavchar.dynamics import transition_matrices_batch
     from cavchar.simulate import simulate_ringdown
 
     signal = signal.lower().replace("-", "_")
@@ -275,13 +276,17 @@ def study_ringdown(signal: str, times: ArrayLike, lifetime: float, n_traces: int
             levels = counts.shape[1]
             p_init = p0 if p0.size > 1 else np.eye(int(p0[0]) + 1)[int(p0[0])]
 
+            start = np.pad(p_init, (0, levels - p_init.size))
+
             def loglik(theta):
                 out = np.full(theta.shape[0], -np.inf)
-                for k, (t_c, n) in enumerate(theta):
-                    if t_c > 0 and n > 0:
-                        pop = populations(1 / t_c, n, p_init, times - t0, n_levels=levels)
-                        with np.errstate(divide="ignore"):
-                            out[k] = np.sum(counts * np.log(np.clip(pop, 1e-300, None)))
+                ok = np.all(theta > 0, axis=1)
+                if ok.any():  # one batched eigen-decomposition for every set and delay
+                    mats = transition_matrices_batch(1 / theta[ok, 0], theta[ok, 1], levels,
+                                                     times - t0, n_max=p_init.size - 1)
+                    pop = np.einsum("i,kmij->kmj", start, mats)
+                    out[ok] = np.einsum("mj,kmj->k", counts,
+                                        np.log(np.clip(pop, 1e-300, None)))
                 return out
 
             return loglik, truth
