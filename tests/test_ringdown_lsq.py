@@ -17,7 +17,8 @@ import pytest
 from scipy.optimize import curve_fit
 
 from cavchar.errors import InputError
-from cavchar.models.ringdown_lsq import fit_exponentials, fit_shared_rate
+from cavchar.models.ringdown_lsq import fit_exponentials
+from cavchar.models.ringdown_shared import fit_shared_rate
 from cavchar.models.ringdown_sums import ExponentialSums, taylor_remainder_bound
 
 REPO = Path(__file__).resolve().parents[1]

@@ -26,6 +26,8 @@ Nothing depends on a user guess:
    variance ``RSS / (n - p)`` unless ``absolute_sigma`` (the conventions of
    ``scipy.optimize.curve_fit``).
 
+Several traces sharing one rate: :mod:`cavchar.models.ringdown_shared`.
+
 Parameter order of :attr:`ExponentialFit.params`: ``A_1, r_1, ..., A_m, r_m``
 and then ``F`` (rates ascending: slowest decay first).
 """
@@ -44,8 +46,8 @@ from scipy import optimize
 from cavchar.errors import InputError
 from cavchar.models.ringdown_sums import ExponentialSums
 
-__all__ = ["ExponentialFit", "fit_exponentials", "SharedRateFit", "fit_shared_rate",
-           "profile_objective"]
+__all__ = ["ExponentialFit", "fit_exponentials", "profile_objective", "gram_matrices",
+           "validate_trace"]
 
 #: traces longer than this are refined on compressed sums instead of full residuals
 LONG_TRACE = 20_000
@@ -152,7 +154,7 @@ def _design(tau: np.ndarray, rates: np.ndarray, floor: bool) -> np.ndarray:
     return cols
 
 
-def _validate(t: ArrayLike, y: ArrayLike, sigma: ArrayLike | None, n_params: int):
+def validate_trace(t: ArrayLike, y: ArrayLike, sigma: ArrayLike | None, n_params: int):
     t = np.asarray(t, dtype=float).ravel()
     y = np.asarray(y, dtype=float).ravel()
     if t.shape != y.shape:
@@ -267,7 +269,7 @@ def profile_objective(sums: Sequence[ExponentialSums], rates: np.ndarray, floor:
     rates = np.atleast_2d(rates)
     total = np.zeros(rates.shape[0])
     for s in sums:
-        gram, rhs = _gram(s, rates, floor)
+        gram, rhs = gram_matrices(s, rates, floor)
         with np.errstate(all="ignore"):
             try:
                 coef = np.linalg.solve(gram, rhs[..., None])[..., 0]
@@ -279,7 +281,7 @@ def profile_objective(sums: Sequence[ExponentialSums], rates: np.ndarray, floor:
     return total
 
 
-def _gram(s: ExponentialSums, rates: np.ndarray, floor: bool):
+def gram_matrices(s: ExponentialSums, rates: np.ndarray, floor: bool):
     """Gram matrices (k, p, p) and right sides (k, p) from the sums (batched rates (k, m))."""
     k, m = rates.shape
     p = m + int(floor)
@@ -329,7 +331,7 @@ def _polish_normal(tau, y, w, rates, floor, sums=None, max_iter=3):
     sw = np.sqrt(w)
     m = rates.size
     sums = sums or ExponentialSums(tau, y, w)
-    gram, rhs = _gram(sums, rates[None], floor)
+    gram, rhs = gram_matrices(sums, rates[None], floor)
     coef = np.linalg.solve(gram[0], rhs[0])
     if floor:
         coef[m] += sums.offset  # the sums are those of y - offset
@@ -438,7 +440,7 @@ def fit_exponentials(
     if n_exp not in (1, 2, 3):
         raise InputError(f"n_exp must be 1, 2 or 3, got {n_exp}")
     n_params = 2 * n_exp + int(floor)
-    t, y, w = _validate(t, y, sigma, n_params)
+    t, y, w = validate_trace(t, y, sigma, n_params)
     t0 = float(t.min()) if t0 is None else float(t0)
     tau = t - t0
     rate_range = _default_rate_range(tau) if rate_range is None else tuple(map(float, rate_range))
@@ -517,64 +519,3 @@ def _refine_long(tau, y, w, n_exp, floor, starts, grid):
             best, best_value = np.exp(x), value
     return (best, "variable projection on compressed exponential sums, Gauss-Newton polish",
             sums[0])
-
-
-@dataclass(frozen=True)
-class SharedRateFit:
-    """Result of :func:`fit_shared_rate`: one rate, per-trace amplitudes and floors."""
-
-    rate: float
-    amplitudes: np.ndarray
-    floors: np.ndarray
-    rss: np.ndarray
-    n_points: np.ndarray
-
-    @property
-    def lifetime(self) -> float:
-        return 1.0 / self.rate
-
-
-def fit_shared_rate(
-    traces: Sequence[tuple[ArrayLike, ArrayLike, ArrayLike | None]],
-    *,
-    floor: bool = True,
-    fitted_sigma: bool = True,
-) -> SharedRateFit:
-    """One decay rate shared by several traces, each with its own amplitude and floor.
-
-    Parameters
-    ----------
-    traces
-        ``(tau, y, sigma)`` per trace: times since that trace's reference time
-        in s, values, and per-point sigma or ``None``.
-    floor
-        Fit a floor per trace.
-    fitted_sigma
-        Noise scale unknown per trace: minimize ``sum_j (n_j/2) ln RSS_j``
-        (the profile likelihood); else ``sum_j RSS_j`` (chi-square).
-
-    The start is the rate of the best single-trace fit of the longest trace,
-    refined by a bounded Brent search on the compressed sums.
-    """
-    data = [_validate(tau, y, s, 2 + int(floor)) for tau, y, s in traces]
-    first = max(range(len(data)), key=lambda i: data[i][0].size)
-    t, y, _ = data[first]
-    sig = traces[first][2]
-    single = fit_exponentials(t, y, 1, floor=floor, sigma=sig, t0=0.0)
-    r0 = float(single.rates[0])
-    sums = [ExponentialSums(tau, yy, ww, rate_limit=20.0 * r0) for tau, yy, ww in data]
-    sol = optimize.minimize_scalar(
-        lambda x: float(profile_objective(sums, np.array([[math.exp(x)]]), floor,
-                                          fitted_sigma)[0]),
-        bounds=(math.log(r0 / 8), math.log(r0 * 8)), method="bounded",
-        options={"xatol": 1e-10})
-    rate = math.exp(sol.x)
-    amps, floors, rss = [], [], []
-    for s in sums:
-        gram, rhs = _gram(s, np.array([[rate]]), floor)
-        coef = np.linalg.solve(gram[0], rhs[0])
-        amps.append(coef[0])
-        floors.append(coef[1] if floor else 0.0)
-        rss.append(s.sum_yy - rhs[0] @ coef)
-    return SharedRateFit(rate=rate, amplitudes=np.array(amps), floors=np.array(floors),
-                         rss=np.array(rss), n_points=np.array([s.n for s in sums]))
