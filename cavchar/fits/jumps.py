@@ -17,7 +17,6 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from cavchar.dynamics import truncation_levels
 from cavchar.errors import InputError, ModelMisfitWarning, PriorDominatedWarning
 from cavchar.fits.common import FitContext, finish_fit, sampler_settings
 from cavchar.inference import SamplerSettings, sample_posterior
@@ -38,8 +37,9 @@ __all__ = ["fit_jumps", "default_priors", "JumpPriors"]
 #: default prior bounds: wide enough for any microwave cavity (1 us .. 1000 s; 1e-6 .. 100)
 DEFAULT_LIFETIME_PRIOR = LogUniform(1e-6, 1e3)
 DEFAULT_N_THERMAL_PRIOR = LogUniform(1e-6, 1e2)
-#: neglected stationary tail of the truncation for sampled records
-TRUNCATION_TAIL = 1e-12
+#: largest accepted change of the sampled-record log-likelihood from more levels
+TRUNCATION_LOGLIKE_TOL = 1e-9
+_EXTRA_LEVELS = 4
 
 
 @dataclass(frozen=True)
@@ -220,33 +220,51 @@ def _dwell_excerpt(durations, states, complete, rng) -> dict:
     return out
 
 
+def _levels_for(trans, points: np.ndarray, initial: str, start: int) -> tuple[int, float]:
+    """Smallest level count >= ``start`` at which ``_EXTRA_LEVELS`` more levels change the
+    log-likelihood at every point (rows of (T_c, n_th)) by less than the tolerance; the
+    truncation error is measured, not bounded, because it is far below the stationary tail
+    (a path must climb from the observed numbers to the top level within one step)."""
+    n_levels = max(int(start), trans.n_max + 2)
+    while True:
+        base = sampled_log_likelihood(trans, points[:, 0], points[:, 1], n_levels, initial)
+        more = sampled_log_likelihood(trans, points[:, 0], points[:, 1],
+                                      n_levels + _EXTRA_LEVELS, initial)
+        finite = np.isfinite(base) & np.isfinite(more)
+        change = float(np.max(np.abs(base - more)[finite], initial=0.0))
+        if change < TRUNCATION_LOGLIKE_TOL or n_levels > 400:
+            return n_levels, change
+        n_levels += _EXTRA_LEVELS
+
+
 def _fit_sampled(record, specs, settings, initial, context):
     trans = sampled_transitions(record.time, record.photons, record.segment)
     if trans.n_transitions == 0:
         raise InputError("the sampled record has fewer than two samples in every segment",
                          path=record.source, hint="a sampled record needs consecutive samples")
     guess = _sampled_guess(record)
-    n_high = max(4.0 * guess[1], float(record.photons.mean()) + 1.0, 0.5)
+    probe = np.array([guess, (guess[0], 3.0 * guess[1]), (0.3 * guess[0], guess[1])])
+    n_levels, _ = _levels_for(trans, probe, initial, trans.n_max + 3)
     for _attempt in range(3):
-        n_levels = truncation_levels(n_high, trans.n_max, TRUNCATION_TAIL)
 
         def log_likelihood(theta: np.ndarray, n_levels=n_levels) -> np.ndarray:
             return sampled_log_likelihood(trans, theta[:, 0], theta[:, 1], n_levels,
                                           initial=initial)
 
         run = sample_posterior(log_likelihood, specs, guess, settings)
-        n_top = float(np.quantile(run.draws[:, 1], 0.999))
-        if n_top <= n_high:
+        # check the truncation where the posterior reaches its largest n_th
+        extreme = run.draws[np.argsort(run.draws[:, 1])[-20:]]
+        needed, error = _levels_for(trans, np.vstack([extreme, run.map]), initial, n_levels)
+        if needed == n_levels:
             break
-        n_high = 2.0 * n_top
-    r = n_top / (1.0 + n_top)
+        n_levels = needed
     truncation = {
         "levels": int(n_levels),
         "largest_observed_photon_number": int(trans.n_max),
-        "designed_for_n_thermal_up_to": n_high,
-        "neglected_tail_at_n_thermal_99.9%": float(r ** (n_levels - trans.n_max)),
-        "rule": "levels = largest observed number + ceil(log(1e-12) / log(r)), "
-                "r = n_th / (1 + n_th); the tail bounds the probability above the top level",
+        "log_likelihood_change_with_more_levels": error,
+        "rule": f"levels grow until adding {_EXTRA_LEVELS} more changes the log-likelihood by "
+                f"less than {TRUNCATION_LOGLIKE_TOL:g} at the start, the MAP and the 20 draws "
+                "with the largest n_th",
     }
     occupation = np.bincount(record.photons) / record.photons.size
     first = record.segments()[0]
