@@ -22,9 +22,9 @@ with a Taylor remainder per point of at most ``rho^M e^rho / M!`` relative to
 equal the brute-force sums to rounding for every rate with
 ``|r| <= rate_limit = rho / h``.  Rates beyond the limit are summed directly
 (exact, one pass over the data each), so the result never depends on the
-compression; only the speed does.  The moments cost ``2 M`` passes over the
-data once; an evaluation then costs ``O(B M)`` for ``B`` bins instead of
-``O(n)``.
+compression; only the speed does.  The moments cost one compiled pass over
+the data (``2 M`` multiply-adds per point, any order of the times); an
+evaluation then costs ``O(B M)`` for ``B`` bins instead of ``O(n)``.
 """
 
 from __future__ import annotations
@@ -42,8 +42,6 @@ TAYLOR_ORDER = 16
 TAYLOR_RHO = 0.5
 #: below this many points per bin on average the compression does not pay
 _MIN_POINTS_PER_BIN = 32
-#: points per block when the moments are accumulated
-_CHUNK = 1 << 16
 #: largest (rates x points) block summed at once by the direct route
 _BLOCK = 2_000_000
 
@@ -73,6 +71,35 @@ def _real_moment_sums(rates, centres, half, moments):  # pragma: no cover - comp
         sw[i] = acc_w
         sy[i] = acc_y
     return sw, sy
+
+
+@njit(cache=True, nogil=True)
+def _bin_moments(tau, w, y_re, y_im, lo, width, n_bins, order):  # pragma: no cover - compiled
+    """One pass: ``sum w u^m``, ``sum w y u^m`` per bin, ``u = (tau - centre) / half``."""
+    mw = np.zeros((n_bins, order))
+    my_re = np.zeros((n_bins, order))
+    my_im = np.zeros((n_bins, order) if y_im.size else (0, order))
+    half = 0.5 * width
+    complex_y = y_im.size > 0
+    for i in range(tau.size):
+        b = int((tau[i] - lo) / width)
+        b = min(max(b, 0), n_bins - 1)
+        u = (tau[i] - (lo + (b + 0.5) * width)) / half
+        p = w[i]
+        yr = y_re[i]
+        if complex_y:
+            yi = y_im[i]
+            for m in range(order):
+                mw[b, m] += p
+                my_re[b, m] += p * yr
+                my_im[b, m] += p * yi
+                p *= u
+        else:
+            for m in range(order):
+                mw[b, m] += p
+                my_re[b, m] += p * yr
+                p *= u
+    return mw, my_re, my_im
 
 
 def taylor_remainder_bound(order: int = TAYLOR_ORDER, rho: float = TAYLOR_RHO) -> float:
@@ -151,46 +178,23 @@ class ExponentialSums:
             return  # the direct sum is as cheap: stay uncompressed
         width = span / n_bins if span > 0 else 1.0
         half = 0.5 * width  # <= TAYLOR_RHO / rate_limit
-        order = None if np.all(self.tau[1:] >= self.tau[:-1]) else np.argsort(self.tau)
-        tau = self.tau if order is None else self.tau[order]
-        w = self.w if order is None else self.w[order]
-        y = self.y if order is None else self.y[order]
-        index = np.minimum(((tau - lo) / width).astype(np.int64), n_bins - 1)
-        # non-empty bins are contiguous runs of the sorted index
-        edges = np.flatnonzero(np.diff(index)) + 1
-        edges = np.concatenate([[0], edges, [self.n]])
-        used = index[edges[:-1]]
-        centres = lo + (used + 0.5) * width
-        u = (tau - np.repeat(centres, np.diff(edges))) / half
-        n_used = used.size
-        mw = np.empty((TAYLOR_ORDER, n_used))
-        my = np.empty((TAYLOR_ORDER, n_used), dtype=y.dtype)
-        block = np.empty((TAYLOR_ORDER, 0))
-        i = 0
-        while i < n_used:  # blocks of whole bins, about _CHUNK points each
-            j = int(np.searchsorted(edges, edges[i] + _CHUNK, side="right")) - 1
-            j = min(max(j, i + 1), n_used)
-            a, b = int(edges[i]), int(edges[j])
-            if block.shape[1] < b - a:
-                block = np.empty((TAYLOR_ORDER, b - a))
-            powers = block[:, : b - a]
-            powers[0] = w[a:b]
-            for m in range(1, TAYLOR_ORDER):
-                np.multiply(powers[m - 1], u[a:b], out=powers[m])
-            local = edges[i:j] - a
-            mw[:, i:j] = np.add.reduceat(powers, local, axis=1)
-            my[:, i:j] = np.add.reduceat(powers * y[a:b], local, axis=1)
-            i = j
-        self.centres = centres
-        self.half_width = half
-        self.rate_limit = TAYLOR_RHO / half
+        complex_y = self.y.dtype.kind == "c"
+        y_re = np.ascontiguousarray(self.y.real)
+        y_im = np.ascontiguousarray(self.y.imag) if complex_y else y_re[:0]
+        mw, my_re, my_im = _bin_moments(self.tau, self.w, y_re, y_im, lo, width, n_bins,
+                                        TAYLOR_ORDER)
+        used = mw[:, 0] > 0  # weights are positive: empty bins have no weight
+        my = my_re[used] + 1j * my_im[used] if complex_y else my_re[used]
         inv_factorial = 1.0 / np.array([math.factorial(m) for m in range(TAYLOR_ORDER)])
         # moments scaled by 1/m!, laid out (B, 2M): weight moments, then data moments
-        self.moments = np.concatenate([mw.T.astype(my.dtype), my.T], axis=1)
+        self.moments = np.concatenate([mw[used].astype(my.dtype), my], axis=1)
         self.moments *= np.concatenate([inv_factorial, inv_factorial])
+        self.centres = lo + (np.flatnonzero(used) + 0.5) * width
+        self.half_width = half
+        self.rate_limit = TAYLOR_RHO / half
         self._real = self.moments.dtype.kind == "f"
         self.compressed = True
-        self.n_bins = n_used
+        self.n_bins = int(used.sum())
 
     def __call__(self, rates: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
         """``(S_w(r), S_y(r))`` for every rate; arrays of the shape of ``rates``.
