@@ -181,7 +181,7 @@ def _transition_derivatives(lifetime: float, n_thermal: float, intervals: ArrayL
     scale = np.exp(half[None, :] - half[:, None])  # sqrt(pi_j / pi_i)
     dts = np.atleast_1d(np.asarray(intervals, dtype=float))
     decay = np.exp(lam[None, :] * dts[:, None])  # (m, N)
-    p = np.einsum("ik,mk,jk->mij", vecs, decay, vecs) * scale
+    p = (vecs[None] * decay[:, None, :]) @ vecs.T[None] * scale
     top = np.maximum(lam[:, None], lam[None, :])
     gap = np.abs(lam[:, None] - lam[None, :])
     x = gap[None] * dts[:, None, None]
@@ -191,7 +191,7 @@ def _transition_derivatives(lifetime: float, n_thermal: float, intervals: ArrayL
     grads = []
     for d_s, g_n in zip(d_sym, g, strict=True):
         inner = vecs.T @ d_s @ vecs
-        df = np.einsum("ik,mkl,jl->mij", vecs, div * inner[None], vecs) * scale
+        df = vecs[None] @ (div * inner[None]) @ vecs.T[None] * scale
         grads.append((g_n[None, None, :] - g_n[None, :, None]) * p + df)
     return np.clip(p, 0.0, 1.0), np.stack(grads)
 
