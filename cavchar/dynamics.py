@@ -50,6 +50,7 @@ __all__ = [
     "bose_einstein",
     "DampedModePropagator",
     "transition_matrices_batch",
+    "symmetric_eigen_batch",
     "populations",
     "mean_photon_number",
 ]
@@ -136,6 +137,34 @@ def _symmetric_parts(kappa: np.ndarray, n_th: np.ndarray, n_levels: int):
     log_ratio = np.log(n_th / (1.0 + n_th))[:, None]
     sqrt_pi = np.exp(0.5 * n * log_ratio)
     return diag, off, sqrt_pi
+
+
+def _tridiagonal_stack(diag: np.ndarray, off: np.ndarray) -> np.ndarray:
+    """Symmetric tridiagonal matrices (k, N, N) from diagonals (k, N) and off-diagonals (k, N-1)."""
+    k, n_levels = diag.shape
+    sym = np.zeros((k, n_levels, n_levels))
+    idx = np.arange(n_levels)
+    sym[:, idx, idx] = diag
+    sym[:, idx[:-1], idx[1:]] = off
+    sym[:, idx[1:], idx[:-1]] = off
+    return sym
+
+
+def symmetric_eigen_batch(
+    kappa: ArrayLike, n_th: ArrayLike, n_levels: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Eigen-decomposition of the symmetrized generator for a batch of parameter sets.
+
+    Returns ``(lam, vecs, half_log_r)`` with ``lam`` (k, N) <= 0, ``vecs`` (k, N, N) and
+    ``half_log_r = ln(n_th / (1 + n_th)) / 2`` (k,), so that (module docstring)
+    ``P(dt)[i, j] = exp(half_log_r (j - i)) sum_m vecs[i, m] vecs[j, m] exp(lam_m dt)``.
+    Needs ``n_th > 0``.
+    """
+    kappa = np.atleast_1d(np.asarray(kappa, dtype=float))
+    n_th = np.atleast_1d(np.asarray(n_th, dtype=float))
+    diag, off, _ = _symmetric_parts(kappa, n_th, n_levels)
+    lam, vecs = np.linalg.eigh(_tridiagonal_stack(diag, off))
+    return np.minimum(lam, 0.0), vecs, 0.5 * np.log(n_th / (1.0 + n_th))
 
 
 def _amplification(n_th: float, rows: np.ndarray) -> np.ndarray:
@@ -265,12 +294,7 @@ def transition_matrices_batch(
     good = _EPS * amp <= _EIGEN_TOLERANCE
     if np.any(good):
         diag, off, sqrt_pi = _symmetric_parts(kappa[good], n_th[good], n_levels)
-        sym = np.zeros((int(good.sum()), n_levels, n_levels))
-        idx = np.arange(n_levels)
-        sym[:, idx, idx] = diag
-        sym[:, idx[:-1], idx[1:]] = off
-        sym[:, idx[1:], idx[:-1]] = off
-        lam, vecs = np.linalg.eigh(sym)
+        lam, vecs = np.linalg.eigh(_tridiagonal_stack(diag, off))
         lam = np.minimum(lam, 0.0)
         right = vecs / sqrt_pi[:, :, None]
         left = np.swapaxes(vecs, 1, 2) * sqrt_pi[:, None, :]

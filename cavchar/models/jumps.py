@@ -38,7 +38,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike
 
-from cavchar.dynamics import truncation_levels
+from cavchar.dynamics import symmetric_eigen_batch, truncation_levels
 
 __all__ = [
     "JumpStatistics",
@@ -94,6 +94,25 @@ class JumpStatistics:
         }
 
 
+def _dwells(times, photons, segment_ends, segments):
+    """Arrays, segment start/end row indices and the dwell of each row (s): until the
+    next change point of its segment, or the segment's end time."""
+    times = np.asarray(times, dtype=float)
+    photons = np.asarray(photons, dtype=np.int64)
+    if segments is None:
+        segments = np.zeros(times.size, dtype=np.int64)
+    segments = np.asarray(segments)
+    starts = np.flatnonzero(np.r_[True, segments[1:] != segments[:-1]])
+    ends_idx = np.r_[starts[1:], times.size]
+    segment_ends = np.asarray(segment_ends, dtype=float).reshape(-1)
+    if segment_ends.size != starts.size:
+        raise ValueError("one end time per segment is needed")
+    next_time = np.empty_like(times)
+    next_time[:-1] = times[1:]
+    next_time[ends_idx - 1] = segment_ends
+    return times, photons, starts, ends_idx, next_time - times
+
+
 def jump_statistics(
     times: ArrayLike, photons: ArrayLike, segment_ends: ArrayLike, segments: ArrayLike | None = None
 ) -> JumpStatistics:
@@ -112,21 +131,7 @@ def jump_statistics(
     segments : (m,) array, optional
         Segment label of each row (rows of a segment contiguous); one segment if None.
     """
-    times = np.asarray(times, dtype=float)
-    photons = np.asarray(photons, dtype=np.int64)
-    if segments is None:
-        segments = np.zeros(times.size, dtype=np.int64)
-    segments = np.asarray(segments)
-    starts = np.flatnonzero(np.r_[True, segments[1:] != segments[:-1]])
-    ends_idx = np.r_[starts[1:], times.size]
-    segment_ends = np.asarray(segment_ends, dtype=float)
-    if segment_ends.size != starts.size:
-        raise ValueError("one end time per segment is needed")
-    # end of each dwell: next change point within the segment, else the segment end
-    next_time = np.empty_like(times)
-    next_time[:-1] = times[1:]
-    next_time[ends_idx - 1] = segment_ends
-    dwell = next_time - times
+    times, photons, starts, ends_idx, dwell = _dwells(times, photons, segment_ends, segments)
     if np.any(dwell < 0):
         raise ValueError("segment end time before its last change point")
     steps = np.diff(photons)
@@ -280,23 +285,8 @@ def sampled_log_likelihood(
     ok = (lifetime > 0) & (n_thermal > 0) & np.isfinite(lifetime) & np.isfinite(n_thermal)
     if not np.any(ok):
         return out
-    kappa = 1.0 / lifetime[ok]
     nth = n_thermal[ok]
-    n = np.arange(n_levels, dtype=float)
-    a = (kappa * nth)[:, None]
-    b = (kappa * (1.0 + nth))[:, None]
-    up = a * (n + 1)
-    up[:, -1] = 0.0
-    sym = np.zeros((kappa.size, n_levels, n_levels))
-    idx = np.arange(n_levels)
-    sym[:, idx, idx] = -(up + b * n)
-    off = np.sqrt(a * b) * n[1:]
-    sym[:, idx[:-1], idx[1:]] = off
-    sym[:, idx[1:], idx[:-1]] = off
-    lam, vecs = np.linalg.eigh(sym)
-    lam = np.minimum(lam, 0.0)
-    # P_ij = sqrt(pi_j / pi_i) sum_m V_im V_jm exp(lam_m dt),  sqrt(pi_j/pi_i) = r^((j-i)/2)
-    half_log_r = 0.5 * np.log(nth / (1.0 + nth))
+    lam, vecs, half_log_r = symmetric_eigen_batch(1.0 / lifetime[ok], nth, n_levels)
     weights = vecs[:, trans.from_state, :] * vecs[:, trans.to_state, :]  # (k, g, N)
     decay = np.exp(lam[:, None, :] * trans.steps[None, :, None])  # (k, u, N)
     prob = np.einsum("kgm,kgm->kg", weights, decay[:, trans.step_index, :])
@@ -334,19 +324,10 @@ def dwell_times(
     dwell of a segment is left-censored but, by memorylessness, its remaining
     duration has the same exponential law, so it is complete if it ends in a jump.
     """
-    times = np.asarray(times, dtype=float)
-    photons = np.asarray(photons, dtype=np.int64)
-    if segments is None:
-        segments = np.zeros(times.size, dtype=np.int64)
-    segments = np.asarray(segments)
-    starts = np.flatnonzero(np.r_[True, segments[1:] != segments[:-1]])
-    ends_idx = np.r_[starts[1:], times.size]
-    next_time = np.empty_like(times)
-    next_time[:-1] = times[1:]
-    next_time[ends_idx - 1] = np.asarray(segment_ends, dtype=float)
-    complete = np.ones(times.size, dtype=bool)
+    _, photons, _, ends_idx, dwell = _dwells(times, photons, segment_ends, segments)
+    complete = np.ones(photons.size, dtype=bool)
     complete[ends_idx - 1] = False
-    return next_time - times, photons, complete
+    return dwell, photons, complete
 
 
 def exact_fisher_information(lifetime: float, n_thermal: float, duration: float) -> np.ndarray:
