@@ -368,7 +368,8 @@ def plan_probes(
     info = fisher.probe_information(lifetime, n_thermal, probe_interval, response,
                                     settings=settings, loss=loss, n_records=information_records,
                                     max_probes=max_information_probes, seed=rng)
-    forecast = Forecast("probes", info, 1.0, "probes", "probes", True, freq_hz, probe_interval)
+    forecast = Forecast("probes", info, 1.0, "number of probes", "probes", True, freq_hz,
+                        probe_interval)
     table = _table(forecast, targets, None if n_probes is None else float(n_probes))
     count = int(round(table.attrs["planned_amount"]))
     jumps = 2 * n_thermal * (1 + n_thermal) / lifetime * count * probe_interval
@@ -447,7 +448,7 @@ def plan_ringdown(
     if "n_thermal" not in info.names and (target_n_thermal or target_temperature):
         raise InputError(f"a {signal} ring-down carries no information on n_th",
                          hint="n_th enters mean-photon-number and population ring-downs")
-    forecast = Forecast(kind, info, 1.0, "traces", "traces", True, freq_hz)
+    forecast = Forecast(kind, info, 1.0, "number of traces", "traces", True, freq_hz)
     targets = _targets(lifetime=target_lifetime, n_thermal=target_n_thermal,
                        effective_temperature=target_temperature)
     table = _table(forecast, targets, None if n_traces is None else float(n_traces))

@@ -72,7 +72,7 @@ def plot_plan(table, fig=None, amounts=None):
         ax.axvline(planned, color="#4a4a4a", linewidth=0.8, linestyle="--")
         ax.set_xscale("log")
         ax.set_yscale("log")
-        ax.set_xlabel(f"{name} [{unit}]" if unit and unit != name else name)
+        ax.set_xlabel(f"{name} [{unit}]" if unit == "s" else name)
         ax.set_ylabel("expected relative sd [%]")
         ax.set_title(f"precision forecast ({table.attrs.get('kind', '')})")
         ax.legend(loc="upper right")
