@@ -223,7 +223,7 @@ def _few_jumps(expected_jumps: float) -> None:
     if expected_jumps < 30:
         warnings.warn(f"the planned record holds only about {expected_jumps:.0f} jumps: the "
                       "Cramér–Rao forecast is optimistic for so few; see the simulation study",
-                      StudyDisagreementWarning, stacklevel=3)
+                      CavcharWarning, stacklevel=3)
 
 
 def _records(check_records: int, cost_per_record: float) -> int:
