@@ -1,0 +1,167 @@
+"""Ring-down traces of every signal kind with their noise models.
+
+Power, dB, amplitude (Rice), IQ, mean photon number and Fock-population counts
+(see :func:`simulate_ringdown`), decaying with ``u = exp(-(t - t0) / T_c)``,
+``T_c`` the energy lifetime.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+
+import numpy as np
+from numpy.typing import ArrayLike
+
+from cavchar.errors import InputError
+from cavchar.records import RingdownTrace
+from cavchar.simulate._common import Seed, check_physics, rng_from, truth_metadata
+
+__all__ = ["simulate_ringdown"]
+
+
+def simulate_ringdown(
+    signal: str,
+    times: ArrayLike,
+    lifetime: float,
+    *,
+    amplitude: float = 1.0,
+    floor: float = 0.0,
+    t0: float = 0.0,
+    noise: float = 0.0,
+    detuning: float = 0.0,
+    phase: float = 0.0,
+    offset: complex = 0.0,
+    n_th: float = 0.0,
+    initial: int | ArrayLike = 1,
+    shots: int = 1000,
+    n_levels: int | None = None,
+    traces: int = 1,
+    known_sigma: bool | None = None,
+    seed: Seed = None,
+    metadata: Mapping[str, object] | None = None,
+) -> RingdownTrace:
+    """Ring-down traces of one signal kind, with ``u = exp(-(t - t0) / T_c)``:
+
+    * ``power``: ``A u + floor + noise * N(0, 1)`` (linear power);
+    * ``db``: ``10 log10(A u + floor) + noise * N(0, 1)`` (noise in dB);
+    * ``amplitude``: ``|A e^{i phase} u^(1/2) + noise (X + iY)|`` — the field
+      decays with the amplitude decay time 2 T_c; X, Y standard normal, so the
+      magnitude is Rice distributed;
+    * ``iq``: ``A e^{i phase} u^(1/2) exp(-2 pi i detuning (t - t0)) + offset
+      + noise (X + iY)``;
+    * ``mean_n``: ``n_th + (n0 - n_th) u + noise * N(0, 1)``, ``n0`` the mean
+      of the initial state;
+    * ``populations``: counts of photon numbers at each delay ``t - t0`` after
+      preparing ``initial`` (a Fock number or a distribution), multinomial with
+      ``shots`` shots and probabilities from :func:`cavchar.dynamics.populations`.
+
+    Parameters
+    ----------
+    signal : str
+        One of :data:`cavchar.records.SIGNALS` (``mean-n`` accepted).
+    times : array (m,)
+        Sample times in s, increasing.
+    lifetime : float
+        Energy lifetime T_c in s.
+    amplitude, floor : float
+        ``A`` (power units for power/db; field units for amplitude/iq) and the
+        power floor (power/db).
+    t0 : float
+        Start of the decay in s.
+    noise : float
+        Standard deviation (value units; per quadrature for amplitude/iq; dB for db).
+    detuning : float
+        IQ detuning in Hz.
+    phase : float
+        Phase of the field at t0 in rad (amplitude/iq).
+    offset : complex
+        Constant IQ offset.
+    n_th : float
+        Thermal photon number (mean_n, populations).
+    initial : int or array
+        Initial Fock number, or initial distribution (mean_n, populations).
+    shots, n_levels : int
+        Shots per delay and number of photon-number columns (default: a
+        truncation whose neglected tail is < 1e-12) for populations.
+    traces : int
+        Number of independent traces on the same times (ids 0, 1, ...).
+    known_sigma : bool, optional
+        Write the noise level as the ``sigma`` column (default: only for mean_n).
+    """
+    signal = str(signal).lower().replace("-", "_")
+    kappa = check_physics(lifetime, n_th)
+    times = np.asarray(times, dtype=float)
+    if times.ndim != 1 or times.size == 0 or traces < 1 or noise < 0:
+        raise InputError("give at least one time, traces >= 1 and noise >= 0")
+    rng = rng_from(seed)
+    m = times.size
+    decay = np.exp(-(times - t0) * kappa)
+    shape = (int(traces), m)
+    extra: dict[str, object] = {"signal": signal, "true_t0": f"{t0!r} s"}
+    if signal in ("power", "db"):
+        clean = amplitude * decay + floor
+        extra.update(true_amplitude=repr(amplitude), true_floor=repr(floor))
+        if signal == "db":
+            if np.any(clean <= 0):
+                raise InputError("a dB trace needs amplitude * decay + floor > 0 at all times")
+            clean = 10.0 * np.log10(clean)
+        value = clean + noise * rng.standard_normal(shape)
+    elif signal in ("amplitude", "iq"):
+        field = amplitude * np.exp(1j * phase) * np.sqrt(decay)
+        extra.update(true_amplitude=repr(amplitude), true_phase=f"{phase!r} rad")
+        if signal == "iq":
+            field = field * np.exp(-2j * np.pi * detuning * (times - t0)) + offset
+            extra.update(true_detuning=f"{detuning!r} Hz", true_offset=repr(complex(offset)))
+        value = field + noise * (rng.standard_normal(shape) + 1j * rng.standard_normal(shape))
+        if signal == "amplitude":
+            value = np.abs(value)
+    elif signal in ("mean_n", "populations"):
+        p0 = _initial_distribution(initial)
+        if signal == "mean_n":
+            n0 = float(np.dot(np.arange(p0.size), p0))
+            value = n_th + (n0 - n_th) * decay + noise * rng.standard_normal(shape)
+            known_sigma = True if known_sigma is None else known_sigma
+        else:
+            value = _population_counts(kappa, n_th, p0, times - t0, shots, n_levels, shape, rng)
+            known_sigma = False
+        extra.update(true_initial_mean=repr(float(np.dot(np.arange(p0.size), p0))))
+    else:
+        raise InputError(f"unknown signal kind {signal!r}",
+                         hint="choose power, db, amplitude, iq, mean_n or populations")
+    if signal == "populations":
+        extra["shots"] = str(shots)
+    sigma = None
+    if known_sigma and noise > 0:
+        sigma = np.full(shape[0] * m, float(noise))
+    ids = np.repeat(np.arange(shape[0]), m)
+    value = value.reshape((shape[0] * m,) + value.shape[2:])
+    meta = truth_metadata(lifetime, n_th, seed, {**extra, **(metadata or {})})
+    return RingdownTrace(np.tile(times, shape[0]), value, signal, sigma=sigma, trace=ids,
+                         metadata=meta)
+
+
+def _initial_distribution(initial) -> np.ndarray:
+    if np.ndim(initial) == 0:
+        n0 = int(initial)
+        if n0 != initial or n0 < 0:
+            raise InputError(f"the initial Fock number must be a whole number >= 0, not {initial}")
+        p0 = np.zeros(n0 + 1)
+        p0[n0] = 1.0
+        return p0
+    p0 = np.asarray(initial, float)
+    if p0.ndim != 1 or np.any(p0 < 0) or not np.isclose(p0.sum(), 1.0, atol=1e-9):
+        raise InputError("the initial distribution must be probabilities summing to 1")
+    return p0
+
+
+def _population_counts(kappa, n_th, p0, delays, shots, n_levels, shape, rng) -> np.ndarray:
+    from cavchar.dynamics import populations
+
+    if np.any(delays < 0):
+        raise InputError("populations are simulated for times after t0 only")
+    if int(shots) != shots or shots < 1:
+        raise InputError(f"shots must be a whole number >= 1, not {shots}")
+    p = populations(kappa, n_th, p0, delays, n_levels=n_levels)  # (m, N)
+    p = np.clip(p, 0.0, None)
+    p /= p.sum(axis=1, keepdims=True)
+    return rng.multinomial(int(shots), np.broadcast_to(p, (shape[0],) + p.shape))
