@@ -1,0 +1,138 @@
+"""Shared base of the validated records: metadata, source tracking and the checks
+every record runs (finite numbers, whole numbers, contiguous groups, increasing times).
+
+Errors are :class:`~cavchar.errors.InputError` naming the source file and line
+when the record came from a file (``source`` and ``lines``), or the 1-based row
+otherwise.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from types import MappingProxyType
+
+import numpy as np
+from numpy.typing import ArrayLike
+
+from cavchar.errors import InputError
+
+__all__ = ["RecordBase", "readonly_array", "segment_spans"]
+
+
+def readonly_array(array: np.ndarray, given: object = None) -> np.ndarray:
+    """``array`` made read-only, copied only if it is a writeable array of the caller
+    (``given``): the caller's arrays are never frozen, nor aliased while writeable.
+    Read-only input arrays are kept as they are (no copy)."""
+    array = np.ascontiguousarray(array)
+    if array.flags.writeable and isinstance(given, np.ndarray) and np.may_share_memory(
+            array, given):
+        array = array.copy()
+    array.setflags(write=False)
+    return array
+
+
+@dataclass(frozen=True, eq=False, repr=False)
+class RecordBase:
+    """Shared metadata, source tracking and validation helpers."""
+
+    def _init_common(self) -> None:
+        meta = MappingProxyType({str(k): str(v) for k, v in dict(self.metadata or {}).items()})
+        object.__setattr__(self, "metadata", meta)
+        if self.lines is not None:
+            lines = np.asarray(self.lines, dtype=np.int64)
+            object.__setattr__(self, "lines", readonly_array(lines, self.lines))
+
+    def _error(self, message: str, row: int | None = None, hint: str | None = None) -> InputError:
+        line = None
+        if row is not None:
+            if self.lines is not None and 0 <= row < len(self.lines):
+                if self.line_kind == "line":
+                    line = int(self.lines[row])
+                else:
+                    message = f"{self.line_kind} {int(self.lines[row])}: {message}"
+            else:
+                message = f"row {row + 1}: {message}"
+        return InputError(message, path=self.source, line=line, hint=hint)
+
+    def _float(self, name: str, values: ArrayLike, n: int | None, allow_nan: bool = False):
+        array = np.asarray(values, dtype=np.float64)
+        if array.ndim != 1 or (n is not None and array.size != n):
+            raise self._error(f"{name} must be a 1-D array" + (f" of {n} values" if n else ""))
+        bad = np.isinf(array) if allow_nan else ~np.isfinite(array)
+        if bad.any():
+            row = int(np.argmax(bad))
+            raise self._error(f"{name} is not a finite number ({array[row]})", row,
+                              hint=f"every {name} must be a finite number")
+        return array
+
+    def _integers(self, name: str, values: ArrayLike, n: int, minimum: int | None = None):
+        raw = np.asarray(values)
+        if raw.dtype.kind in "iu":
+            array = raw.astype(np.int64)
+        else:
+            floats = self._float(name, raw, n)
+            big = np.abs(floats) >= 2.0**62  # beyond int64: astype would wrap
+            array = np.where(big, 0.0, floats).astype(np.int64) if big.any() else \
+                floats.astype(np.int64)
+            bad = (array != floats) | big
+            if bad.any():
+                row = int(np.argmax(bad))
+                raise self._error(f"{name} {floats[row]} is not a whole number", row,
+                                  hint=f"{name} must be whole numbers")
+        if array.ndim != 1 or array.size != n:
+            raise self._error(f"{name} must be a 1-D array of {n} values")
+        if minimum is not None and (array < minimum).any():
+            row = int(np.argmax(array < minimum))
+            raise self._error(f"{name} {array[row]} is negative", row,
+                              hint=f"{name} must be >= {minimum}")
+        return array
+
+    def _groups(self, name: str, ids: ArrayLike | None, n: int):
+        """Integer ids per row -> (ids, unique ids in order, bounds (k+1,))."""
+        array = np.zeros(n, np.int64) if ids is None else self._integers(name, ids, n)
+        change = np.flatnonzero(array[1:] != array[:-1]) + 1
+        bounds = np.concatenate(([0], change, [n])).astype(np.int64)
+        order = array[bounds[:-1]]
+        if np.unique(order).size != order.size:
+            seen: set[int] = set()
+            for start, value in zip(bounds[:-1], order, strict=True):
+                if int(value) in seen:
+                    raise self._error(
+                        f"{name} {value} starts again after other {name}s", int(start),
+                        hint=f"keep the rows of each {name} together, in increasing time")
+                seen.add(int(value))
+        return array, order, bounds
+
+    def _increasing(self, time: np.ndarray, bounds: np.ndarray, name: str) -> None:
+        """Strictly increasing times inside every group."""
+        if time.size < 2:
+            return
+        step = np.diff(time)
+        inside = np.ones(time.size - 1, bool)
+        inside[bounds[1:-1] - 1] = False  # steps across a group boundary don't count
+        bad = inside & (step <= 0)
+        if bad.any():
+            row = int(np.argmax(bad)) + 1
+            what = "repeats" if step[row - 1] == 0 else "goes back from"
+            raise self._error(f"time {time[row]} s {what} the previous row's {time[row - 1]} s",
+                              row, hint=f"times must increase strictly within each {name}; "
+                              f"start a new {name} for data taken again")
+
+    def quantity(self, key: str, dimension: str, default: float | None = None) -> float | None:
+        """Metadata value ``key`` parsed as a quantity (SI), e.g. ``quantity("frequency",
+        "frequency")`` for ``# frequency: 6.8 GHz``; ``default`` when absent."""
+        from cavchar.units import parse_quantity
+
+        if key not in self.metadata:
+            return default
+        try:
+            return parse_quantity(self.metadata[key], dimension)
+        except InputError as exc:
+            raise InputError(f"metadata {key!r}: {exc.message}", path=self.source,
+                             hint=exc.hint) from None
+
+
+def segment_spans(bounds: np.ndarray):
+    """``(start, stop)`` row spans of the groups delimited by ``bounds`` (k+1,)."""
+    return zip(bounds[:-1], bounds[1:], strict=True)
+

@@ -1,0 +1,217 @@
+"""Photon-number records: exact change points (:class:`JumpRecord`) and the photon
+number observed at probe times (:class:`SampledRecord`).  Times in s."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import NamedTuple
+
+import numpy as np
+
+from cavchar.records.base import RecordBase, readonly_array, segment_spans
+
+__all__ = ["JumpRecord", "SampledRecord", "JumpSegment", "SampledSegment"]
+
+_SAMPLED_HINT = ("if the photon number was observed at probe times (several jumps may happen "
+                 "between rows), read the file as a sampled record (read_sampled_record, or "
+                 "--sampled on the command line)")
+
+
+class JumpSegment(NamedTuple):
+    """One segment of a :class:`JumpRecord`: change times (s), photon numbers, end time (s)."""
+
+    id: int
+    time: np.ndarray
+    photons: np.ndarray
+    end_time: float
+
+
+class SampledSegment(NamedTuple):
+    """One segment of a :class:`SampledRecord`: probe times (s) and photon numbers."""
+
+    id: int
+    time: np.ndarray
+    photons: np.ndarray
+
+
+@dataclass(frozen=True, eq=False, repr=False)
+class JumpRecord(RecordBase):
+    """Exact photon-number change points of one or more segments.
+
+    Row ``i`` says the photon number is ``photons[i]`` from ``time[i]`` until
+    the next row of its segment, or until the segment's ``end_time``.  Within a
+    segment consecutive photon numbers differ by at most one (an exact record
+    resolves every jump; a repeated number is allowed and is no jump).
+
+    Parameters
+    ----------
+    time : array (m,)
+        Change times in s, strictly increasing within each segment.  The first
+        row of a segment is its start (its photon number is the initial state).
+    photons : array (m,)
+        Photon number (whole number >= 0) from this row on.
+    end_time : float or array (k,)
+        End of each segment in s (after its last row), in order of appearance;
+        a scalar serves a single segment.
+    segment : array (m,), optional
+        Integer segment id of each row (default: one segment, id 0).
+    metadata : mapping, optional
+        Free ``key -> value`` strings (e.g. ``frequency: 6.8 GHz``).
+    source, lines, line_kind : optional
+        File, 1-based line (``line_kind="line"``, text files) or row
+        (``line_kind="row"``, binary files) of each record row in that file,
+        used in error messages.
+    """
+
+    time: np.ndarray
+    photons: np.ndarray
+    end_time: np.ndarray
+    segment: np.ndarray | None = None
+    metadata: Mapping[str, str] = field(default_factory=dict)
+    source: str | None = None
+    lines: np.ndarray | None = None
+    line_kind: str = "line"
+    segment_ids: np.ndarray = field(init=False)
+    bounds: np.ndarray = field(init=False)
+
+    def __post_init__(self) -> None:
+        self._init_common()
+        time = self._float("time", self.time, None)
+        m = time.size
+        if m == 0:
+            raise self._error("the record has no rows", hint="give at least one change point")
+        photons = self._integers("photon number", self.photons, m, minimum=0)
+        segment, ids, bounds = self._groups("segment", self.segment, m)
+        self._increasing(time, bounds, "segment")
+        end = np.atleast_1d(np.asarray(self.end_time, dtype=np.float64))
+        if end.size == 1 and ids.size > 1:
+            raise self._error(f"one end time given for {ids.size} segments",
+                              hint="give one end time per segment (an end row in each)")
+        if end.shape != ids.shape:
+            raise self._error(f"{end.size} end times for {ids.size} segments",
+                              hint="give one end time per segment")
+        last = bounds[1:] - 1
+        bad = ~np.isfinite(end) | (end <= time[last])
+        if bad.any():
+            j = int(np.argmax(bad))
+            raise self._error(f"segment {ids[j]} ends at {end[j]} s, not after its last change "
+                              f"at {time[last[j]]} s", int(last[j]),
+                              hint="the end time must come after the last row of its segment")
+        step = np.diff(photons)
+        inside = np.ones(max(m - 1, 0), bool)
+        inside[bounds[1:-1] - 1] = False
+        bad = inside & (np.abs(step) > 1)
+        if bad.any():
+            row = int(np.argmax(bad)) + 1
+            raise self._error(f"the photon number jumps from {photons[row - 1]} to "
+                              f"{photons[row]} at {time[row]} s; an exact record changes by "
+                              "one photon at a time", row, hint=_SAMPLED_HINT)
+        for name, value in (("time", time), ("photons", photons), ("end_time", end),
+                            ("segment", segment), ("segment_ids", ids), ("bounds", bounds)):
+            object.__setattr__(self, name, readonly_array(value, getattr(self, name, None)))
+
+    def __repr__(self) -> str:
+        return (f"JumpRecord({self.time.size} rows, {self.n_jumps} jumps, "
+                f"{self.segment_ids.size} segment(s), {self.observed_time:.6g} s observed, "
+                f"source={self.source!r})")
+
+    def __len__(self) -> int:
+        return int(self.time.size)
+
+    @property
+    def n_segments(self) -> int:
+        return int(self.segment_ids.size)
+
+    @property
+    def n_jumps(self) -> int:
+        """Number of one-photon jumps (rows whose photon number differs from the previous)."""
+        step = np.diff(self.photons)
+        step[self.bounds[1:-1] - 1] = 0
+        return int(np.count_nonzero(step))
+
+    @property
+    def observed_time(self) -> float:
+        """Total observed time in s: sum over segments of end time minus first row time."""
+        return float(np.sum(self.end_time - self.time[self.bounds[:-1]]))
+
+    @property
+    def max_photons(self) -> int:
+        return int(self.photons.max())
+
+    def dwell_times(self) -> np.ndarray:
+        """Time in s each row's photon number is held (m,): next row's time (or the
+        segment's end time) minus this row's time.  The first and last dwell of a
+        segment are censored by the segment's start and end."""
+        following = np.empty_like(self.time)
+        following[:-1] = self.time[1:]
+        following[self.bounds[1:] - 1] = self.end_time
+        return following - self.time
+
+    def segments(self) -> list[JumpSegment]:
+        """Per-segment arrays (read-only views), in file order."""
+        return [JumpSegment(int(i), self.time[a:b], self.photons[a:b], float(e))
+                for i, (a, b), e in zip(self.segment_ids, segment_spans(self.bounds),
+                                        self.end_time, strict=True)]
+
+
+@dataclass(frozen=True, eq=False, repr=False)
+class SampledRecord(RecordBase):
+    """Photon number observed at probe times (regular or irregular), per segment.
+
+    Unlike a :class:`JumpRecord`, consecutive samples may differ by any number
+    of photons (several jumps can happen between two samples).
+
+    Parameters
+    ----------
+    time : array (m,)
+        Probe times in s, strictly increasing within each segment.
+    photons : array (m,)
+        Photon number observed at each time (whole numbers >= 0).
+    segment : array (m,), optional
+        Integer segment id of each row (default one segment, id 0).
+    metadata, source, lines, line_kind : optional
+        As for :class:`JumpRecord`.
+    """
+
+    time: np.ndarray
+    photons: np.ndarray
+    segment: np.ndarray | None = None
+    metadata: Mapping[str, str] = field(default_factory=dict)
+    source: str | None = None
+    lines: np.ndarray | None = None
+    line_kind: str = "line"
+    segment_ids: np.ndarray = field(init=False)
+    bounds: np.ndarray = field(init=False)
+
+    def __post_init__(self) -> None:
+        self._init_common()
+        time = self._float("time", self.time, None)
+        if time.size == 0:
+            raise self._error("the record has no rows", hint="give at least one sample")
+        photons = self._integers("photon number", self.photons, time.size, minimum=0)
+        segment, ids, bounds = self._groups("segment", self.segment, time.size)
+        self._increasing(time, bounds, "segment")
+        for name, value in (("time", time), ("photons", photons), ("segment", segment),
+                            ("segment_ids", ids), ("bounds", bounds)):
+            object.__setattr__(self, name, readonly_array(value, getattr(self, name, None)))
+
+    def __repr__(self) -> str:
+        return (f"SampledRecord({self.time.size} samples, {self.segment_ids.size} segment(s), "
+                f"source={self.source!r})")
+
+    def __len__(self) -> int:
+        return int(self.time.size)
+
+    @property
+    def n_segments(self) -> int:
+        return int(self.segment_ids.size)
+
+    @property
+    def max_photons(self) -> int:
+        return int(self.photons.max())
+
+    def segments(self) -> list[SampledSegment]:
+        """Per-segment arrays (read-only views), in file order."""
+        return [SampledSegment(int(i), self.time[a:b], self.photons[a:b])
+                for i, (a, b) in zip(self.segment_ids, segment_spans(self.bounds), strict=True)]

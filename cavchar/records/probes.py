@@ -1,0 +1,103 @@
+"""Raw probe records: the 0/1 outcome of every probe (NaN = lost), with optional
+probe settings (rad) and segments.  Times in s."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import NamedTuple
+
+import numpy as np
+
+from cavchar.records.base import RecordBase, readonly_array, segment_spans
+
+__all__ = ["ProbeRecord", "ProbeSegment"]
+
+
+class ProbeSegment(NamedTuple):
+    """One segment of a :class:`ProbeRecord`: times (s), outcomes, settings (rad) or None."""
+
+    id: int
+    time: np.ndarray
+    outcome: np.ndarray
+    setting: np.ndarray | None
+
+
+@dataclass(frozen=True, eq=False, repr=False)
+class ProbeRecord(RecordBase):
+    """Raw outcome of every probe.
+
+    Parameters
+    ----------
+    time : array (m,)
+        Probe times in s, strictly increasing within each segment.
+    outcome : array (m,)
+        0.0 or 1.0; NaN for a lost probe (its time still advances the record).
+    setting : array (m,), optional
+        Probe phase setting in rad of each probe (when settings are interleaved).
+    segment : array (m,), optional
+        Integer segment id of each row (default one segment, id 0).
+    metadata, source, lines, line_kind : optional
+        As for :class:`JumpRecord`.
+    """
+
+    time: np.ndarray
+    outcome: np.ndarray
+    setting: np.ndarray | None = None
+    segment: np.ndarray | None = None
+    metadata: Mapping[str, str] = field(default_factory=dict)
+    source: str | None = None
+    lines: np.ndarray | None = None
+    line_kind: str = "line"
+    segment_ids: np.ndarray = field(init=False)
+    bounds: np.ndarray = field(init=False)
+
+    def __post_init__(self) -> None:
+        self._init_common()
+        time = self._float("time", self.time, None)
+        m = time.size
+        if m == 0:
+            raise self._error("the record has no rows", hint="give at least one probe")
+        outcome = self._float("outcome", self.outcome, m, allow_nan=True)
+        bad = ~np.isnan(outcome) & (outcome != 0) & (outcome != 1)
+        if bad.any():
+            row = int(np.argmax(bad))
+            raise self._error(f"outcome {outcome[row]} is neither 0 nor 1", row,
+                              hint="write 0 or 1, or leave the cell empty for a lost probe")
+        setting = None if self.setting is None else self._float("setting", self.setting, m)
+        segment, ids, bounds = self._groups("segment", self.segment, m)
+        self._increasing(time, bounds, "segment")
+        for name, value in (("time", time), ("outcome", outcome), ("setting", setting),
+                            ("segment", segment), ("segment_ids", ids), ("bounds", bounds)):
+            object.__setattr__(self, name, None if value is None
+                               else readonly_array(value, getattr(self, name, None)))
+
+    def __repr__(self) -> str:
+        return (f"ProbeRecord({self.time.size} probes, {self.n_lost} lost, "
+                f"{self.segment_ids.size} segment(s), source={self.source!r})")
+
+    def __len__(self) -> int:
+        return int(self.time.size)
+
+    @property
+    def n_segments(self) -> int:
+        return int(self.segment_ids.size)
+
+    @property
+    def n_lost(self) -> int:
+        return int(np.count_nonzero(np.isnan(self.outcome)))
+
+    @property
+    def lost(self) -> np.ndarray:
+        """Boolean mask (m,) of lost probes."""
+        return np.isnan(self.outcome)
+
+    def settings_used(self) -> np.ndarray:
+        """Distinct settings in rad (sorted); ``[0.0]`` when the record has none."""
+        return np.zeros(1) if self.setting is None else np.unique(self.setting)
+
+    def segments(self) -> list[ProbeSegment]:
+        """Per-segment arrays (read-only views), in file order."""
+        return [ProbeSegment(int(i), self.time[a:b], self.outcome[a:b],
+                             None if self.setting is None else self.setting[a:b])
+                for i, (a, b) in zip(self.segment_ids, segment_spans(self.bounds), strict=True)]
