@@ -241,9 +241,12 @@ class IQDecay:
         return self.start.copy()
 
     def _needed_limit(self, lifetime: float, detuning: float) -> float:
-        """Rates the posterior needs: ``1/T_c`` and ``|s|`` with generous headroom."""
-        return 3.0 * (2.0 / lifetime + 2 * math.pi * abs(detuning)) + 40.0 / max(
-            self.series.span, 1e-300)
+        """Rates the posterior needs, ``1/T_c`` and ``|s|``, with headroom for ``T_c``
+        down to 2/3 of the start and ``delta`` within 1.5/span of it (other rates are
+        summed directly: the headroom affects speed only)."""
+        rate = 1.5 / lifetime
+        return max(rate, abs(0.5 * rate + 2j * math.pi * (abs(detuning) + 1.5 / max(
+            self.series.span, 1e-300))))
 
     def _compressed(self, lifetime: float, detuning: float, offset: complex) -> ExponentialSums:
         return ExponentialSums(self.tau, self.z, self.weights, offset=offset,

@@ -103,7 +103,9 @@ class DecibelDecay:
             t = theta[s:s + step]
             mu = db_model(self.tau, t[:, 0:1], t[:, 1:2], t[:, 2:3])
             res = self.y - mu
-            out[s:s + step] = (res * res).sum(axis=1) if self._w is None else (res * res) @ self._w
+            sq = res * res
+            out[s:s + step] = sq.sum(axis=1) if self._w is None else np.einsum("kn,n->k", sq,
+                                                                                 self._w)
         return out
 
     def log_likelihood(self, theta: np.ndarray) -> np.ndarray:

@@ -277,8 +277,8 @@ class _Projection:
         rates = np.exp(theta)
         phi = _design(self.tau, rates, self.floor) * self.sw[:, None]
         q, r = np.linalg.qr(phi)
-        coef = np.linalg.solve(r, q.T @ self.yw)
-        res = self.yw - phi @ coef
+        coef = np.linalg.solve(r, np.einsum("np,n->p", q, self.yw))
+        res = self.yw - np.einsum("np,p->n", phi, coef)
         out = (rates, phi, q, r, coef, res)
         self._cache = (np.array(theta), out)
         return out
@@ -292,10 +292,10 @@ class _Projection:
         for k in range(self.n_exp):
             d = -rates[k] * self.tau * phi[:, k]  # d phi_k / d ln r_k (weighted)
             a = coef[k] * d
-            a = a - q @ (q.T @ a)
+            a = a - np.einsum("np,p->n", q, np.einsum("np,n->p", q, a))
             e = np.zeros(r.shape[0])
-            e[k] = d @ res
-            b = q @ np.linalg.solve(r.T, e)
+            e[k] = np.einsum("n,n->", d, res)
+            b = np.einsum("np,p->n", q, np.linalg.solve(r.T, e))
             jac[:, k] = -(a + b)
         return jac
 
@@ -357,7 +357,7 @@ def _polish(tau, y, w, rates, floor, max_iter=12):
     for _ in range(max_iter + 1):
         phi = _design(tau, rates, floor) * sw[:, None]
         coef = np.linalg.lstsq(phi, y * sw, rcond=None)[0]
-        res = y * sw - phi @ coef
+        res = y * sw - np.einsum("np,p->n", phi, coef)
         rss = float(res @ res)
         if best is not None and rss > best[3] * (1 + 1e-9):
             break

@@ -25,7 +25,8 @@ __all__ = ["TwoExponentialPower", "ModelComparison", "compare_exponentials"]
 class TwoExponentialPower:
     """``A_1 e^{-tau/T_1} + A_2 e^{-tau/T_2} + F`` on one trace, ``T_1 > T_2``.
 
-    Sampled: ``lifetime_1, lifetime_2`` (s), ``amplitude_1, amplitude_2`` (data
+    Sampled: ``lifetime`` (the slower, ``T_1``), ``lifetime_fast`` (``T_2``) in s and
+    ``amplitude``, ``amplitude_fast`` (data
     units, uniform on ``[0, A_max]``); the floor is marginalized (flat prior) and
     an unknown noise scale too (``1/sigma`` prior): with ``z = y - A_1 e_1 - A_2 e_2``,
 
@@ -52,10 +53,13 @@ class TwoExponentialPower:
                                     rate_limit=limit)
         low, high = default_lifetime_bounds([series])
         self.parameters = (
-            ParameterInfo("lifetime_1", "s", "T_1", low, high, True, "slower energy lifetime"),
-            ParameterInfo("lifetime_2", "s", "T_2", low, high, True, "faster energy lifetime"),
-            ParameterInfo("amplitude_1", "", "A_1", 0.0, self.amplitude_max, False),
-            ParameterInfo("amplitude_2", "", "A_2", 0.0, self.amplitude_max, False),
+            ParameterInfo("lifetime", "s", "T_1", low, high, True,
+                          "slower energy lifetime (the column named lifetime)"),
+            ParameterInfo("lifetime_fast", "s", "T_2", low, high, True, "faster energy lifetime"),
+            ParameterInfo("amplitude", "", "A_1", 0.0, self.amplitude_max, False,
+                          "amplitude of the slower decay at t0"),
+            ParameterInfo("amplitude_fast", "", "A_2", 0.0, self.amplitude_max, False,
+                          "amplitude of the faster decay at t0"),
         )
         n = series.n
         if self.fitted_sigma:

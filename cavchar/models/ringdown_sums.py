@@ -227,7 +227,7 @@ class ExponentialSums:
 
     def _moment_sums(self, r: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         expo = np.exp(np.multiply.outer(-r, self.centres))  # (k, B)
-        proj = expo @ self.moments  # (k, 2M)
+        proj = np.einsum("kb,bm->km", expo, self.moments)  # (k, 2M), no threaded BLAS
         powers = np.vander(-r * self.half_width, TAYLOR_ORDER, increasing=True)  # (k, M)
         sw = (proj[:, :TAYLOR_ORDER] * powers).sum(axis=1)
         sy = (proj[:, TAYLOR_ORDER:] * powers).sum(axis=1)
@@ -247,6 +247,7 @@ class ExponentialSums:
         for start in range(0, r.size, step):
             block = r[start:start + step]
             e = np.exp(-np.multiply.outer(block, self.tau))  # (kb, n)
-            sw[start:start + step] = e @ self.w
-            sy[start:start + step] = e @ self.wy
+            # einsum, not BLAS: threaded BLAS on a busy shared machine stalls on these
+            sw[start:start + step] = np.einsum("kn,n->k", e, self.w)
+            sy[start:start + step] = np.einsum("kn,n->k", e, self.wy)
         return sw, sy

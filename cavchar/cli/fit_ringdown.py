@@ -1,0 +1,142 @@
+"""``cavchar fit ringdown``: energy lifetime (and n_th) from ring-down traces."""
+
+from __future__ import annotations
+
+import argparse
+import dataclasses
+import shlex
+import sys
+
+from cavchar.cli.common import (
+    HelpFormatter,
+    add_fit_context_options,
+    add_output_options,
+    add_sampler_options,
+    check_outputs,
+    finish_fit_command,
+    quantity,
+    settings_from_args,
+)
+
+SIGNAL_CHOICES = ("power", "power2", "db", "amplitude", "iq", "mean-n", "populations")
+
+EXAMPLES = """examples:
+  cavchar fit ringdown decay.csv --signal power --freq 6.8GHz -o fit_out
+  cavchar fit ringdown zero_span.csv --signal db --start-time 20us --time-unit ms
+  cavchar fit ringdown run1.csv run2.csv --signal power     (shared lifetime)
+  cavchar fit ringdown iq.npz --signal iq --freq 6.8GHz --prior lifetime=loguniform:10us,1s
+  cavchar fit ringdown counts.csv --signal populations --initial 2 --freq 6.8GHz \\
+      --stage-temp 20mK -o fit_out
+
+Signals: power (linear, A exp(-t/T_c) + floor), power2 (two exponentials), db
+(10 log10 of power, Gaussian noise in dB), amplitude (field magnitude, decays in
+2 T_c, Rice noise), iq (complex samples with detuning), mean-n (mean photon
+number relaxing to n_th), populations (photon-number counts after a Fock state).
+T_c is always the energy lifetime; the amplitude decay time 2 T_c is printed
+separately.  File formats: docs/data-formats.md; the fit: docs/ringdown.md.
+"""
+
+
+def register_fit(kinds: argparse._SubParsersAction) -> None:
+    parser = kinds.add_parser(
+        "ringdown",
+        help="ring-down traces: power, dB, magnitude, IQ, mean photon number, populations",
+        description="Posterior of the energy lifetime T_c = 1/kappa from ring-down traces by "
+        "MCMC (amplitudes, floors and unknown noise marginalized where exact), with Q, "
+        "linewidth and the amplitude decay time 2 T_c; mean-n and populations also give n_th, "
+        "the effective temperature and, with --stage-temp, the Planck check.",
+        epilog=EXAMPLES,
+        formatter_class=HelpFormatter,
+    )
+    parser.add_argument("traces", nargs="+",
+                        help="trace file(s) (CSV/TSV, .gz, NPZ, Parquet); several files share "
+                        "T_c")
+    parser.add_argument("--signal", choices=SIGNAL_CHOICES, default=None,
+                        help="signal kind (default: from the column names)")
+    parser.add_argument("--start-time", type=quantity("time"), default=None,
+                        help="drop samples before this time (switch-off transient), e.g. 20us; "
+                        "also the reference time of the amplitudes")
+    parser.add_argument("--time-unit", default="s",
+                        help="unit of the time column, e.g. ms or us")
+    parser.add_argument("--initial", default=None, metavar="STATE",
+                        help="populations: prepared Fock number (e.g. 2) or distribution "
+                        "(e.g. 0,0.3,0.7); default: most frequent number at the first delay")
+    parser.add_argument("--n0", type=float, default=None,
+                        help="mean-n: fix the initial mean photon number instead of fitting it")
+    parser.add_argument("--allow-negative", action="store_true",
+                        help="accept negative linear power (background-subtracted traces)")
+    parser.add_argument("--no-compare", action="store_true",
+                        help="skip the comparison of a power trace with two exponentials")
+    parser.add_argument("--prior", action="append", default=[], metavar="NAME=PRIOR",
+                        help="prior of a parameter, e.g. lifetime=loguniform:10us,1s or "
+                        "n_thermal=uniform:0,0.5 (repeatable; others default to wide "
+                        "log-uniform ranges)")
+    add_fit_context_options(parser)
+    add_sampler_options(parser)
+    add_output_options(parser)
+    parser.set_defaults(func=handle)
+
+
+def _initial(text: str | None):
+    from cavchar.errors import InputError
+
+    if text is None:
+        return None
+    try:
+        parts = [float(x) for x in text.split(",")]
+    except ValueError:
+        raise InputError(f"cannot read --initial {text!r}",
+                         hint="a Fock number such as 2 or probabilities such as 0,0.3,0.7") \
+            from None
+    if len(parts) == 1:
+        return int(parts[0]) if parts[0] == int(parts[0]) else parts
+    return parts
+
+
+def _priors(items: list[str], freq_hz: float | None) -> dict:
+    from cavchar.errors import InputError
+    from cavchar.priors import parse_prior
+
+    dimensions = {"lifetime": "time", "lifetime_fast": "time", "detuning": "frequency",
+                  "n_thermal": "dimensionless"}
+    out = {}
+    for item in items:
+        name, sep, text = item.partition("=")
+        if not sep or not name.strip():
+            raise InputError(f"cannot read --prior {item!r}",
+                             hint="NAME=PRIOR, e.g. lifetime=loguniform:10us,1s")
+        name = name.strip()
+        out[name] = parse_prior(text.strip(), dimensions.get(name, "dimensionless"),
+                                freq_hz=freq_hz)
+    return out
+
+
+def handle(args: argparse.Namespace) -> int:
+    from cavchar.fits.ringdown import DEFAULT_SETTINGS, fit_ringdown
+
+    check_outputs(args)
+    settings = dataclasses.replace(settings_from_args(args), chunk=DEFAULT_SETTINGS.chunk,
+                                   target_ess=DEFAULT_SETTINGS.target_ess)
+    result = fit_ringdown(
+        list(args.traces),
+        signal=args.signal,
+        freq_hz=args.freq,
+        stage_temp_k=args.stage_temp,
+        start_time=args.start_time,
+        time_unit=args.time_unit,
+        priors=_priors(args.prior, args.freq),
+        settings=settings,
+        initial=_initial(args.initial),
+        n0=args.n0,
+        allow_negative_power=args.allow_negative,
+        compare=not args.no_compare,
+        command="cavchar " + shlex.join(sys.argv[1:]) if sys.argv else None,
+    )
+    code = finish_fit_command(result, args)
+    comparison = result.checks.get("two_exponentials")
+    if comparison:
+        print("one or two exponentials: " + comparison["statement"])
+    residuals = result.checks.get("residuals", {})
+    for flag in residuals.get("flags", []):
+        print("residual check: " + flag)
+    return code
