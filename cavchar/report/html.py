@@ -131,7 +131,7 @@ def _status_line(result: Any) -> str:
 
 
 def _result_section(index: int, result: Any, label: str, *, truths: Mapping | None,
-                    record: Any, counter: _Counter) -> tuple[str, str]:
+                    record: Any, counter: _Counter, figures: bool = True) -> tuple[str, str]:
     anchor = f"fit-{index}"
     parts = [f'<section class="fit" id="{anchor}">',
              f"<h2>{index}. {esc(label)}</h2>", _status_line(result)]
@@ -142,19 +142,22 @@ def _result_section(index: int, result: Any, label: str, *, truths: Mapping | No
     planck = (result.checks or {}).get("planck")
     parts.append("<h3>Planck check</h3>")
     parts.append(planck_html(planck, result))
-    figures, notes = data_figures(result, record)
-    parts.append("<h3>Data and fit</h3>")
-    for fig in figures:
-        parts.append(_figure_html(fig, counter.next()))
-    for note in notes:
-        parts.append(f'<p class="note">{esc(note)}</p>')
-    if not figures and not notes:
-        parts.append('<p class="note">No data figure is available for this fit kind.</p>')
+    if figures:
+        made, notes = data_figures(result, record)
+        parts.append("<h3>Data and fit</h3>")
+        for fig in made:
+            parts.append(_figure_html(fig, counter.next()))
+        for note in notes:
+            parts.append(f'<p class="note">{esc(note)}</p>')
     parts.append("<h3>Model checks</h3>")
     parts.append(checks_html(result))
     parts.append("<h3>Posterior and sampler</h3>")
-    for fig in sampler_figures(result, truths=dict(truths) if truths else None):
-        parts.append(_figure_html(fig, counter.next()))
+    if figures:
+        for fig in sampler_figures(result, truths=dict(truths) if truths else None):
+            parts.append(_figure_html(fig, counter.next()))
+    else:
+        parts.append('<p class="note">Figures of this result are left out to keep the page '
+                     "short; its result file holds every posterior draw.</p>")
     parts.append(diagnostics_html(result))
     parts.append("<h3>Priors and settings</h3>")
     parts.append(priors_html(result))
@@ -213,6 +216,7 @@ def render_report(
     records: Sequence[Any] | None = None,
     extra_sections: Sequence[Any] = (),
     intro: str | None = None,
+    figures: bool | Sequence[bool] = True,
 ) -> str:
     """The report as one HTML string (see :func:`write_report` for the arguments)."""
     from cavchar import __version__
@@ -223,8 +227,9 @@ def render_report(
         result_label(r, s) for r, s in zip(loaded, sources, strict=True)]
     truths = list(truths) if truths is not None else [None] * n
     records = list(records) if records is not None else [None] * n
-    if not (len(labels) == len(truths) == len(records) == n):
-        raise InputError("labels, truths and records need one entry per result")
+    draw = [bool(figures)] * n if isinstance(figures, bool) else [bool(f) for f in figures]
+    if not (len(labels) == len(truths) == len(records) == len(draw) == n):
+        raise InputError("labels, truths, records and figures need one entry per result")
     counter = _Counter()
     contents, body = [], []
     if n > 1:
@@ -232,12 +237,17 @@ def render_report(
         contents.append('<li><a href="#comparison">Results side by side</a></li>')
     for i, (result, label) in enumerate(zip(loaded, labels, strict=True), start=1):
         anchor, text = _result_section(i, result, label, truths=truths[i - 1],
-                                       record=records[i - 1], counter=counter)
+                                       record=records[i - 1], counter=counter,
+                                       figures=draw[i - 1])
         body.append(text)
         contents.append(f'<li><a href="#{anchor}">{esc(label)}</a></li>')
+    used: set[str] = {"comparison", "cautions", *(f"fit-{i}" for i in range(1, n + 1))}
     for j, raw in enumerate(extra_sections, start=1):
         section = _extra(raw, counter)
         anchor = section.anchor or f"extra-{j}"
+        if anchor in used:
+            anchor = f"{anchor}-{j}"
+        used.add(anchor)
         body.append(f'<section class="extra" id="{esc(anchor)}"><h2>{esc(section.title)}</h2>'
                      f"{section.html}</section>")
         contents.append(f'<li><a href="#{esc(anchor)}">{esc(section.title)}</a></li>')
@@ -268,6 +278,7 @@ def write_report(
     records: Sequence[Any] | None = None,
     extra_sections: Sequence[Any] = (),
     intro: str | None = None,
+    figures: bool | Sequence[bool] = True,
 ) -> Path:
     """Write one self-contained HTML report of fit results.
 
@@ -296,6 +307,8 @@ def write_report(
         and :func:`cavchar.tracking.thermal_budget`.
     intro
         A paragraph of plain text under the title.
+    figures
+        Draw the figures of every result (True), of none, or per result.
 
     Returns
     -------
@@ -306,5 +319,5 @@ def write_report(
 
     target = check_can_write(out_path, force)
     text = render_report(results, title=title, labels=labels, truths=truths, records=records,
-                         extra_sections=extra_sections, intro=intro)
+                         extra_sections=extra_sections, intro=intro, figures=figures)
     return write_text_atomic(target, text, force=force)

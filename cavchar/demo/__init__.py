@@ -1,0 +1,1 @@
+"""The invented demo scenario and the command that runs the whole job on it."""
