@@ -3,7 +3,8 @@
 Run from the repository root::
 
     python tests/calibration/measure.py            # quick forms + small-record coverage
-    python tests/calibration/measure.py --mcmc     # also the SBC ranks through the sampler
+    python tests/calibration/measure.py --mcmc     # also the SBC ranks through the samplers
+    python tests/calibration/measure.py --mcmc --no-coverage
 
 Everything is seeded: the output is the same on every run.
 """
@@ -31,8 +32,9 @@ from test_sbc_jumps import _conjugate_ranks  # noqa: E402
 
 def _show(name, result):
     p = ", ".join(f"{x:.3g}" for x in result["p_chi2"])
-    z = ", ".join(f"{x:+.2f}" for x in result["z_width"])
-    print(f"  {name:<34} chi-square p (T_c, n_th) = {p};  width z = {z}")
+    q = ", ".join(f"{x:.3g}" for x in result["p_scale"])
+    f = ", ".join(f"{x:.2f}" for x in result["scale"])
+    print(f"  {name:<32} chi-square p = {p};  scale p = {q};  scale = {f}")
 
 
 def main() -> None:
@@ -51,6 +53,22 @@ def main() -> None:
         for f in (2.0, 0.5):
             _show(f"posterior sd x {f:g} (control)", uniformity(
                 ranks(truth, [widen(d, f) for d in draws]), 49, 5))
+    if "--mcmc" in sys.argv:
+        import warnings
+
+        from test_sbc_probes_ringdown import _quick_settings as ring_settings
+        from test_sbc_probes_ringdown import _ringdown_ranks
+
+        print("SBC, power ring-downs through fit_ringdown (40 simulations, 49 draws, 5 bins):")
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            truth, draws = _ringdown_ranks(40, 49, seed=61, settings=ring_settings())
+        _show("posterior as sampled", uniformity(ranks(truth, draws), 49, 5))
+        for f in (2.0, 0.5):
+            _show(f"posterior sd x {f:g} (control)", uniformity(
+                ranks(truth, [widen(d, f) for d in draws]), 49, 5))
+        print(f"  ({len(caught)} warnings from the fits: "
+              + "; ".join(sorted({str(w.message)[:60] for w in caught})) + ")")
     print("Efficiency: exact posterior sd / Cramér–Rao bound (T_c, n_th):")
     for n, dur in ((0.01, 200.0), (0.05, 50.0), (0.5, 5.0)):
         rng = np.random.default_rng(3)
@@ -59,6 +77,8 @@ def main() -> None:
         sd = np.sqrt(w @ (d - w @ d) ** 2)
         r = sd / _bound(1.2e-3, n, dur)
         print(f"  n_th = {n:<5} {dur:>5.0f} s, {st.up + st.down:>5} jumps: {r[0]:.3f}, {r[1]:.3f}")
+    if "--no-coverage" in sys.argv:
+        return
     print("Coverage at T_c = 1.2 ms, n_th = 0.05 (68% T_c, 68% n_th, 95% T_c, 95% n_th):")
     for dur, m in ((0.02, 3000), (0.05, 3000), (0.2, 3000), (1.0, 3000), (12.0, 3000)):
         jumps = 2 * 0.05 * 1.05 / 1.2e-3 * dur
