@@ -199,7 +199,7 @@ def corner_plot(
     columns
         Columns to show (default: the fitted parameters).
     truths
-        Known true values in SI units, drawn as lines (only with two or more columns).
+        Known true values in SI units, drawn as lines.
     max_draws
         At most this many draws are plotted (evenly thinned) to keep the figure light.
     fig
@@ -253,6 +253,8 @@ def corner_plot(
             truths=truth_list, truth_color=PALETTE[1], bins=30, smooth=1.0,
             max_n_ticks=4, use_math_text=True,
         )
+        if truths and k == 1 and truths.get(names[0]) is not None:
+            fig.axes[0].axvline(truths[names[0]] * scales[0], color=PALETTE[1])
     return fig
 
 

@@ -118,6 +118,14 @@ KNOWN_CAPTIONS: dict[str, tuple[str, str]] = {
                     "Fraction of complete dwells in each photon number longer than a given "
                     "time, against the exponential law of the fit (dashed: median; band: 95%). "
                     "The damped-mode model predicts a straight line on this log scale."),
+    "ringdown_fit": ("The ring-down with the posterior fit",
+                     "The measured trace against time with the model's median and its 68% and "
+                     "95% bands; below, the residuals in units of the noise level. Residuals "
+                     "without structure are what a good fit leaves."),
+    "trajectory": ("The probe record and the reconstructed photon number",
+                   "An excerpt of the raw probe outcomes with the photon number reconstructed "
+                   "from them by the hidden Markov model (posterior mean with its spread, and "
+                   "the most probable path)."),
 }
 
 
@@ -209,8 +217,9 @@ def sampler_figures(result: Any, truths: dict[str, float] | None = None) -> list
     out = [Figure("Posterior draws (corner plot)",
                   "Marginal posterior of each fitted parameter (diagonal; dashed lines at the "
                   "16th, 50th and 84th percentiles) and of each pair (contours holding about "
-                  "39% and 86% of the draws)." + (" Red lines: the true values of the "
-                                                 "simulation." if truths else ""),
+                  "39% and 86% of the draws)."
+                  + (" Solid brick-coloured lines: the true values of the simulation."
+                     if truths else ""),
                   corner_plot(result, truths=truths))]
     stored = result_trace(result) is not None
     out.append(Figure("Chain traces",
@@ -254,8 +263,10 @@ def comparison_figure(results: Sequence[Any], labels: Sequence[str]):
                 lo95, lo68, med, hi68, hi95 = np.quantile(
                     values * factor, [0.025, 0.15865, 0.5, 0.84135, 0.975])
                 style = series(i, line=False)
-                ax.plot([i, i], [lo95, hi95], color=style["color"], lw=1.0, solid_capstyle="butt")
-                ax.plot([i, i], [lo68, hi68], color=style["color"], lw=4.0, solid_capstyle="butt")
+                ax.plot([i, i], [lo95, hi95], color=style["color"], lw=1.0, linestyle="-",
+                        solid_capstyle="butt")
+                ax.plot([i, i], [lo68, hi68], color=style["color"], lw=4.0, linestyle="-",
+                        solid_capstyle="butt")
                 ax.plot([i], [med], linestyle="none", ms=6, **style)
             if name == "n_thermal" and pooled.min() > 0 and pooled.max() / pooled.min() > 30:
                 ax.set_yscale("log")

@@ -149,23 +149,25 @@ def _result_section(index: int, result: Any, label: str, *, truths: Mapping | No
             parts.append(_figure_html(fig, counter.next()))
         for note in notes:
             parts.append(f'<p class="note">{esc(note)}</p>')
-    parts.append("<h3>Model checks</h3>")
-    parts.append(checks_html(result))
-    parts.append("<h3>Posterior and sampler</h3>")
+    details = ["<h3>Model checks</h3>", checks_html(result), "<h3>Posterior and sampler</h3>"]
     if figures:
         for fig in sampler_figures(result, truths=dict(truths) if truths else None):
-            parts.append(_figure_html(fig, counter.next()))
-    else:
-        parts.append('<p class="note">Figures of this result are left out to keep the page '
-                     "short; its result file holds every posterior draw.</p>")
-    parts.append(diagnostics_html(result))
-    parts.append("<h3>Priors and settings</h3>")
-    parts.append(priors_html(result))
+            details.append(_figure_html(fig, counter.next()))
+    details.append(diagnostics_html(result))
+    details.append("<h3>Priors and settings</h3>")
+    details.append(priors_html(result))
     settings = json.dumps(result.settings, indent=1, sort_keys=True)
-    parts.append(f"<details><summary>every setting of this fit (JSON)</summary>"
-                 f"<pre>{esc(settings)}</pre></details>")
-    parts.append("<h3>Provenance</h3>")
-    parts.append(provenance_html(result))
+    details.append(f"<details><summary>every setting of this fit (JSON)</summary>"
+                   f"<pre>{esc(settings)}</pre></details>")
+    details.append("<h3>Provenance</h3>")
+    details.append(provenance_html(result))
+    if figures:
+        parts += details
+    else:  # a compact section: the rest folded away
+        parts.append('<details class="fold"><summary>model checks, convergence, priors and '
+                     "provenance of this fit (its figures are left out to keep the page "
+                     "short; the result file holds every draw)</summary>"
+                     + "".join(details) + "</details>")
     parts.append("</section>")
     return anchor, "\n".join(parts)
 

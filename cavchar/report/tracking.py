@@ -28,6 +28,17 @@ def _trend_plots():
     return module
 
 
+def _styled(plot, obj):
+    """Draw with the cavchar look (the plotting function's own rc settings still apply);
+    the colour cycle without line styles, since such functions set their own."""
+    from cycler import cycler
+
+    from cavchar.plots.style import PALETTE, apply_style
+
+    with apply_style({"axes.prop_cycle": cycler(color=list(PALETTE))}):
+        return plot(obj)
+
+
 def _interval_cell(stats: Any, dimension: str) -> str:
     if stats is None:
         return "–"
@@ -69,7 +80,7 @@ def trend_section(trend: Any, figure_html: FigureHtml) -> Section:
             f"Trend of cavity {trend.cavity} across cooldowns",
             "Median with 68% (thick) and 95% (thin) intervals per cooldown; the lifetime points "
             "carry the probability that the lifetime fell against the reference.",
-            plots.plot_trend(trend))))
+            _styled(plots.plot_trend, trend))))
     return Section(f"Trend across cooldowns: {trend.cavity}", "".join(parts), "trend")
 
 
@@ -140,7 +151,7 @@ def budget_section(budget: Any, figure_html: FigureHtml) -> Section:
         parts.append(figure_html(Figure(
             "Thermal photons against stage temperature",
             "Measured n_th (68% and 95% intervals), the Planck occupation of the stage and the "
-            "stated budget model (median and 95% band).", plots.plot_budget(budget))))
+            "stated budget model (median and 95% band).", _styled(plots.plot_budget, budget))))
     return Section("Thermal budget", "".join(parts), "budget")
 
 
