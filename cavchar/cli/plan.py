@@ -198,7 +198,8 @@ def _run(args):
 def _amount(value: float, table) -> str:
     if table.attrs["amount_unit"] == "s":
         return format_quantity(value, "time")
-    return f"{value:.0f} {table.attrs['amount_unit']}"
+    unit = table.attrs["amount_unit"]
+    return f"{value:.0f} {unit[:-1] if round(value) == 1 and unit.endswith('s') else unit}"
 
 
 def format_table(table) -> str:
