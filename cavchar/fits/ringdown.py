@@ -70,8 +70,13 @@ def _initial_distribution(initial, counts: np.ndarray) -> tuple[np.ndarray, str]
     return p0, "distribution " + ", ".join(f"{x:.3g}" for x in p0)
 
 
-def build_ringdown_model(data: RingdownData, *, initial=None, n0: float | None = None):
-    """The likelihood model for prepared data; returns (model, description of the state)."""
+def build_ringdown_model(data: RingdownData, *, initial=None, n0: float | None = None,
+                         fits=None):
+    """The likelihood model for prepared data; returns (model, description of the state).
+
+    ``fits``: the least-squares fits of :func:`decay_check`, reused as the start
+    of a single power trace.
+    """
     from cavchar.models import ringdown as rd
 
     signal = data.signal
@@ -80,6 +85,8 @@ def build_ringdown_model(data: RingdownData, *, initial=None, n0: float | None =
         return rd.PopulationDecay(data.series[0].tau, data.counts, p0), state
     if signal == "mean-n":
         return rd.MeanPhotonDecay(list(data.series), n0=n0), None
+    if signal == "power" and len(data.series) == 1 and fits:
+        return rd.PowerDecay(list(data.series), start=fits[0]), None
     return rd.build_model(signal, list(data.series)), None
 
 
@@ -131,12 +138,12 @@ def _compression_check(model, draws: np.ndarray) -> dict | None:
             "points_checked": 5}
 
 
-def _comparison(data: RingdownData) -> dict | None:
+def _comparison(data: RingdownData, fits) -> dict | None:
     if data.signal not in ("power", "power2") or len(data.series) != 1:
         return None
     from cavchar.models.ringdown import compare_exponentials
 
-    cmp = compare_exponentials(data.series[0])
+    cmp = compare_exponentials(data.series[0], one=fits[0] if fits else None)
     out = {"bic_one": cmp.bic_one, "bic_two": cmp.bic_two, "aic_one": cmp.aic_one,
            "aic_two": cmp.aic_two, "delta_bic": cmp.delta_bic,
            "evidence_ratio_two_over_one": cmp.evidence_ratio, "preferred": cmp.preferred,
@@ -215,8 +222,8 @@ def fit_ringdown(
     """
     data = prepare(trace_or_paths, signal, start_time=start_time, time_unit=time_unit,
                    allow_negative_power=allow_negative_power)
-    decay = decay_check(data)
-    model, state = build_ringdown_model(data, initial=initial, n0=n0)
+    decay, fits = decay_check(data)
+    model, state = build_ringdown_model(data, initial=initial, n0=n0, fits=fits)
     specs = _specs(model, priors)
     settings = ringdown_settings(settings, seed)
     run = sample_posterior(model.log_likelihood, specs, _inside(model.initial_guess(), specs),
@@ -229,7 +236,7 @@ def fit_ringdown(
     compression = _compression_check(model, run.draws)
     if compression is not None:
         checks["compression"] = compression
-    comparison = _comparison(data) if compare else None
+    comparison = _comparison(data, fits) if compare else None
     if comparison is not None:
         checks["two_exponentials"] = comparison
     extras = {"signal": data.signal,

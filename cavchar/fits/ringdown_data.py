@@ -195,11 +195,12 @@ def decay_check(data: RingdownData) -> dict:
     floor.  Raises :class:`InputError` when the decaying amplitude is below
     :data:`DECAY_SIGNIFICANCE` standard errors, when the best decay is at the
     slow end of the search (far slower than the record) or at the fast end
-    (faster than the sampling).  Returns a plain-JSON summary per trace.
+    (faster than the sampling).  Returns a plain-JSON summary per trace and the
+    fits (:class:`~cavchar.models.ringdown_lsq.ExponentialFit`), for reuse.
     """
     from cavchar.models.ringdown_lsq import fit_exponentials
 
-    out = []
+    out, fits = [], []
     for s in data.series:
         y = np.asarray(s.values)
         sigma = s.sigma
@@ -234,5 +235,6 @@ def decay_check(data: RingdownData) -> dict:
             raise InputError(f"trace {s.label} grows instead of decaying", path=where,
                              hint="check the time axis and the signal kind")
         out.append(info)
-    return {"traces": out, "significance_threshold": DECAY_SIGNIFICANCE}
+        fits.append(fit)
+    return {"traces": out, "significance_threshold": DECAY_SIGNIFICANCE}, fits
 

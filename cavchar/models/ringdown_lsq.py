@@ -51,7 +51,7 @@ __all__ = ["ExponentialFit", "fit_exponentials", "profile_objective", "gram_matr
            "validate_trace"]
 
 #: traces longer than this are refined on compressed sums instead of full residuals
-LONG_TRACE = 20_000
+LONG_TRACE = 4096
 #: traces longer than this are bin-averaged to this many points for the grid search
 GRID_POINTS = 2048
 _GRID_SIZE = {1: 64, 2: 32, 3: 22}
@@ -488,7 +488,7 @@ def fit_exponentials(
     tau = t - t0
     rate_range = _default_rate_range(tau) if rate_range is None else tuple(map(float, rate_range))
     grid_size = grid_size or _GRID_SIZE[n_exp]
-    n_starts = n_starts or (3 if n_exp == 1 else 8)
+    n_starts = n_starts or (3 if n_exp == 1 else 8 if tau.size <= LONG_TRACE else 4)
     starts, grid = _grid_starts(tau, y, w, n_exp, floor, rate_range, grid_size, n_starts)
     sums = None
     if tau.size <= LONG_TRACE:
@@ -542,6 +542,15 @@ def _refine_short(tau, y, w, n_exp, floor, starts):
 
 
 def _refine_long(tau, y, w, n_exp, floor, starts, grid):
+    """Long traces.  One rate: bounded Brent search on the compressed sums (which the
+    posterior models reuse).  Several rates: variable projection with Levenberg-Marquardt
+    on the bin-averaged trace of the grid search, a start that the Gauss-Newton polish
+    on the full data then finishes (its steps converge quadratically from there)."""
+    if n_exp > 1:
+        tb, yb, wb = _bin_average(tau, y, w, GRID_POINTS)
+        rates, _ = _refine_short(tb, yb, wb, n_exp, floor, starts)
+        return (rates, "variable projection on the bin-averaged trace, Gauss-Newton polish "
+                "on the full data", None)
     step = float(grid[1] / grid[0])
     limit = 2.0 * float(np.max(starts)) * max(step**3, 5.0)
     # subtracting a floor estimate (the mean of the last 5% of the trace) keeps the
@@ -550,20 +559,12 @@ def _refine_long(tau, y, w, n_exp, floor, starts, grid):
     sums = [ExponentialSums(tau, y, w, rate_limit=limit, offset=offset)]
     best, best_value = None, math.inf
     for start in starts:
-        if n_exp == 1:
-            lo, hi = math.log(start[0] / step**2), math.log(start[0] * step**2)
-            sol = optimize.minimize_scalar(
-                lambda x: float(profile_objective(sums, np.array([[math.exp(x)]]), floor,
-                                                  False)[0]),
-                bounds=(lo, hi), method="bounded", options={"xatol": 1e-10})
-            x, value = np.array([sol.x]), float(sol.fun)
-        else:
-            sol = optimize.minimize(
-                lambda x: float(profile_objective(sums, np.exp(x)[None], floor, False)[0]),
-                np.log(start), method="Nelder-Mead",
-                options={"xatol": 1e-10, "fatol": 1e-12, "maxiter": 4000})
-            x, value = sol.x, float(sol.fun)
-        if value < best_value:
-            best, best_value = np.exp(x), value
+        lo, hi = math.log(start[0] / step**2), math.log(start[0] * step**2)
+        sol = optimize.minimize_scalar(
+            lambda x: float(profile_objective(sums, np.array([[math.exp(x)]]), floor,
+                                              False)[0]),
+            bounds=(lo, hi), method="bounded", options={"xatol": 1e-10})
+        if float(sol.fun) < best_value:
+            best, best_value = np.array([math.exp(sol.x)]), float(sol.fun)
     return (best, "variable projection on compressed exponential sums, Gauss-Newton polish",
             sums[0])

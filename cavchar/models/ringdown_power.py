@@ -136,6 +136,9 @@ class PowerDecay:
     compress
         Use the compressed exponential sums (exact to rounding; see
         :mod:`cavchar.models.ringdown_sums`).  ``False``: brute force.
+    start
+        Optional least-squares fit of the single trace already made
+        (:func:`~cavchar.models.ringdown_lsq.fit_exponentials`, ``t0 = 0``).
 
     Attributes
     ----------
@@ -148,7 +151,8 @@ class PowerDecay:
     signal = "power"
 
     def __init__(self, series: Sequence[DecaySeries], *,
-                 amplitude_max: Sequence[float] | None = None, compress: bool = True) -> None:
+                 amplitude_max: Sequence[float] | None = None, compress: bool = True,
+                 start=None) -> None:
         self.series = list(series)
         if not self.series:
             raise ValueError("at least one trace is needed")
@@ -158,7 +162,8 @@ class PowerDecay:
         fitted = [s.sigma is None for s in self.series]
         if len(self.series) == 1:
             s = self.series[0]
-            self.start = fit_exponentials(s.tau, s.values, 1, sigma=s.sigma, t0=0.0)
+            # ``start``: a one-exponential fit of this very trace (t0 = 0), to reuse
+            self.start = start or fit_exponentials(s.tau, s.values, 1, sigma=s.sigma, t0=0.0)
             rate = float(self.start.rates[0])
             rel_sd = float(self.start.stderr[1]) / rate
             floors = [self.start.floor]

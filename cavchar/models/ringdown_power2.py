@@ -185,11 +185,14 @@ def _criteria(fit, n: int, known: bool, k_extra: int) -> tuple[float, float]:
     return fit_term + k * math.log(n), fit_term + 2 * k
 
 
-def compare_exponentials(series: DecaySeries) -> ModelComparison:
-    """Compare one and two exponentials (with floor) on one trace; see :class:`ModelComparison`."""
+def compare_exponentials(series: DecaySeries, one=None) -> ModelComparison:
+    """Compare one and two exponentials (with floor) on one trace; see :class:`ModelComparison`.
+
+    ``one``: the one-exponential least-squares fit of this trace (``t0 = 0``), if made.
+    """
     known = series.sigma is not None
     n = series.n
-    one = fit_exponentials(series.tau, series.values, 1, sigma=series.sigma, t0=0.0)
+    one = one or fit_exponentials(series.tau, series.values, 1, sigma=series.sigma, t0=0.0)
     bic1, aic1 = _criteria(one, n, known, 0 if known else 1)
     try:
         two = fit_exponentials(series.tau, series.values, 2, sigma=series.sigma, t0=0.0)

@@ -215,7 +215,11 @@ class ExponentialSums:
         out_y = np.empty(r.size, dtype=cdtype)
         fast = np.abs(r) <= self.rate_limit if self.compressed else np.zeros(r.size, bool)
         if fast.any():
-            sw, sy = self._moment_sums(r[fast])
+            if self._real and r.dtype.kind == "f":
+                sw, sy = _real_moment_sums(np.ascontiguousarray(r[fast]), self.centres,
+                                           self.half_width, self.moments)
+            else:
+                sw, sy = self._moment_sums(r[fast])
             out_w[fast] = sw if wdtype is complex else sw.real
             out_y[fast] = sy if cdtype is complex else sy.real
         slow = ~fast
