@@ -185,8 +185,8 @@ def _comparison_section(results: Sequence[Any], labels: Sequence[str],
                 continue
             text = format_interval_row(table.loc[name], dim)
             unit = f" {esc(text['unit'])}" if text["unit"] else ""
-            cells.append(f"{esc(text['median'])}{unit} "
-                         f"<span class=mono>[{esc(text['interval95'])}]</span>")
+            cells.append(f"{esc(text['median'])} "
+                         f"<span class=mono>[{esc(text['interval95'])}]</span>{unit}")
         rows.append(cells)
     parts = ['<section class="comparison" id="comparison">', "<h2>Results side by side</h2>",
              table_html(header, rows, raw=True, css_class="grid summary",

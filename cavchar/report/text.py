@@ -101,6 +101,8 @@ def format_interval_row(row: Mapping[str, float], dimension: str) -> dict[str, s
     lo95, hi95 = row["lo95"] / factor, row["hi95"] / factor
     plus, minus = hi68 - m, m - lo68
     d = decimals_for(min(plus, minus) if min(plus, minus) > 0 else max(plus, minus))
+    if m != 0 and math.isfinite(m):  # never more than 6 significant digits
+        d = min(d, 5 - math.floor(math.log10(abs(m))))
     f = format_number
     return {
         "median": f(m, d),

@@ -46,7 +46,7 @@ def _interval_cell(stats: Any, dimension: str) -> str:
            "lo95": stats.low_95, "hi95": stats.high_95}
     text = format_interval_row(row, dimension)
     unit = f" {text['unit']}" if text["unit"] else ""
-    return f"{text['median']}{unit} [{text['interval95']}]"
+    return f"{text['median']} [{text['interval95']}]{unit}"
 
 
 def trend_section(trend: Any, figure_html: FigureHtml) -> Section:
