@@ -227,3 +227,43 @@ def test_importing_the_report_package_is_light():
     code = ("import sys, cavchar.report; "
             "assert 'matplotlib' not in sys.modules and 'corner' not in sys.modules")
     subprocess.run([sys.executable, "-c", code], check=True)
+
+
+def test_style_reads_in_greyscale():
+    """Series differ by line style and marker as well as colour, and the colours step in
+    lightness (ITU-R BT.601 luma weights 0.299, 0.587, 0.114) by at least 0.05."""
+    import matplotlib.colors as mcolors
+
+    from cavchar.plots.style import LINESTYLES, MARKERS, PALETTE, series
+
+    luma = [float(np.dot(mcolors.to_rgb(c), [0.299, 0.587, 0.114])) for c in PALETTE]
+    assert all(b - a >= 0.05 for a, b in zip(luma, luma[1:]))
+    kinds = [series(i) for i in range(len(PALETTE))]
+    assert len({str(k["linestyle"]) for k in kinds}) == len(LINESTYLES) == len(PALETTE)
+    assert len({k["marker"] for k in kinds}) == len(MARKERS) == len(PALETTE)
+
+
+def test_style_is_local():
+    import matplotlib
+
+    from cavchar.plots.style import apply_style
+
+    before = dict(matplotlib.rcParams)
+    with apply_style():
+        assert matplotlib.rcParams["axes.titlelocation"] == "left"
+    assert dict(matplotlib.rcParams) == before
+
+
+def test_save_figure_writes_png_and_pdf_and_refuses_to_overwrite(fitted, tmp_path):
+    from cavchar.plots.common import corner_plot, save_figure
+
+    fig = corner_plot(fitted[0], truths={"lifetime": LIFETIME, "n_thermal": N_THERMAL})
+    png, pdf = save_figure(fig, tmp_path / "corner")
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert pdf.read_bytes()[:5] == b"%PDF-"  # PDF header (ISO 32000-1, 7.5.2)
+    pdf.unlink()
+    with pytest.raises(InputError, match="already exists"):
+        save_figure(fig, tmp_path / "corner")
+    assert not pdf.exists()  # every target is checked before anything is written
+    save_figure(fig, tmp_path / "corner", force=True)
+    assert pdf.exists()
