@@ -194,6 +194,14 @@ def test_two_exponential_model_and_comparison():
     value, _ = integrate.quad(integrand, -1, 1, points=[0.05], epsabs=1e-12, limit=200)
     assert value == pytest.approx(1.0, abs=1e-7)
     assert np.isneginf(model.log_likelihood(np.array([[0.06, 0.6, 0.6, 0.6]]))[0])  # T1 > T2
+    # long trace: compressed sums against the compiled direct pass
+    t_long = np.linspace(0, 2.0, 20_000)
+    y_long = (0.6 * np.exp(-t_long / 0.6) + 0.6 * np.exp(-t_long / 0.06) + 0.05
+              + rng.normal(0, sigma, t_long.size))
+    long = TwoExponentialPower(DecaySeries.from_times(t_long, y_long, None))
+    assert long.sums.compressed
+    thetas = np.array([[0.6, 0.06, 0.6, 0.6], [0.62, 0.059, 0.59, 0.61]])
+    assert profile_check(long, thetas) < 1e-6  # rounding of sums of 2e4 terms
 
 
 # ------------------------------------------------------------------- dB model

@@ -160,31 +160,34 @@ class PowerDecay:
             [amplitude_bound(s.values) for s in self.series] if amplitude_max is None
             else amplitude_max, dtype=float), (len(self.series),)).copy()
         fitted = [s.sigma is None for s in self.series]
-        if len(self.series) == 1:
-            s = self.series[0]
-            # ``start``: a one-exponential fit of this very trace (t0 = 0), to reuse
-            self.start = start or fit_exponentials(s.tau, s.values, 1, sigma=s.sigma, t0=0.0)
-            rate = float(self.start.rates[0])
-            rel_sd = float(self.start.stderr[1]) / rate
-            floors = [self.start.floor]
-            reuse = self.start.sums
-        else:
-            self.start = fit_shared_rate([(s.tau, s.values, s.sigma) for s in self.series])
-            rate = self.start.rate
-            rel_sd = 0.3
-            floors = list(self.start.floors)
-            reuse = None
-        self.rate_hat = rate
         self.fitted_sigma = fitted
-        # compressed sums serve 2 r for r up to r_hat (1.5 + 20 relative sd); other
-        # rates are summed directly, so the headroom affects speed only
-        limit = 2.0 * rate * min(1.5 + 20.0 * rel_sd, RATE_HEADROOM)
-        if compress and reuse is not None and reuse.compressed and reuse.rate_limit >= limit:
-            self.sums = [reuse]
-        else:
-            self.sums = [ExponentialSums(s.tau, s.values, s.weights(),
-                                         rate_limit=limit if compress else None, offset=c)
+        self._start = start
+        if not compress:
+            # brute force: no rate limit to choose, so the least-squares fit waits until
+            # a start is asked for; the offset is the mean of the last 5% of each trace
+            floors = [float(np.mean(s.values[s.tau >= np.quantile(s.tau, 0.95)]))
+                      for s in self.series]
+            self.sums = [ExponentialSums(s.tau, s.values, s.weights(), offset=c)
                          for s, c in zip(self.series, floors, strict=True)]
+        else:
+            if len(self.series) == 1:
+                rate = float(self.start.rates[0])
+                rel_sd = float(self.start.stderr[1]) / rate
+                floors = [self.start.floor]
+                reuse = self.start.sums
+            else:
+                rate, rel_sd = self.start.rate, 0.3
+                floors = list(self.start.floors)
+                reuse = None
+            # compressed sums serve 2 r for r up to r_hat (1.5 + 20 relative sd); other
+            # rates are summed directly, so the headroom affects speed only
+            limit = 2.0 * rate * min(1.5 + 20.0 * rel_sd, RATE_HEADROOM)
+            if reuse is not None and reuse.compressed and reuse.rate_limit >= limit:
+                self.sums = [reuse]
+            else:
+                self.sums = [ExponentialSums(s.tau, s.values, s.weights(), rate_limit=limit,
+                                             offset=c)
+                             for s, c in zip(self.series, floors, strict=True)]
         # the floor absorbs the offset exactly; it is added back to floor draws
         self._shift = np.array([float(np.real(x.offset)) for x in self.sums])
         self._const = np.array([self._constant(s, f) for s, f in
@@ -201,6 +204,24 @@ class PowerDecay:
         nu = n - 2
         return (special.gammaln(nu / 2) + (nu / 2 - 1) * math.log(2) + math.log(2 * math.pi)
                 - 0.5 * n * math.log(2 * math.pi))
+
+    @property
+    def start(self):
+        """The least-squares fit the model starts from (one trace: ExponentialFit with
+        ``t0 = 0``; several: SharedRateFit), made on first use."""
+        if self._start is None:
+            if len(self.series) == 1:
+                s = self.series[0]
+                self._start = fit_exponentials(s.tau, s.values, 1, sigma=s.sigma, t0=0.0)
+            else:
+                self._start = fit_shared_rate([(s.tau, s.values, s.sigma)
+                                               for s in self.series])
+        return self._start
+
+    @property
+    def rate_hat(self) -> float:
+        start = self.start
+        return float(start.rates[0]) if len(self.series) == 1 else float(start.rate)
 
     @property
     def ndim(self) -> int:
