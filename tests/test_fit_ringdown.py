@@ -217,6 +217,10 @@ def test_validation_errors_and_warnings():
                                    "power"), settings=QUICK)
     with pytest.raises(InputError, match="points"):
         fit_ringdown(RingdownTrace(t, decay, "power"), start_time=t[-4], settings=QUICK)
+    two = RingdownTrace(np.tile(t, 2), np.tile(decay, 2), "amplitude",
+                        trace=np.repeat([0, 1], t.size))
+    with pytest.raises(InputError, match="takes one trace"):
+        fit_ringdown(two, settings=QUICK)
     with pytest.raises(InputError, match="no parameter"):
         from cavchar.priors import LogUniform
 

@@ -87,6 +87,10 @@ def build_ringdown_model(data: RingdownData, *, initial=None, n0: float | None =
         return rd.MeanPhotonDecay(list(data.series), n0=n0), None
     if signal == "power" and len(data.series) == 1 and fits:
         return rd.PowerDecay(list(data.series), start=fits[0]), None
+    if signal not in ("power", "mean-n") and len(data.series) > 1:
+        raise InputError(f"a {signal} fit takes one trace, got {len(data.series)}",
+                         path=data.source, hint="several traces sharing T_c: signals power "
+                         "and mean-n; or fit the traces one by one")
     return rd.build_model(signal, list(data.series)), None
 
 
