@@ -1,0 +1,343 @@
+"""Probe-record likelihood: a hidden Markov model of the photon number.
+
+Hidden state: the photon number ``n`` of the mode at each probe, truncated to
+``0..N-1`` (:func:`choose_levels`).  Between probes it evolves by the
+damped-mode birth-death process (:mod:`cavchar.dynamics`): with
+``kappa = 1/T_c`` the transition matrix over an interval ``dt`` is
+``P(dt) = expm(Q dt)``.  Emission: the probe response ``P(y | n, setting)``
+(:mod:`cavchar.models.response`); a lost probe emits nothing, its interval
+still counts.  Each segment starts from the stationary (Bose-Einstein) law,
+or from a given Fock state.
+
+    log L(T_c, n_th, response) = log sum over paths of
+        p0(n_0) e_0(n_0) prod_t P(dt_t)[n_{t-1}, n_t] e_t(n_t)
+
+evaluated by the scaled forward algorithm (:mod:`cavchar.models.hmm_kernels`)
+for a batch of parameter sets at once.  The probe intervals are examined once:
+one distinct interval (equal spacing, up to a relative 1e-9) -> one matrix per
+parameter set; up to 32 distinct intervals -> one matrix per interval;
+otherwise the exact eigen route ``alpha P(dt) = ((alpha R) e^{lambda dt}) L``
+with every interval as it is.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import ArrayLike
+
+from cavchar.dynamics import stationary_distribution, transition_matrices_batch, truncation_levels
+from cavchar.errors import InputError
+from cavchar.models import hmm_kernels as hk
+from cavchar.models.response import SETTING_TOLERANCE, FringeResponse, TableResponse
+from cavchar.records import ProbeRecord
+
+__all__ = [
+    "ProbeLikelihood",
+    "ProbeSteps",
+    "Trajectory",
+    "probe_steps",
+    "choose_levels",
+    "group_settings",
+    "TRUNCATION_VISITS",
+]
+
+#: relative tolerance under which two probe intervals count as equal
+STEP_RTOL = 1e-9
+#: most distinct intervals handled with one matrix each (beyond: eigen route)
+MAX_DISTINCT_STEPS = 32
+#: bound on the expected number of visits above the top level during the record
+TRUNCATION_VISITS = 1e-3
+
+
+@dataclass(frozen=True)
+class ProbeSteps:
+    """Intervals before each probe (0 at segment starts) and how they are handled.
+
+    Attributes
+    ----------
+    kind : "regular", "indexed" or "irregular"
+    steps : ndarray (M,)
+        Distinct intervals in s (regular/indexed); empty for irregular.
+    step_index : ndarray of int32 (T,)
+        Index into ``steps`` of each probe's interval (0 at segment starts).
+    dts : ndarray (T,)
+        The intervals themselves in s.
+    """
+
+    kind: str
+    steps: np.ndarray
+    step_index: np.ndarray
+    dts: np.ndarray
+
+
+def probe_steps(time: ArrayLike, starts: ArrayLike, rtol: float = STEP_RTOL,
+                max_distinct: int = MAX_DISTINCT_STEPS) -> ProbeSteps:
+    """Classify the probe intervals of a record (``starts``: first probe of each segment)."""
+    time = np.asarray(time, dtype=float)
+    dts = np.zeros(time.size)
+    dts[1:] = np.diff(time)
+    first = np.zeros(time.size, bool)
+    first[np.asarray(starts, dtype=np.int64)[:-1]] = True
+    dts[first] = 0.0
+    inner = dts[~first]
+    if inner.size == 0:
+        return ProbeSteps("regular", np.array([0.0]), np.zeros(time.size, np.int32), dts)
+    uniq = np.unique(inner)
+    new = np.ones(uniq.size, bool)
+    new[1:] = uniq[1:] > uniq[:-1] * (1.0 + rtol)
+    if new.sum() <= max_distinct:
+        label = np.cumsum(new) - 1
+        lo = uniq[new]
+        hi = np.maximum.reduceat(uniq, np.flatnonzero(new))
+        if np.all(hi <= lo * (1.0 + 10 * rtol)):
+            steps = 0.5 * (lo + hi)
+            idx = np.zeros(time.size, np.int32)
+            idx[~first] = label[np.searchsorted(uniq, inner)]
+            kind = "regular" if steps.size == 1 else "indexed"
+            return ProbeSteps(kind, steps, idx, dts)
+    return ProbeSteps("irregular", np.zeros(0), np.zeros(time.size, np.int32), dts)
+
+
+def group_settings(setting: ArrayLike | None, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Distinct settings (rad, within 1e-6 rad) and the index of each probe's setting."""
+    if setting is None:
+        return np.zeros(1), np.zeros(n, np.int64)
+    s = np.asarray(setting, dtype=float)
+    uniq = np.unique(s)
+    new = np.ones(uniq.size, bool)
+    new[1:] = np.diff(uniq) > SETTING_TOLERANCE
+    label = np.cumsum(new) - 1
+    values = uniq[new]
+    return values, label[np.searchsorted(uniq, s)]
+
+
+def choose_levels(n_thermal_high: float, n_initial: int, duration_over_lifetime: float,
+                  visits: float = TRUNCATION_VISITS) -> int:
+    """Truncation so that the chain rarely needs the levels above it.
+
+    In equilibrium the probability of being at or above ``N`` is
+    ``r^(N - n_initial)`` (``r = n_th / (1 + n_th)``, see
+    :func:`cavchar.dynamics.truncation_levels`); the number of visits there
+    during a record of ``D = duration / T_c`` lifetimes is at most about
+    ``D (1 + n_th) N r^N``.  The tail is chosen so this stays below ``visits``.
+    """
+    n_th = max(float(n_thermal_high), 1e-12)
+    d = max(float(duration_over_lifetime), 1.0)
+    n = truncation_levels(n_th, n_initial, tail=min(1e-6, visits / d))
+    for _ in range(3):  # the bound has N in it: a few fixed-point passes
+        tail = min(1e-6, visits / (d * (1.0 + n_th) * n))
+        n = truncation_levels(n_th, n_initial, tail=tail)
+    return max(n, n_initial + 2)
+
+
+@dataclass(frozen=True)
+class Trajectory:
+    """Reconstructed photon-number trajectory at one parameter point.
+
+    Attributes
+    ----------
+    time : ndarray (T,)
+        Probe times in s.
+    marginals : ndarray (T, N)
+        Posterior ``P(n_t = j | outcomes)`` (forward-backward).
+    mean : ndarray (T,)
+        Posterior mean photon number.
+    path : ndarray of int (T,)
+        Most likely path (Viterbi).
+    log_likelihood : float
+    """
+
+    time: np.ndarray
+    marginals: np.ndarray
+    mean: np.ndarray
+    path: np.ndarray
+    log_likelihood: float
+
+
+class ProbeLikelihood:
+    """Batched log-likelihood of a probe record, ``(k, ndim) -> (k,)``.
+
+    Parameters
+    ----------
+    record : ProbeRecord
+    response : FringeResponse or TableResponse
+    n_levels : int, optional
+        Fixed truncation N of the photon number.  Default: chosen for each
+        parameter set by :func:`choose_levels` (rounded up to an even number,
+        so that few distinct kernels are needed), at most ``max_levels``.
+    initial : "stationary" or int
+        Photon-number law at the first probe of each segment: the thermal law
+        of the parameter set, or a Fock state.
+    max_levels : int, optional
+        Upper limit of the automatic truncation (default 64, or the photon
+        numbers a table response covers).  Parameter sets that would need more
+        are evaluated at the limit and counted in :attr:`capped`.
+
+    The parameter vector is ``(lifetime [s], n_thermal, *response.free_names)``.
+    """
+
+    def __init__(self, record: ProbeRecord, response: FringeResponse | TableResponse,
+                 n_levels: int | None = None, *, initial: str | int = "stationary",
+                 max_levels: int | None = None) -> None:
+        if not isinstance(record, ProbeRecord):
+            raise TypeError("record must be a ProbeRecord")
+        self.record = record
+        self.response = response
+        if isinstance(initial, str) and initial != "stationary":
+            raise InputError(f"unknown initial state {initial!r}",
+                             hint="use 'stationary' or a photon number")
+        self.initial = initial
+        self.n0 = 0 if isinstance(initial, str) else int(initial)
+        if self.n0 < 0:
+            raise InputError(f"initial photon number {initial} is negative")
+        table_top = response.max_photons + 1 if isinstance(response, TableResponse) else None
+        self.fixed_levels = None if n_levels is None else int(n_levels)
+        limit = max_levels or 64
+        if table_top is not None:
+            limit = min(limit, table_top)
+        self.max_levels = int(limit if self.fixed_levels is None else self.fixed_levels)
+        if self.max_levels < self.n0 + 2:
+            self.max_levels = self.n0 + 2
+        self.settings, setting_index = group_settings(record.setting, len(record))
+        response.check_coverage(self.fixed_levels or self.n0 + 2, self.settings)
+        starts = np.asarray(record.bounds, dtype=np.int64)
+        self.sequence = hk.ProbeSequence.from_outcomes(record.outcome, setting_index,
+                                                       self.settings.size, starts)
+        self.steps = probe_steps(record.time, starts)
+        self.names = ("lifetime", "n_thermal") + tuple(response.free_names)
+        self._emission_cache: dict[int, tuple] = {}
+        #: number of parameter sets evaluated at max_levels although they needed more
+        self.capped = 0
+        #: largest truncation any parameter set asked for
+        self.largest_needed = 0
+
+    @property
+    def ndim(self) -> int:
+        return len(self.names)
+
+    @property
+    def duration(self) -> float:
+        """Total time covered by the segments, s."""
+        b = self.record.bounds
+        t = self.record.time
+        return float(np.sum(t[b[1:] - 1] - t[b[:-1]])) or 1e-300
+
+    # -- pieces -----------------------------------------------------------------------
+
+    def levels_for(self, lifetime: ArrayLike, n_th: ArrayLike, cap: bool = True) -> np.ndarray:
+        """Truncation used for each parameter set (k,) (``cap=False``: the one it needs)."""
+        lifetime = np.atleast_1d(np.asarray(lifetime, dtype=float))
+        n_th = np.atleast_1d(np.asarray(n_th, dtype=float))
+        if self.fixed_levels is not None:
+            return np.full(n_th.size, self.fixed_levels)
+        need = np.array([choose_levels(x, self.n0, self.duration / t)
+                         for t, x in zip(lifetime, n_th, strict=True)])
+        even = need + need % 2  # even numbers where allowed: fewer distinct compiled kernels
+        need = np.where(even <= self.max_levels, even, need)
+        if not cap:
+            return need
+        self.largest_needed = max(self.largest_needed, int(need.max(initial=0)))
+        self.capped += int(np.count_nonzero(need > self.max_levels))
+        return np.minimum(need, self.max_levels)
+
+    def transitions(self, kappa: np.ndarray, n_th: np.ndarray, n_levels: int) -> hk.Transitions:
+        """Transition matrices of the probe intervals for k parameter sets."""
+        return self._transitions(kappa, n_th, n_levels, self.steps)
+
+    @staticmethod
+    def _transitions(kappa, n_th, n_levels, steps: ProbeSteps) -> hk.Transitions:
+        if steps.kind == "irregular":
+            r, lam, left = hk.eigen_parts(kappa, n_th, n_levels)
+            return hk.Transitions.eigen(r, lam, left, steps.dts, check=False)
+        mats = transition_matrices_batch(kappa, n_th, n_levels, steps.steps)
+        if steps.kind == "regular":
+            return hk.Transitions.regular(mats[:, 0])
+        return hk.Transitions.indexed(mats, steps.step_index, check=False)
+
+    def initial_law(self, n_th: np.ndarray, n_levels: int) -> np.ndarray:
+        """(k, N) law at each segment start."""
+        n_th = np.atleast_1d(n_th)
+        if self.initial == "stationary":
+            return np.stack([stationary_distribution(x, n_levels) for x in n_th])
+        p0 = np.zeros((n_th.size, n_levels))
+        p0[:, self.n0] = 1.0
+        return p0
+
+    def prob_one(self, free: np.ndarray | None, n_levels: int, k: int) -> np.ndarray:
+        """``P(1 | n, s)`` (k, S, N); cached when the response has no fitted parameter."""
+        if free is None:
+            if n_levels not in self._emission_cache:
+                self.response.check_coverage(n_levels, self.settings)
+                self._emission_cache[n_levels] = self.response.prob_one(
+                    None, n_levels, self.settings)[0][:1]
+            return self._emission_cache[n_levels]
+        return self.response.prob_one(free, n_levels, self.settings)[0]
+
+    def _split(self, theta: ArrayLike):
+        theta = np.atleast_2d(np.asarray(theta, dtype=float))
+        if theta.shape[1] != self.ndim:
+            raise ValueError(f"expected {self.ndim} parameters {self.names}, got {theta.shape[1]}")
+        with np.errstate(divide="ignore"):
+            kappa = 1.0 / theta[:, 0]
+        n_th = theta[:, 1]
+        ok = np.isfinite(kappa) & (kappa > 0) & np.isfinite(n_th) & (n_th > 0)
+        free = theta[:, 2:] if self.ndim > 2 else None
+        if free is not None:
+            ok &= self.response.prob_one(free, 2, self.settings)[1]
+        return theta, kappa, n_th, free, ok
+
+    def evaluate(self, theta: ArrayLike, forward) -> np.ndarray:
+        """Split a batch by truncation and call ``forward(n_levels, rows, kappa, n_th, free)``."""
+        theta, kappa, n_th, free, ok = self._split(theta)
+        out = np.full(theta.shape[0], -np.inf)
+        sel = np.flatnonzero(ok)
+        if sel.size == 0:
+            return out
+        levels = self.levels_for(theta[sel, 0], n_th[sel])
+        for n in np.unique(levels):
+            rows = sel[levels == n]
+            out[rows] = forward(int(n), rows, kappa[rows], n_th[rows],
+                                None if free is None else free[rows])
+        return out
+
+    # -- likelihood -------------------------------------------------------------------
+
+    def __call__(self, theta: ArrayLike) -> np.ndarray:
+        """Log-likelihood for each row of ``theta`` (k, ndim); -inf outside the support."""
+        return self.evaluate(theta, self._forward)
+
+    def _forward(self, n_levels, rows, kappa, n_th, free) -> np.ndarray:
+        tr = self.transitions(kappa, n_th, n_levels)
+        emis = hk.emission_table(self.prob_one(free, n_levels, rows.size))
+        return hk.forward_loglik(tr, self.initial_law(n_th, n_levels), emis, self.sequence)
+
+    # -- trajectory -------------------------------------------------------------------
+
+    def trajectory(self, theta: ArrayLike) -> Trajectory:
+        """Forward-backward marginals (T, N) and the Viterbi path at one parameter point
+        (N: the truncation :meth:`levels_for` gives that point)."""
+        theta, kappa, n_th, free, ok = self._split(np.asarray(theta, dtype=float).reshape(1, -1))
+        if not ok[0]:
+            raise InputError("the parameter point is outside the model's support")
+        n_levels = int(self.levels_for(theta[:, 0], n_th)[0])
+        tr = self.transitions(kappa, n_th, n_levels)
+        emis = hk.emission_table(self.prob_one(free, n_levels, 1))[0]
+        p0 = self.initial_law(n_th, n_levels)[0]
+        post, ll = hk.posterior_marginals(tr, p0, emis, self.sequence)
+        path, _ = hk.viterbi(tr, p0, emis, self.sequence)
+        mean = post @ np.arange(n_levels, dtype=float)
+        return Trajectory(np.asarray(self.record.time), post, mean, path, ll)
+
+
+def exit_rate(kappa: float, n_th: float, n: float) -> float:
+    """Total rate (1/s) of leaving photon number n: ``kappa [(1 + n_th) n + n_th (n + 1)]``."""
+    return kappa * ((1.0 + n_th) * n + n_th * (n + 1.0))
+
+
+def typical_dwell(lifetime: float, n_th: float) -> float:
+    """Mean dwell time (s) of photon number ``n* = max(1, ceil(n_th))`` (short dwells)."""
+    n_star = max(1, math.ceil(n_th))
+    return 1.0 / exit_rate(1.0 / lifetime, n_th, n_star)
