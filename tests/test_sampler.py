@@ -190,3 +190,19 @@ def test_stuck_walkers_fail_the_checks():
     chain[:, 3, 1] = 0.25  # one walker never moves in parameter b
     out = _check(chain, None, ["a", "b"], SamplerSettings(), final=True)
     assert any("not moving" in text and "b" in text for text in out["failed"])
+
+
+def test_map_on_a_prior_bound_keeps_a_start_width():
+    # regression: a likelihood peaking outside the prior box put every walker on the same
+    # lifetime (zero start width), which differential-evolution moves can never leave
+    from cavchar.models.jumps import JumpStatistics, exact_log_likelihood
+
+    stats = JumpStatistics(up=10, down=10, time_n_plus_1=0.05, time_n=0.004, constant=0.0,
+                           duration=0.045, initial_states=np.array([0]), n_max=2)
+    specs = (ParameterSpec("lifetime", "s", "T_c", LogUniform(0.5e-3, 2e-3), log_scale=True),
+             ParameterSpec("n_thermal", "", "n_th", LogUniform(1e-3, 10.0), log_scale=True))
+    run = sample_posterior(lambda th: exact_log_likelihood(stats, th[:, 0], th[:, 1]), specs,
+                           [1e-3, 0.1], SamplerSettings(seed=1, quiet=True))
+    assert run.converged
+    assert run.diagnostics["map"]["local_sd"]["lifetime"] > 1e-3
+    assert np.ptp(run.draws[:, 0]) > 1e-5

@@ -93,7 +93,8 @@ def local_covariance(logpost: Callable[[np.ndarray], np.ndarray], u_map: np.ndar
     """Approximate posterior covariance at the MAP (sampler coordinates), ``(ndim, ndim)``.
 
     Per axis a step ``h_i`` is found at which the log posterior drops by
-    0.05-2; the Hessian from central differences with those steps (one batched
+    0.05-2 (judged on the side inside the support when the MAP sits on a bound);
+    the Hessian from central differences with those steps (one batched
     call) gives ``cov = (-H)^-1`` if ``-H`` is positive definite ("hessian"),
     else the diagonal curvatures ("diagonal"), else ``h_i^2`` ("steps").
     """
@@ -108,7 +109,10 @@ def local_covariance(logpost: Callable[[np.ndarray], np.ndarray], u_map: np.ndar
             pts[0, i] += hi
             pts[1, i] -= hi
             drop = lp_map - logpost(pts)
-            dmax = float(np.max(drop))
+            # at a MAP on a prior bound one side is outside the support: judge the step by
+            # the side that is inside, so the start keeps a positive width there
+            inside = np.isfinite(drop)
+            dmax = float(np.max(drop[inside])) if inside.any() else math.inf
             if not np.isfinite(dmax) or dmax > 2.0:
                 hi /= 3.0
                 shrunk = True
@@ -125,11 +129,12 @@ def local_covariance(logpost: Callable[[np.ndarray], np.ndarray], u_map: np.ndar
             pts.append(u_map + si * h[i] * eye[i] + sj * h[j] * eye[j])
     f = logpost(np.array(pts))
     hess = np.empty((ndim, ndim))
-    for i in range(ndim):
-        hess[i, i] = (f[2 * i] - 2.0 * lp_map + f[2 * i + 1]) / h[i] ** 2
-    for k, (i, j) in enumerate(pairs):
-        fpp, fpm, fmp, fmm = f[2 * ndim + 4 * k: 2 * ndim + 4 * k + 4]
-        hess[i, j] = hess[j, i] = (fpp - fpm - fmp + fmm) / (4.0 * h[i] * h[j])
+    with np.errstate(invalid="ignore"):  # -inf - -inf next to a bound: not finite, handled below
+        for i in range(ndim):
+            hess[i, i] = (f[2 * i] - 2.0 * lp_map + f[2 * i + 1]) / h[i] ** 2
+        for k, (i, j) in enumerate(pairs):
+            fpp, fpm, fmp, fmm = f[2 * ndim + 4 * k: 2 * ndim + 4 * k + 4]
+            hess[i, j] = hess[j, i] = (fpp - fpm - fmp + fmm) / (4.0 * h[i] * h[j])
     if np.isfinite(hess).all():
         try:
             np.linalg.cholesky(-hess)
