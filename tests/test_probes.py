@@ -19,7 +19,12 @@ from scipy import linalg
 
 from cavchar.errors import InputError
 from cavchar.models.probe_blocks import BlockedProbeLikelihood, bias_check
-from cavchar.models.probes import ProbeLikelihood, choose_levels, probe_steps
+from cavchar.models.probes import (
+    TRUNCATION_VISITS,
+    ProbeLikelihood,
+    choose_levels,
+    probe_steps,
+)
 from cavchar.models.response import FringeResponse, TableResponse
 from cavchar.priors import Uniform
 from cavchar.records import JumpRecord, ProbeRecord
@@ -105,9 +110,9 @@ def test_free_response_parameters_enter_the_likelihood():
 
 
 def test_automatic_truncation_agrees_with_a_generous_one():
-    """choose_levels keeps the expected number of visits above the top level below 1e-3;
-    each such visit changes log L by at most its probability, so the two likelihoods
-    agree to about 1e-3 nats (tolerance 5e-3)."""
+    """The automatic truncation keeps the expected number of visits above the top level
+    below TRUNCATION_VISITS = 0.01; log L changes by about the probability of such
+    paths, so the two likelihoods agree to about 0.01 nats (tolerance: twice that)."""
     rec, _ = simulate_probe_record(0.05, 0.3, 1e-3 * np.arange(20000),
                                    FringeResponse(**RESPONSE), seed=4)
     auto = ProbeLikelihood(rec, FringeResponse(**RESPONSE))
@@ -115,7 +120,7 @@ def test_automatic_truncation_agrees_with_a_generous_one():
     theta = np.array([[0.05, 0.3], [0.03, 0.5], [0.08, 0.15]])
     levels = auto.levels_for(theta[:, 0], theta[:, 1])
     assert np.all(levels < 30) and np.all(levels % 2 == 0)
-    np.testing.assert_allclose(auto(theta), wide(theta), atol=5e-3)
+    np.testing.assert_allclose(auto(theta), wide(theta), atol=2 * TRUNCATION_VISITS)
     assert choose_levels(0.3, 2, 100) > choose_levels(0.3, 0, 100)
 
 
@@ -259,3 +264,17 @@ def test_bad_inputs():
         ProbeLikelihood(rec, FringeResponse(), initial="hot")
     with pytest.raises(ValueError):
         ProbeLikelihood(rec, FringeResponse())(np.ones((2, 3)))
+
+
+@pytest.mark.parametrize("spacing", ["regular", "poisson"])
+def test_batch_with_mixed_truncations_equals_single_evaluations(spacing):
+    """Rows needing different truncations share one kernel call, padded with unreachable
+    levels; each must equal its own evaluation."""
+    rec = small_record(spacing, t=2000)
+    model = ProbeLikelihood(rec, FringeResponse(**RESPONSE))
+    theta = np.array([[0.02, 0.05], [0.02, 0.7], [0.03, 1.5], [0.01, 0.3]])
+    levels = model.levels_for(theta[:, 0], theta[:, 1])
+    assert np.unique(levels).size >= 3
+    batch = model(theta)
+    single = np.array([model(row[None])[0] for row in theta])
+    np.testing.assert_allclose(batch, single, rtol=1e-12)

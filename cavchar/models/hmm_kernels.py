@@ -263,19 +263,23 @@ def eigen_parts(kappa: ArrayLike, n_th: ArrayLike, n_levels: int):
     -------
     right (k, N, N), eigenvalues (k, N) in 1/s (<= 0), left (k, N, N)
     """
-    from cavchar.dynamics import rate_matrix, stationary_distribution
-
     kappa = np.atleast_1d(np.asarray(kappa, dtype=float))
     n_th = np.atleast_1d(np.asarray(n_th, dtype=float))
-    k = kappa.size
-    q = np.stack([rate_matrix(kappa[i], n_th[i], n_levels) for i in range(k)])
-    pi = np.stack([stationary_distribution(n_th[i], n_levels) for i in range(k)])
-    with np.errstate(divide="ignore"):
-        h = 0.5 * np.log(pi)  # log sqrt(pi)
-    h = np.maximum(h, -300.0)
-    sym = q * np.exp(h[:, :, None] - h[:, None, :])
-    sym = 0.5 * (sym + np.swapaxes(sym, 1, 2))
+    n = np.arange(n_levels, dtype=float)
+    a = (kappa * n_th)[:, None]  # up: a (m + 1) from m < N-1
+    b = (kappa * (1.0 + n_th))[:, None]  # down: b m from m > 0
+    up = a * (n + 1.0)
+    up[:, -1] = 0.0
+    sym = np.zeros((kappa.size, n_levels, n_levels))
+    idx = np.arange(n_levels)
+    sym[:, idx, idx] = -(up + b * n)
+    off = np.sqrt(a * b) * n[1:]  # sqrt(Q[m-1, m] Q[m, m-1]) = sqrt(a b) m
+    sym[:, idx[:-1], idx[1:]] = off
+    sym[:, idx[1:], idx[:-1]] = off
     lam, vecs = np.linalg.eigh(sym)
+    with np.errstate(divide="ignore"):
+        h = 0.5 * n[None, :] * (np.log(n_th) - np.log1p(n_th))[:, None]  # log sqrt(pi_n / pi_0)
+    h = np.maximum(h, -300.0)
     right = vecs * np.exp(-h)[:, :, None]
     left = np.swapaxes(vecs, 1, 2) * np.exp(h)[:, None, :]
     return right, np.minimum(lam, 0.0), left
@@ -338,6 +342,8 @@ def _forward_loops(mode, trans, sidx, right, lam, left, dts, p0, emis, offs, cod
         a = np.empty(n)
         b = np.empty(n)
         x = np.empty(n)
+        pm = trans[c, 0].copy()  # regular spacing: the one matrix, contiguous
+        em = emis[c].copy()
         total = 0.0
         for g in range(nseg):
             t0 = starts[g]
@@ -345,17 +351,25 @@ def _forward_loops(mode, trans, sidx, right, lam, left, dts, p0, emis, offs, cod
             ll = offs[c, code]
             s = 0.0
             for j in range(n):
-                a[j] = p0[c, j] * emis[c, code, j]
+                a[j] = p0[c, j] * em[code, j]
                 s += a[j]
             dead = not s > 0.0
             for t in range(t0, starts[g + 1]):
                 if t > t0:
                     code = codes[t]
-                    _propagate(mode, c, t, a, b, x, trans, sidx, right, lam, left, dts)
+                    if mode == 0:
+                        for j in range(n):
+                            b[j] = 0.0
+                        for i in range(n):
+                            ai = a[i]
+                            for j in range(n):
+                                b[j] += ai * pm[i, j]
+                    else:
+                        _propagate(mode, c, t, a, b, x, trans, sidx, right, lam, left, dts)
                     ll += offs[c, code]
                     s = 0.0
                     for j in range(n):
-                        a[j] = b[j] * emis[c, code, j]
+                        a[j] = b[j] * em[code, j]
                         s += a[j]
                 if not s >= _TINY:
                     if s > 0.0:
@@ -531,12 +545,16 @@ def forward_loglik(
     tr = transitions
     if use_unrolled:
         mod = _hmm_unrolled.load(n)
+        suffix = "_serial" if k == 1 else ""
         if tr.kind == "regular":
-            mod.forward_regular(np.ascontiguousarray(tr.matrices[:, 0]), p0, emis, offs, *seq)
+            getattr(mod, "forward_regular" + suffix)(
+                np.ascontiguousarray(tr.matrices[:, 0]), p0, emis, offs, *seq)
         elif tr.kind == "indexed":
-            mod.forward_indexed(tr.matrices, tr.step_index, p0, emis, offs, *seq)
+            getattr(mod, "forward_indexed" + suffix)(tr.matrices, tr.step_index, p0, emis, offs,
+                                                     *seq)
         else:
-            mod.forward_eigen(tr.right, tr.eigenvalues, tr.left, tr.dts, p0, emis, offs, *seq)
+            getattr(mod, "forward_eigen" + suffix)(tr.right, tr.eigenvalues, tr.left, tr.dts,
+                                                   p0, emis, offs, *seq)
     else:
         _forward_loops(_MODE[tr.kind], *tr._args(), p0, emis, offs, *seq)
     return np.where(np.isnan(out), -np.inf, out)

@@ -130,16 +130,17 @@ class BlockedProbeLikelihood:
         """Coarse log-likelihood of each row of ``theta`` (k, ndim); -inf outside the support."""
         return self.exact.evaluate(theta, self._forward)
 
-    def _forward(self, n_levels, rows, kappa, n_th, free) -> np.ndarray:
+    def _forward(self, levels, kappa, n_th, free) -> np.ndarray:
         ex = self.exact
+        n_levels = int(levels.max())
         if free is None:
             if n_levels not in self._fixed:
                 self._fixed[n_levels] = self._pattern_emission(ex.prob_one(None, n_levels, 1))
             emis, offs = self._fixed[n_levels]
         else:
-            emis, offs = self._pattern_emission(ex.prob_one(free, n_levels, rows.size))
-        tr = ex._transitions(kappa, n_th, n_levels, self.steps)
-        return hk.forward_loglik(tr, ex.initial_law(n_th, n_levels), emis, self.sequence, offs)
+            emis, offs = self._pattern_emission(ex.prob_one(free, n_levels, kappa.size))
+        tr = ex._transitions(kappa, n_th, levels, self.steps)
+        return hk.forward_loglik(tr, ex.initial_law(n_th, levels), emis, self.sequence, offs)
 
 
 def bias_check(coarse: BlockedProbeLikelihood, draws: np.ndarray, *, max_draws: int = 256,

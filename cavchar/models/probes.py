@@ -28,7 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike
 
-from cavchar.dynamics import stationary_distribution, transition_matrices_batch, truncation_levels
+from cavchar.dynamics import transition_matrices_batch
 from cavchar.errors import InputError
 from cavchar.models import hmm_kernels as hk
 from cavchar.models.response import SETTING_TOLERANCE, FringeResponse, TableResponse
@@ -40,6 +40,7 @@ __all__ = [
     "Trajectory",
     "probe_steps",
     "choose_levels",
+    "levels_needed",
     "group_settings",
     "TRUNCATION_VISITS",
 ]
@@ -49,7 +50,13 @@ STEP_RTOL = 1e-9
 #: most distinct intervals handled with one matrix each (beyond: eigen route)
 MAX_DISTINCT_STEPS = 32
 #: bound on the expected number of visits above the top level during the record
-TRUNCATION_VISITS = 1e-3
+TRUNCATION_VISITS = 1e-2
+#: automatic truncations are multiples of this (few distinct compiled kernels)
+LEVEL_STEP = 2
+#: rows whose truncations differ by at most this factor share one kernel call
+PAD_RATIO = 1.25
+#: largest rounding amplification eps * sqrt(pi_0 / pi_{N-1}) accepted on the eigen route
+_EIGEN_ROUNDING = 1e-10
 
 
 @dataclass(frozen=True)
@@ -114,23 +121,32 @@ def group_settings(setting: ArrayLike | None, n: int) -> tuple[np.ndarray, np.nd
     return values, label[np.searchsorted(uniq, s)]
 
 
-def choose_levels(n_thermal_high: float, n_initial: int, duration_over_lifetime: float,
-                  visits: float = TRUNCATION_VISITS) -> int:
-    """Truncation so that the chain rarely needs the levels above it.
+def levels_needed(n_th: ArrayLike, n_initial: int, duration_over_lifetime: ArrayLike,
+                  visits: float = TRUNCATION_VISITS) -> np.ndarray:
+    """Truncation (k,) so that the chain rarely needs the levels above it (vectorized).
 
     In equilibrium the probability of being at or above ``N`` is
     ``r^(N - n_initial)`` (``r = n_th / (1 + n_th)``, see
-    :func:`cavchar.dynamics.truncation_levels`); the number of visits there
-    during a record of ``D = duration / T_c`` lifetimes is at most about
-    ``D (1 + n_th) N r^N``.  The tail is chosen so this stays below ``visits``.
+    :func:`cavchar.dynamics.truncation_levels`); the expected number of visits
+    there during a record of ``D = duration / T_c`` lifetimes is at most about
+    ``D (1 + n_th) N r^(N - n_initial)``.  N is the smallest number that keeps this
+    below ``visits`` (and the tail below 1e-4).  Paths that would climb higher
+    carry at most that much probability, so log L changes by about ``visits``.
     """
-    n_th = max(float(n_thermal_high), 1e-12)
-    d = max(float(duration_over_lifetime), 1.0)
-    n = truncation_levels(n_th, n_initial, tail=min(1e-6, visits / d))
-    for _ in range(3):  # the bound has N in it: a few fixed-point passes
-        tail = min(1e-6, visits / (d * (1.0 + n_th) * n))
-        n = truncation_levels(n_th, n_initial, tail=tail)
-    return max(n, n_initial + 2)
+    n_th = np.maximum(np.atleast_1d(np.asarray(n_th, dtype=float)), 1e-12)
+    d = np.maximum(np.atleast_1d(np.asarray(duration_over_lifetime, dtype=float)), 1.0)
+    log_r = np.log(n_th) - np.log1p(n_th)
+    n = np.full(n_th.shape, float(n_initial + 2))
+    for _ in range(4):  # the bound has N in it: a few fixed-point passes
+        tail = np.minimum(1e-4, visits / (d * (1.0 + n_th) * n))
+        n = n_initial + np.maximum(np.ceil(np.log(tail) / log_r), 2.0)
+    return n.astype(np.int64)
+
+
+def choose_levels(n_thermal_high: float, n_initial: int, duration_over_lifetime: float,
+                  visits: float = TRUNCATION_VISITS) -> int:
+    """Scalar form of :func:`levels_needed`."""
+    return int(levels_needed(n_thermal_high, n_initial, duration_over_lifetime, visits)[0])
 
 
 @dataclass(frozen=True)
@@ -233,36 +249,65 @@ class ProbeLikelihood:
         n_th = np.atleast_1d(np.asarray(n_th, dtype=float))
         if self.fixed_levels is not None:
             return np.full(n_th.size, self.fixed_levels)
-        need = np.array([choose_levels(x, self.n0, self.duration / t)
-                         for t, x in zip(lifetime, n_th, strict=True)])
-        even = need + need % 2  # even numbers where allowed: fewer distinct compiled kernels
-        need = np.where(even <= self.max_levels, even, need)
+        need = levels_needed(n_th, self.n0, self.duration / lifetime)
+        step = -(-need // LEVEL_STEP) * LEVEL_STEP  # few distinct N: few compiled kernels
+        need = np.where(step <= self.max_levels, step, need)
         if not cap:
             return need
         self.largest_needed = max(self.largest_needed, int(need.max(initial=0)))
         self.capped += int(np.count_nonzero(need > self.max_levels))
         return np.minimum(need, self.max_levels)
 
-    def transitions(self, kappa: np.ndarray, n_th: np.ndarray, n_levels: int) -> hk.Transitions:
-        """Transition matrices of the probe intervals for k parameter sets."""
+    def transitions(self, kappa: np.ndarray, n_th: np.ndarray,
+                    n_levels: int | np.ndarray) -> hk.Transitions:
+        """Transition matrices of the probe intervals for k parameter sets.
+
+        ``n_levels`` is one truncation for all sets or one per set (k,); sets with
+        fewer levels than the largest are padded with levels that are never
+        reached (no transition into them, zero initial probability), which
+        leaves their likelihood exactly that of their own truncation.
+        """
         return self._transitions(kappa, n_th, n_levels, self.steps)
 
     @staticmethod
     def _transitions(kappa, n_th, n_levels, steps: ProbeSteps) -> hk.Transitions:
+        levels = np.broadcast_to(np.asarray(n_levels, dtype=np.int64), np.shape(kappa))
+        top = int(levels.max())
+        k = levels.size
+        r = np.zeros((k, top, top))
+        lam = np.zeros((k, top))
+        left = np.zeros((k, top, top))
+        for n in np.unique(levels):
+            g = np.flatnonzero(levels == n)
+            r[g, :n, :n], lam[g, :n], left[g, :n, :n] = hk.eigen_parts(kappa[g], n_th[g], int(n))
         if steps.kind == "irregular":
-            r, lam, left = hk.eigen_parts(kappa, n_th, n_levels)
             return hk.Transitions.eigen(r, lam, left, steps.dts, check=False)
-        mats = transition_matrices_batch(kappa, n_th, n_levels, steps.steps)
+        # eigen route P = R diag(exp(lambda dt)) L, rounding error eps sqrt(pi_j / pi_i)
+        # (hk.eigen_parts); sets where that could exceed 1e-10 use scaling-and-squaring
+        mats = np.clip(np.einsum("kim,ksm,kmj->ksij", r,
+                                 np.exp(lam[:, None, :] * steps.steps[None, :, None]), left),
+                       0.0, 1.0)
+        with np.errstate(divide="ignore", over="ignore"):
+            amp = np.exp(-0.5 * (levels - 1) * (np.log(n_th) - np.log1p(n_th)))
+        for i in np.flatnonzero(~(np.finfo(float).eps * amp <= _EIGEN_ROUNDING)):
+            n = int(levels[i])
+            mats[i, :, :n, :n] = transition_matrices_batch(kappa[i:i + 1], n_th[i:i + 1], n,
+                                                           steps.steps)[0]
         if steps.kind == "regular":
             return hk.Transitions.regular(mats[:, 0])
         return hk.Transitions.indexed(mats, steps.step_index, check=False)
 
-    def initial_law(self, n_th: np.ndarray, n_levels: int) -> np.ndarray:
-        """(k, N) law at each segment start."""
+    def initial_law(self, n_th: np.ndarray, n_levels: int | np.ndarray) -> np.ndarray:
+        """(k, N_max) law at each segment start (zero above each set's own truncation)."""
         n_th = np.atleast_1d(n_th)
-        if self.initial == "stationary":
-            return np.stack([stationary_distribution(x, n_levels) for x in n_th])
-        p0 = np.zeros((n_th.size, n_levels))
+        levels = np.broadcast_to(np.asarray(n_levels, dtype=np.int64), n_th.shape)
+        top = int(levels.max())
+        inside = np.arange(top)[None, :] < levels[:, None]
+        if self.initial == "stationary":  # Bose-Einstein law renormalised on 0..N-1
+            log_r = np.log(n_th) - np.log1p(n_th)
+            p = np.where(inside, np.exp(np.arange(top)[None, :] * log_r[:, None]), 0.0)
+            return p / p.sum(axis=1, keepdims=True)
+        p0 = np.zeros((n_th.size, top))
         p0[:, self.n0] = 1.0
         return p0
 
@@ -290,16 +335,28 @@ class ProbeLikelihood:
         return theta, kappa, n_th, free, ok
 
     def evaluate(self, theta: ArrayLike, forward) -> np.ndarray:
-        """Split a batch by truncation and call ``forward(n_levels, rows, kappa, n_th, free)``."""
+        """Call ``forward(levels (k,), kappa, n_th, free)`` on the rows inside the support.
+
+        Rows whose truncations differ by at most 25% share one call (each keeps its own
+        truncation, padded to the group's largest, see :meth:`transitions`), so the
+        threads share them and an outlying walker does not make the others slow.
+        """
         theta, kappa, n_th, free, ok = self._split(theta)
         out = np.full(theta.shape[0], -np.inf)
         sel = np.flatnonzero(ok)
         if sel.size == 0:
             return out
         levels = self.levels_for(theta[sel, 0], n_th[sel])
+        group = np.zeros(levels.size, np.int64)
+        low = None
         for n in np.unique(levels):
-            rows = sel[levels == n]
-            out[rows] = forward(int(n), rows, kappa[rows], n_th[rows],
+            if low is None or n > PAD_RATIO * low:
+                low = n
+                current = n
+            group[levels == n] = current
+        for g in np.unique(group):
+            rows = sel[group == g]
+            out[rows] = forward(levels[group == g], kappa[rows], n_th[rows],
                                 None if free is None else free[rows])
         return out
 
@@ -309,10 +366,10 @@ class ProbeLikelihood:
         """Log-likelihood for each row of ``theta`` (k, ndim); -inf outside the support."""
         return self.evaluate(theta, self._forward)
 
-    def _forward(self, n_levels, rows, kappa, n_th, free) -> np.ndarray:
-        tr = self.transitions(kappa, n_th, n_levels)
-        emis = hk.emission_table(self.prob_one(free, n_levels, rows.size))
-        return hk.forward_loglik(tr, self.initial_law(n_th, n_levels), emis, self.sequence)
+    def _forward(self, levels, kappa, n_th, free) -> np.ndarray:
+        tr = self.transitions(kappa, n_th, levels)
+        emis = hk.emission_table(self.prob_one(free, int(levels.max()), kappa.size))
+        return hk.forward_loglik(tr, self.initial_law(n_th, levels), emis, self.sequence)
 
     # -- trajectory -------------------------------------------------------------------
 
