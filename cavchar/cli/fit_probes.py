@@ -1,0 +1,180 @@
+"""``cavchar fit probes``: lifetime, thermal photon number and trajectory of a probe record."""
+
+from __future__ import annotations
+
+import argparse
+import math
+import shlex
+import sys
+
+from cavchar.cli.common import (
+    HelpFormatter,
+    add_fit_context_options,
+    add_output_options,
+    add_sampler_options,
+    check_outputs,
+    finish_fit_command,
+    settings_from_args,
+)
+
+EXAMPLES = """examples:
+  cavchar fit probes probes.csv --phase-per-photon 180deg --visibility 0.9 \\
+      --freq 6.8GHz --stage-temp 20mK -o fit_out
+  cavchar fit probes probes.csv --phase-per-photon 3.1416 --visibility uniform:0.5,1 \\
+      --readout-error-0 0.02 --readout-error-1 0.04 -o fit_out
+  cavchar fit probes probes.csv --response-table response.csv -o fit_out --exact
+
+Probe records: columns time (s), outcome (0/1; an empty cell = lost probe), optional
+setting (rad) and segment.  Each fringe parameter is a number (fixed, calibrated) or a
+prior such as uniform:0.5,1 (fitted).  Besides result.json, draws and figures the output
+folder gets trajectory.csv (posterior mean and most likely photon number per probe) and
+viterbi_jumps.csv (the most likely path as an exact jump record, for `cavchar fit jumps`).
+See docs/probe-records.md.
+"""
+
+_FRINGE_OPTIONS = (
+    ("visibility", "--visibility", "dimensionless", "1",
+     "fringe visibility V in [0, 1], a number or a prior, e.g. 0.9 or uniform:0.5,1"),
+    ("phase_per_photon", "--phase-per-photon", "phase", "pi",
+     "phase per photon phi0 (rad or deg), e.g. 180deg (parity probe) or normal:3.1,0.05"),
+    ("phase_offset", "--phase-offset", "phase", "0",
+     "fringe phase offset phi_r (rad or deg), a number or a prior"),
+    ("readout_error_0", "--readout-error-0", "dimensionless", "0",
+     "probability of reading 1 when the ideal outcome is 0"),
+    ("readout_error_1", "--readout-error-1", "dimensionless", "0",
+     "probability of reading 0 when the ideal outcome is 1"),
+)
+
+
+def register_fit(kinds: argparse._SubParsersAction) -> None:
+    """Add ``probes`` to the ``cavchar fit`` group."""
+    parser = kinds.add_parser(
+        "probes",
+        help="raw QND probe records (0/1 outcome per probe)",
+        description="Posterior of the energy lifetime T_c = 1/kappa, the thermal photon "
+        "number n_th and any fitted response parameters from the raw outcome of every "
+        "probe, through a hidden Markov model of the photon number; with the mode "
+        "frequency also Q, linewidth and effective temperature, with the stage "
+        "temperature the Planck check.  Also reconstructs the photon-number trajectory.",
+        epilog=EXAMPLES,
+        formatter_class=HelpFormatter,
+    )
+    parser.add_argument("record", help="probe-record file (CSV/TSV, .gz, NPZ, Parquet)")
+    parser.add_argument("--response", choices=("fringe", "table"), default=None,
+                        help="probe response model; unset: table when --response-table is "
+                        "given, else fringe")
+    parser.add_argument("--response-table", default=None, metavar="FILE",
+                        help="calibrated P(1 | n[, setting]): columns photons, p_one, setting")
+    for _, flag, _, default, text in _FRINGE_OPTIONS:
+        parser.add_argument(flag, default=default, metavar="VALUE|PRIOR", help=text)
+    parser.add_argument("--prior-lifetime", default=None, metavar="PRIOR",
+                        help="prior on T_c; unset: loguniform:1us,1000s")
+    parser.add_argument("--prior-n-thermal", default=None, metavar="PRIOR",
+                        help="prior on n_th; unset: loguniform:1e-6,20; 'stage': log-normal "
+                        "around the stage's Planck occupation")
+    mode = parser.add_mutually_exclusive_group()
+    mode.add_argument("--exact", action="store_const", dest="mode", const="exact",
+                      help="forward algorithm over every probe")
+    mode.add_argument("--coarse", action="store_const", dest="mode", const="coarse",
+                      help="blocks of probes (bias measured and reported); neither flag: "
+                      "coarse only for records of more than 300,000 probes")
+    parser.set_defaults(mode="auto")
+    parser.add_argument("--block-probes", type=int, default=None, metavar="B",
+                        help="probes per block in the coarse mode; unset: 2%% of the "
+                        "typical dwell time")
+    parser.add_argument("--initial-photons", type=int, default=None, metavar="N",
+                        help="segments start in Fock state N; unset: thermal equilibrium")
+    add_fit_context_options(parser)
+    add_sampler_options(parser)
+    add_output_options(parser)
+    parser.set_defaults(func=handle)
+
+
+def _fringe_value(text: str, dimension: str, name: str):
+    """A number (fixed) or a prior (fitted) for a fringe parameter."""
+    from cavchar.errors import InputError
+    from cavchar.priors import parse_prior
+    from cavchar.units import parse_quantity
+
+    text = str(text).strip()
+    if text.lower() in ("pi", "+pi"):
+        return math.pi
+    if ":" in text:
+        return parse_prior(text, dimension)
+    try:
+        return parse_quantity(text, dimension)
+    except InputError as exc:
+        raise InputError(f"--{name.replace('_', '-')}: {exc.message}",
+                         hint="give a number (fixed) or a prior such as uniform:0.5,1") from None
+
+
+def build_response(args: argparse.Namespace):
+    """The response model from the options."""
+    from cavchar.errors import InputError
+    from cavchar.models.response import FringeResponse, TableResponse
+
+    kind = args.response or ("table" if args.response_table else "fringe")
+    if kind == "table":
+        if not args.response_table:
+            raise InputError("--response table needs --response-table FILE")
+        return TableResponse.from_file(args.response_table)
+    if args.response_table:
+        raise InputError("--response-table cannot be combined with --response fringe")
+    values = {name: _fringe_value(getattr(args, name), dim, name)
+              for name, _, dim, _, _ in _FRINGE_OPTIONS}
+    return FringeResponse(**values)
+
+
+def handle(args: argparse.Namespace) -> int:
+    from pathlib import Path
+
+    from cavchar.errors import InputError
+    from cavchar.fits.probe_trajectory import viterbi_jump_record, write_trajectory
+    from cavchar.fits.probes import ProbePriors, fit_probes_with_trajectory
+    from cavchar.io.atomic import check_can_write
+    from cavchar.io.writers import write_jump_record
+    from cavchar.priors import parse_prior, stage_occupation_prior
+
+    check_outputs(args)
+    if args.out:
+        for name in ("trajectory.csv", "viterbi_jumps.csv"):
+            check_can_write(Path(args.out) / name, args.force)
+    response = build_response(args)
+    priors = ProbePriors()
+    if args.prior_lifetime:
+        priors = ProbePriors(lifetime=parse_prior(args.prior_lifetime, "time"),
+                             n_thermal=priors.n_thermal)
+    if args.prior_n_thermal:
+        if args.prior_n_thermal.strip().lower() == "stage":
+            if args.freq is None or args.stage_temp is None:
+                raise InputError("--prior-n-thermal stage needs --freq and --stage-temp")
+            prior = stage_occupation_prior(args.freq, args.stage_temp)
+        else:
+            prior = parse_prior(args.prior_n_thermal, "dimensionless", freq_hz=args.freq)
+        priors = ProbePriors(lifetime=priors.lifetime, n_thermal=prior)
+    if args.block_probes is not None and args.block_probes < 1:
+        raise InputError("--block-probes must be at least 1")
+    result, trajectory = fit_probes_with_trajectory(
+        args.record,
+        response=response,
+        freq_hz=args.freq,
+        stage_temp_k=args.stage_temp,
+        priors=priors,
+        settings=settings_from_args(args),
+        mode=args.mode,
+        block_probes=args.block_probes,
+        initial="stationary" if args.initial_photons is None else args.initial_photons,
+        command="cavchar " + shlex.join(sys.argv[1:]) if sys.argv else None,
+    )
+    bias = result.checks.get("coarse_bias")
+    if bias:
+        print(f"coarse mode: blocks of {bias['block_probes']} probes; bias bound "
+              f"{bias['bias_bound_sd']:.3f} posterior sd (checked on {bias['n_checked']} draws)")
+    code = finish_fit_command(result, args)
+    if args.out:
+        out = Path(args.out)
+        write_trajectory(trajectory, out / "trajectory.csv", force=args.force)
+        write_jump_record(viterbi_jump_record(trajectory), out / "viterbi_jumps.csv",
+                          force=args.force)
+        print(f"wrote trajectory.csv and viterbi_jumps.csv to {args.out}")
+    return code
