@@ -80,7 +80,7 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
                       "coarse only for records of more than 300,000 probes")
     parser.set_defaults(mode="auto")
     parser.add_argument("--block-probes", type=int, default=None, metavar="B",
-                        help="probes per block in the coarse mode; unset: 2%% of the "
+                        help="probes per block in the coarse mode; unset: 1%% of the "
                         "typical dwell time")
     parser.add_argument("--initial-photons", type=int, default=None, metavar="N",
                         help="segments start in Fock state N; unset: thermal equilibrium")

@@ -12,7 +12,7 @@ Modes: ``"exact"`` (forward algorithm over every probe), ``"coarse"`` (blocks
 of probes, :mod:`cavchar.models.probe_blocks`, with its bias measured against
 the exact likelihood on posterior draws and reported under
 ``checks["coarse_bias"]``) and ``"auto"`` (coarse for records of more than
-300,000 probes when blocks of at least 4 probes fit in 2% of the typical
+300,000 probes when blocks of at least 4 probes fit in 1% of the typical
 dwell time, else exact).
 """
 
@@ -52,9 +52,10 @@ __all__ = ["fit_probes", "fit_probes_with_trajectory", "ProbePriors", "AUTO_COAR
 
 #: records longer than this use the coarse mode under ``mode="auto"``
 AUTO_COARSE_PROBES = 300_000
-#: block duration as a fraction of the typical dwell time (coarse mode; measured bias
-#: bounds below 0.1 posterior sd at this fraction, see docs/probe-records.md)
-BLOCK_FRACTION = 0.02
+#: block duration as a fraction of the typical dwell time (coarse mode); when the measured
+#: bias bound exceeds BIAS_LIMIT_SD the blocks are halved and the posterior sampled again
+#: (at most twice)
+BLOCK_FRACTION = 0.01
 #: probes used by the pilot that finds the starting point
 PILOT_PROBES = 50_000
 #: draws whose marginals are averaged into the posterior mean trajectory
@@ -196,7 +197,7 @@ def fit_probes(
     mode
         ``"exact"``, ``"coarse"`` or ``"auto"`` (module docstring).
     block_probes
-        Probes per block in the coarse mode (default from the pilot estimate: 2% of
+        Probes per block in the coarse mode (default from the pilot estimate: 1% of
         the typical dwell time).
     initial
         ``"stationary"`` (each segment starts in thermal equilibrium) or a Fock
@@ -276,9 +277,18 @@ def _fit(record, *, response, freq_hz=None, stage_temp_k=None, priors=None, sett
                 "expected number of visits above the top level during the record stays below "
                 f"{TRUNCATION_VISITS:g} (at most {exact.max_levels})",
     }
-    if use_coarse:
+    while use_coarse:
         check = bias_check(model, run.draws)
         checks["coarse_bias"] = check
+        if check["bias_bound_sd"] < BIAS_LIMIT_SD or blocks < 4 or block_probes or \
+                len(checks.setdefault("coarse_refits", [])) >= 2:
+            break
+        checks["coarse_refits"].append({"block_probes": int(blocks),
+                                        "bias_bound_sd": check["bias_bound_sd"]})
+        blocks //= 2
+        model = BlockedProbeLikelihood(exact, blocks)
+        run = sample_posterior(model, specs, np.median(run.draws, axis=0), settings)
+    if use_coarse:
         if not check["bias_bound_sd"] < BIAS_LIMIT_SD:
             warnings.warn(f"coarse mode: the bias bound {check['bias_bound_sd']:.2f} posterior "
                           f"sd exceeds {BIAS_LIMIT_SD}; refit with mode='exact' (--exact) or "

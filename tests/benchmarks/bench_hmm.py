@@ -22,6 +22,21 @@ import time
 import numpy as np
 
 
+def peak_rss_mb() -> float:
+    """Peak resident memory of this process in MB: VmHWM from /proc (fresh at exec, unlike
+    getrusage's ru_maxrss, which a child started from a big parent may inherit)."""
+    try:
+        with open("/proc/self/status", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("VmHWM:"):
+                    return float(line.split()[1]) / 1024.0
+    except OSError:
+        pass
+    import resource
+
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+
+
 def median_time(func, repeats: int) -> float:
     times = []
     for _ in range(repeats):
@@ -49,11 +64,9 @@ def make_case(n_probes: int, n_levels: int, k: int, seed: int = 1):
 
 def memory_child(n_probes: int, n_levels: int) -> None:
     """Run in a fresh process: likelihood (32 sets), marginals and Viterbi; print peak RSS."""
-    import resource
-
     import cavchar.models.hmm_kernels  # noqa: F401  (libraries loaded before the baseline)
 
-    base_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+    base_mb = peak_rss_mb()
     c = make_case(n_probes, n_levels, 32)
     hk = c["hk"]
     tr = hk.Transitions.regular(c["trans"])
@@ -64,7 +77,7 @@ def memory_child(n_probes: int, n_levels: int) -> None:
     r, lam, left = hk.eigen_parts(c["kappa"], c["n_th"], n_levels)
     dts = np.random.default_rng(2).exponential(c["dt"], n_probes)
     hk.forward_loglik(hk.Transitions.eigen(r, lam, left, dts), c["p0"], c["emis"], c["seq"])
-    peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+    peak_mb = peak_rss_mb()
     print(json.dumps({"peak_mb": peak_mb, "base_mb": base_mb,
                       "mean_n": float((post @ np.arange(n_levels)).mean()),
                       "path_max": int(path.max())}))
