@@ -8,7 +8,8 @@ from collections.abc import Callable
 from cavchar.units import parse_quantity
 
 __all__ = ["quantity", "add_output_options", "add_sampler_options", "add_fit_context_options",
-           "settings_from_args", "check_outputs", "finish_fit_command", "HelpFormatter"]
+           "settings_from_args", "rate_priors_from_args", "check_outputs", "finish_fit_command",
+           "HelpFormatter"]
 
 
 class HelpFormatter(argparse.ArgumentDefaultsHelpFormatter, argparse.RawDescriptionHelpFormatter):
@@ -71,6 +72,27 @@ def settings_from_args(args: argparse.Namespace):
 
     return SamplerSettings(n_walkers=args.walkers, max_steps=args.max_steps, seed=args.seed,
                            allow_unconverged=args.allow_unconverged, quiet=args.quiet)
+
+
+def rate_priors_from_args(args: argparse.Namespace, priors_class):
+    """``priors_class(lifetime=..., n_thermal=...)`` from ``--prior-lifetime`` and
+    ``--prior-n-thermal`` (``stage``: log-normal around the stage's Planck occupation);
+    options not given keep the class defaults."""
+    from cavchar.errors import InputError
+    from cavchar.priors import parse_prior, stage_occupation_prior
+
+    priors = priors_class()
+    lifetime, n_thermal = priors.lifetime, priors.n_thermal
+    if args.prior_lifetime:
+        lifetime = parse_prior(args.prior_lifetime, "time")
+    if args.prior_n_thermal:
+        if args.prior_n_thermal.strip().lower() == "stage":
+            if args.freq is None or args.stage_temp is None:
+                raise InputError("--prior-n-thermal stage needs --freq and --stage-temp")
+            n_thermal = stage_occupation_prior(args.freq, args.stage_temp)
+        else:
+            n_thermal = parse_prior(args.prior_n_thermal, "dimensionless", freq_hz=args.freq)
+    return priors_class(lifetime=lifetime, n_thermal=n_thermal)
 
 
 def check_outputs(args: argparse.Namespace) -> None:

@@ -14,6 +14,7 @@ from cavchar.cli.common import (
     check_outputs,
     finish_fit_command,
     quantity,
+    rate_priors_from_args,
     settings_from_args,
 )
 
@@ -60,23 +61,10 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
 
 
 def handle(args: argparse.Namespace) -> int:
-    from cavchar.errors import InputError
     from cavchar.fits.jumps import JumpPriors, fit_jumps
-    from cavchar.priors import parse_prior, stage_occupation_prior
 
     check_outputs(args)
-    priors = JumpPriors()
-    if args.prior_lifetime:
-        priors = JumpPriors(lifetime=parse_prior(args.prior_lifetime, "time"),
-                            n_thermal=priors.n_thermal)
-    if args.prior_n_thermal:
-        if args.prior_n_thermal.strip().lower() == "stage":
-            if args.freq is None or args.stage_temp is None:
-                raise InputError("--prior-n-thermal stage needs --freq and --stage-temp")
-            prior = stage_occupation_prior(args.freq, args.stage_temp)
-        else:
-            prior = parse_prior(args.prior_n_thermal, "dimensionless", freq_hz=args.freq)
-        priors = JumpPriors(lifetime=priors.lifetime, n_thermal=prior)
+    priors = rate_priors_from_args(args, JumpPriors)
     result = fit_jumps(
         args.record,
         freq_hz=args.freq,

@@ -14,6 +14,7 @@ from cavchar.cli.common import (
     add_sampler_options,
     check_outputs,
     finish_fit_command,
+    rate_priors_from_args,
     settings_from_args,
 )
 
@@ -133,25 +134,13 @@ def handle(args: argparse.Namespace) -> int:
     from cavchar.fits.probes import ProbePriors, fit_probes_with_trajectory
     from cavchar.io.atomic import check_can_write
     from cavchar.io.writers import write_jump_record
-    from cavchar.priors import parse_prior, stage_occupation_prior
 
     check_outputs(args)
     if args.out:
         for name in ("trajectory.csv", "viterbi_jumps.csv"):
             check_can_write(Path(args.out) / name, args.force)
     response = build_response(args)
-    priors = ProbePriors()
-    if args.prior_lifetime:
-        priors = ProbePriors(lifetime=parse_prior(args.prior_lifetime, "time"),
-                             n_thermal=priors.n_thermal)
-    if args.prior_n_thermal:
-        if args.prior_n_thermal.strip().lower() == "stage":
-            if args.freq is None or args.stage_temp is None:
-                raise InputError("--prior-n-thermal stage needs --freq and --stage-temp")
-            prior = stage_occupation_prior(args.freq, args.stage_temp)
-        else:
-            prior = parse_prior(args.prior_n_thermal, "dimensionless", freq_hz=args.freq)
-        priors = ProbePriors(lifetime=priors.lifetime, n_thermal=prior)
+    priors = rate_priors_from_args(args, ProbePriors)
     if args.block_probes is not None and args.block_probes < 1:
         raise InputError("--block-probes must be at least 1")
     result, trajectory = fit_probes_with_trajectory(
