@@ -232,10 +232,10 @@ def fit_ringdown(
     settings = ringdown_settings(settings, seed)
     run = sample_posterior(model.log_likelihood, specs, _inside(model.initial_guess(), specs),
                            settings)
-    seeds = np.random.SeedSequence(run.settings.seed).spawn(6)
+    seeds = np.random.SeedSequence(run.settings.seed).spawn(7)
     nuisance = model.draw_nuisance(run.draws, np.random.default_rng(seeds[4]))
     point = np.median(run.draws, axis=0)
-    residuals = residual_diagnostics(model, data.signal, point)
+    residuals = residual_diagnostics(model, data.signal, point, np.random.default_rng(seeds[6]))
     checks: dict[str, Any] = {"residuals": residuals, "decay": decay}
     compression = _compression_check(model, run.draws)
     if compression is not None:

@@ -11,8 +11,9 @@ imaginary parts).  Per trace:
 * lag-1 autocorrelation ``rho_1 = sum r_i r_{i+1} / sum r_i^2``, for white noise
   about ``N(0, 1/n)`` (Box & Jenkins): flagged when ``|rho_1| > 3.29 / sqrt(n)``
   (two-sided 1e-3);
-* populations: Pearson's chi-square of the counts (levels 0..K-1 plus the
-  unobserved rest) with ``m K - 2`` degrees of freedom, flagged below p = 1e-3.
+* populations: the deviance of the counts calibrated by a parametric bootstrap
+  with refits (:mod:`cavchar.fits.population_check`): sparse cells and the fixed
+  shots per delay make Pearson's chi-square law invalid there; flagged below 1e-3.
 
 Flags raise a :class:`~cavchar.errors.ModelMisfitWarning`.
 """
@@ -51,10 +52,14 @@ def model_series(model) -> list:
     return list(series) if isinstance(series, (list, tuple)) else [series]
 
 
-def residual_diagnostics(model, signal: str, theta: np.ndarray, counts=None) -> dict:
-    """Diagnostics of the module docstring at the parameter point ``theta`` (ndim,)."""
+def residual_diagnostics(model, signal: str, theta: np.ndarray,
+                         rng: np.random.Generator | None = None) -> dict:
+    """Diagnostics of the module docstring at the parameter point ``theta`` (ndim,).
+
+    ``rng`` drives the bootstrap of the population check (default: seed 0).
+    """
     if signal == "populations":
-        return _population_diagnostics(model, theta)
+        return _population_diagnostics(model, theta, rng or np.random.default_rng(0))
     n_traces = len(model_series(model))
     linear = {"power": 2, "power2": 1, "iq": 4, "mean-n": 1}.get(signal, 0)
     per_param = model.ndim / n_traces + linear  # fitted parameters per trace
@@ -86,22 +91,12 @@ def residual_diagnostics(model, signal: str, theta: np.ndarray, counts=None) -> 
     return _finish({"traces": out}, flags)
 
 
-def _population_diagnostics(model, theta) -> dict:
-    p = model.expected(theta)[0]  # (m, K)
-    counts = model.counts
-    shots = counts.sum(axis=1)
-    rest = np.clip(1.0 - p.sum(axis=1), 0.0, None)
-    expected = np.column_stack([p, rest]) * shots[:, None]
-    observed = np.column_stack([counts, np.zeros(counts.shape[0])])
-    use = expected > 1e-12 * shots[:, None]
-    chi2 = float(np.sum((observed[use] - expected[use]) ** 2 / expected[use]))
-    dof = max(int(counts.size) - 2, 1)
-    pval = float(stats.chi2.sf(chi2, dof))
-    flags = []
-    if pval < MISFIT_P:
-        flags.append(f"Pearson chi-square {chi2:.1f} with {dof} degrees of freedom "
-                     f"(p = {pval:.2g}): the counts do not follow the rate equations")
-    return _finish({"pearson_chi2": chi2, "dof": dof, "p_value": pval}, flags)
+def _population_diagnostics(model, theta, rng: np.random.Generator) -> dict:
+    from cavchar.fits.population_check import population_goodness_of_fit
+
+    check = population_goodness_of_fit(model, theta, rng, threshold=MISFIT_P)
+    flag = check.pop("flag")
+    return _finish(check, [flag] if flag else [])
 
 
 def _finish(out: dict, flags: list[str]) -> dict:
