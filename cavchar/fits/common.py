@@ -47,7 +47,12 @@ def finish_fit(
     extras: dict[str, Any] | None = None,
     model_settings: dict[str, Any] | None = None,
 ) -> FitResult:
-    """Build the :class:`FitResult` of a finished run with provenance and derived quantities."""
+    """Build the :class:`FitResult` of a finished run with provenance and derived quantities.
+
+    Adds ``checks["prior_bounds"]`` (:func:`cavchar.inference.prior_bounds.prior_bound_check`):
+    parameters whose posterior reaches a bound of their prior, reported as one-sided limits.
+    """
+    from cavchar.inference.prior_bounds import prior_bound_check
     from cavchar.provenance import collect_provenance
 
     sources = context.sources()
@@ -58,6 +63,8 @@ def finish_fit(
     )
     if context.command:
         provenance["command"] = context.command
+    checks = dict(checks or {})
+    checks["prior_bounds"] = prior_bound_check(run.specs, run.draws)
     return FitResult.from_run(
         kind, run, freq_hz=context.freq_hz, stage_temp_k=context.stage_temp_k,
         provenance=provenance, fit_settings=model_settings, checks=checks, extras=extras,

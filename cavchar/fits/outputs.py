@@ -51,6 +51,8 @@ def summary_text(result: FitResult) -> str:
     for name in ("lifetime", "n_thermal"):
         if name in table.index:
             lines.append("  " + result.one_line(name))
+    for message in result.checks.get("prior_bounds", {}).get("flags", []):
+        lines.append("  prior bound: " + message)
     return "\n".join(lines)
 
 
