@@ -52,6 +52,7 @@ import math
 import numpy as np
 from scipy import optimize, special
 
+from cavchar.decay import rice_logpdf
 from cavchar.models.ringdown_base import (
     DecaySeries,
     ParameterInfo,
@@ -65,17 +66,6 @@ from cavchar.models.ringdown_sums import ExponentialSums
 __all__ = ["rice_logpdf", "MagnitudeDecay", "IQDecay"]
 
 _BLOCK = 2_000_000
-
-
-def rice_logpdf(m: np.ndarray, nu: np.ndarray, sigma: np.ndarray) -> np.ndarray:
-    """Log density of the Rice law (module docstring); broadcasts; -inf for m <= 0."""
-    m = np.asarray(m, dtype=float)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        s2 = sigma * sigma
-        x = m * nu / s2
-        out = (np.log(m) - np.log(s2) - (m * m + nu * nu) / (2 * s2)
-               + np.log(special.i0e(x)) + x)
-    return np.where(m > 0, out, -np.inf)
 
 
 class MagnitudeDecay:

@@ -42,6 +42,12 @@ import numpy as np
 from numpy.typing import ArrayLike
 from scipy import special
 
+from cavchar.decay import (
+    RINGDOWN_NUISANCES,
+    initial_distribution,
+    ringdown_mean,
+    ringdown_signal,
+)
 from cavchar.dynamics import stationary_distribution, truncation_levels
 from cavchar.errors import InputError
 
@@ -52,11 +58,9 @@ __all__ = [
     "probe_information",
     "probe_table",
     "ringdown_information",
-    "ringdown_mean",
     "rice_information",
     "schur_complement",
     "numerical_hessian",
-    "RINGDOWN_NUISANCES",
 ]
 
 #: tail of the stationary law neglected by the truncations used here
@@ -397,72 +401,13 @@ def probe_information(
 
 #: nuisance parameters of each ring-down signal kind, in order (after the parameters of
 #: interest); each can be fitted or fixed
-RINGDOWN_NUISANCES = {
-    "power": ("amplitude", "floor"),
-    "db": ("amplitude", "floor"),
-    "amplitude": ("amplitude", "noise"),
-    "iq": ("amplitude_re", "amplitude_im", "detuning", "offset_re", "offset_im"),
-    "mean_n": ("initial_mean",),
-    "populations": (),
-}
 _INTEREST = {"power": ("lifetime",), "db": ("lifetime",), "amplitude": ("lifetime",),
              "iq": ("lifetime",), "mean_n": ("lifetime", "n_thermal"),
              "populations": ("lifetime", "n_thermal")}
 
 
 def _signal(signal: str) -> str:
-    name = str(signal).lower().replace("-", "_")
-    if name not in _INTEREST:
-        raise InputError(f"unknown signal kind {signal!r}",
-                         hint="choose power, db, amplitude, iq, mean_n or populations")
-    return name
-
-
-def ringdown_mean(signal: str, times: ArrayLike, theta: ArrayLike, t0: float = 0.0,
-                  ) -> tuple[np.ndarray, np.ndarray]:
-    """Noise-free ring-down model and its Jacobian for the Gaussian and Rice kinds.
-
-    ``theta`` holds the parameters of interest then every nuisance of
-    :data:`RINGDOWN_NUISANCES` (``u = exp(-(t - t0)/T_c)``, ``tau = t - t0``):
-
-    * power ``A u + F``; db ``10 log10(A u + F)``;
-    * amplitude (the Rice location) ``A u^(1/2)`` (the noise parameter does not enter);
-    * iq ``(c_re + i c_im) u^(1/2) exp(-2 pi i Delta tau) + o_re + i o_im``;
-    * mean_n ``n_th + (n0 - n_th) u``.
-
-    Returns the model (m,) (complex for iq) and the Jacobian (m, p).
-    """
-    signal = _signal(signal)
-    theta = np.asarray(theta, dtype=float)
-    tau = np.asarray(times, dtype=float) - t0
-    t_c = theta[0]
-    u = np.exp(-tau / t_c)
-    du = u * tau / t_c**2  # du/dT_c
-    if signal in ("power", "db"):
-        a, f = theta[1], theta[2]
-        lin = a * u + f
-        jac = np.column_stack([a * du, u, np.ones_like(u)])
-        if signal == "power":
-            return lin, jac
-        if np.any(lin <= 0):
-            raise InputError("a dB ring-down needs amplitude * decay + floor > 0 at all times")
-        return 10 * np.log10(lin), jac * (10 / math.log(10)) / lin[:, None]
-    if signal == "amplitude":
-        a = theta[1]
-        r = np.sqrt(u)
-        return a * r, np.column_stack([a * 0.5 * du / r, r, np.zeros_like(u)])
-    if signal == "iq":
-        c = theta[1] + 1j * theta[2]
-        rot = np.sqrt(u) * np.exp(-2j * np.pi * theta[3] * tau)
-        field = c * rot
-        one = np.ones_like(rot)
-        jac = np.column_stack([field * 0.5 * tau / t_c**2, rot, 1j * rot,
-                               field * (-2j * np.pi * tau), one, 1j * one])
-        return field + theta[4] + 1j * theta[5], jac
-    if signal == "mean_n":
-        n, n0 = theta[1], theta[2]
-        return n + (n0 - n) * u, np.column_stack([(n0 - n) * du, 1 - u, u])
-    raise InputError("populations have no Gaussian mean model")  # pragma: no cover
+    return ringdown_signal(signal)
 
 
 def rice_information(location: ArrayLike, noise: float, n_grid: int = 2001) -> np.ndarray:
@@ -494,11 +439,7 @@ def rice_information(location: ArrayLike, noise: float, n_grid: int = 2001) -> n
 
 def _population_information(times, lifetime, n_thermal, initial, shots, t0):
     """Multinomial information ``shots sum_n grad p_n grad p_n^T / p_n`` summed over delays."""
-    p0 = np.atleast_1d(np.asarray(initial, dtype=float))
-    if p0.size == 1 and float(p0[0]).is_integer():
-        fock = int(p0[0])
-        p0 = np.zeros(fock + 1)
-        p0[fock] = 1.0
+    p0 = initial_distribution(initial)
     n_max = int(np.flatnonzero(p0 > 0).max())
     n_levels = max(truncation_levels(n_thermal, n_max, TAIL), p0.size)
     p0 = np.pad(p0, (0, n_levels - p0.size))

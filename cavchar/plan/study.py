@@ -39,18 +39,16 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
-from scipy import special
 
+from cavchar.decay import RINGDOWN_NUISANCES, rice_logpdf, ringdown_mean
 from cavchar.dynamics import truncation_levels
 from cavchar.errors import InputError
 from cavchar.plan.fisher import (
-    RINGDOWN_NUISANCES,
     TAIL,
     _probe_loglik,
     numerical_hessian,
     probe_table,
     ringdown_information,
-    ringdown_mean,
 )
 
 __all__ = ["StudyResult", "maximize", "study_jumps", "study_probes", "study_ringdown"]
@@ -217,13 +215,6 @@ def study_probes(lifetime: float, n_thermal: float, probe_interval: float, respo
 # --------------------------------------------------------------------------- ring-downs
 
 
-def _rice_logpdf(x: np.ndarray, nu: np.ndarray, sigma: np.ndarray) -> np.ndarray:
-    """``ln p(x | nu, sigma)`` of the Rice law (scaled Bessel function for large arguments)."""
-    arg = x * nu / sigma**2
-    return (np.log(x) - 2 * np.log(sigma) - (x - nu) ** 2 / (2 * sigma**2)
-            + np.log(special.ive(0, arg)))
-
-
 def study_ringdown(signal: str, times: ArrayLike, lifetime: float, n_traces: int,
                    scale: ArrayLike | None = None, *, noise: float = 0.0, amplitude: float = 1.0,
                    floor: float = 0.0, t0: float = 0.0, n_thermal: float = 0.0,
@@ -299,7 +290,7 @@ def study_ringdown(signal: str, times: ArrayLike, lifetime: float, n_traces: int
                 for k, row in enumerate(th):
                     if row[0] > 0 and row[1] > 0 and row[2] > 0:
                         nu, _ = ringdown_mean(signal, times, row, t0)
-                        out[k] = np.sum(_rice_logpdf(value, nu[None, :], row[2]))
+                        out[k] = np.sum(rice_logpdf(value, nu[None, :], row[2]))
                 return out
 
             return loglik, truth

@@ -12,6 +12,7 @@ from collections.abc import Mapping
 import numpy as np
 from numpy.typing import ArrayLike
 
+from cavchar.decay import initial_distribution, ringdown_mean
 from cavchar.errors import InputError
 from cavchar.records import RingdownTrace
 from cavchar.simulate._common import Seed, check_physics, rng_from, truth_metadata
@@ -95,31 +96,30 @@ def simulate_ringdown(
         raise InputError("give at least one time, traces >= 1 and noise >= 0")
     rng = rng_from(seed)
     m = times.size
-    decay = np.exp(-(times - t0) * kappa)
     shape = (int(traces), m)
     extra: dict[str, object] = {"signal": signal, "true_t0": f"{t0!r} s"}
     if signal in ("power", "db"):
-        clean = amplitude * decay + floor
+        clean, _ = ringdown_mean(signal, times, [lifetime, amplitude, floor], t0)
         extra.update(true_amplitude=repr(amplitude), true_floor=repr(floor))
-        if signal == "db":
-            if np.any(clean <= 0):
-                raise InputError("a dB trace needs amplitude * decay + floor > 0 at all times")
-            clean = 10.0 * np.log10(clean)
         value = clean + noise * rng.standard_normal(shape)
     elif signal in ("amplitude", "iq"):
-        field = amplitude * np.exp(1j * phase) * np.sqrt(decay)
+        c = amplitude * np.exp(1j * phase)
+        drift = detuning if signal == "iq" else 0.0
+        off = complex(offset) if signal == "iq" else 0j
+        field, _ = ringdown_mean("iq", times, [lifetime, c.real, c.imag, drift, off.real,
+                                               off.imag], t0)
         extra.update(true_amplitude=repr(amplitude), true_phase=f"{phase!r} rad")
         if signal == "iq":
-            field = field * np.exp(-2j * np.pi * detuning * (times - t0)) + offset
             extra.update(true_detuning=f"{detuning!r} Hz", true_offset=repr(complex(offset)))
         value = field + noise * (rng.standard_normal(shape) + 1j * rng.standard_normal(shape))
         if signal == "amplitude":
             value = np.abs(value)
     elif signal in ("mean_n", "populations"):
-        p0 = _initial_distribution(initial)
+        p0 = initial_distribution(initial)
         if signal == "mean_n":
             n0 = float(np.dot(np.arange(p0.size), p0))
-            value = n_th + (n0 - n_th) * decay + noise * rng.standard_normal(shape)
+            clean, _ = ringdown_mean("mean_n", times, [lifetime, n_th, n0], t0)
+            value = clean + noise * rng.standard_normal(shape)
             known_sigma = True if known_sigma is None else known_sigma
         else:
             value = _population_counts(kappa, n_th, p0, times - t0, shots, n_levels, shape, rng)
@@ -138,20 +138,6 @@ def simulate_ringdown(
     meta = truth_metadata(lifetime, n_th, seed, {**extra, **(metadata or {})})
     return RingdownTrace(np.tile(times, shape[0]), value, signal, sigma=sigma, trace=ids,
                          metadata=meta)
-
-
-def _initial_distribution(initial) -> np.ndarray:
-    if np.ndim(initial) == 0:
-        n0 = int(initial)
-        if n0 != initial or n0 < 0:
-            raise InputError(f"the initial Fock number must be a whole number >= 0, not {initial}")
-        p0 = np.zeros(n0 + 1)
-        p0[n0] = 1.0
-        return p0
-    p0 = np.asarray(initial, float)
-    if p0.ndim != 1 or np.any(p0 < 0) or not np.isclose(p0.sum(), 1.0, atol=1e-9):
-        raise InputError("the initial distribution must be probabilities summing to 1")
-    return p0
 
 
 def _population_counts(kappa, n_th, p0, delays, shots, n_levels, shape, rng) -> np.ndarray:

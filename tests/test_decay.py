@@ -1,0 +1,64 @@
+"""Noise-free ring-down curves: closed forms, Jacobians against finite differences,
+the Rice law against scipy.stats.rice, and the initial-state parser."""
+
+import numpy as np
+import pytest
+from scipy import optimize, stats
+
+from cavchar.decay import initial_distribution, rice_logpdf, ringdown_mean
+from cavchar.errors import InputError
+
+TIMES = np.linspace(0.0, 5e-3, 40)
+CASES = {
+    "power": [1.2e-3, 2.0, 0.1],
+    "db": [1.2e-3, 2.0, 0.1],
+    "amplitude": [1.2e-3, 1.5, 0.2],
+    "iq": [1.2e-3, 0.8, -0.6, 350.0, 0.05, -0.02],
+    "mean_n": [1.2e-3, 0.3, 2.0],
+}
+
+
+@pytest.mark.parametrize("signal", sorted(CASES))
+def test_jacobian_against_finite_differences(signal):
+    # source: scipy.optimize.approx_fprime (forward differences, relative steps);
+    # tolerance 1e-5 relative covers its truncation error at step 1e-8 * |theta|
+    theta = np.array(CASES[signal])
+    model, jac = ringdown_mean(signal, TIMES, theta, t0=1e-4)
+    for part in (np.real, np.imag) if np.iscomplexobj(model) else (np.real,):
+        for i in range(TIMES.size):
+            def f(t, i=i, part=part):
+                return part(ringdown_mean(signal, TIMES, t, t0=1e-4)[0])[i]
+            step = 1e-7 * np.maximum(np.abs(theta), 1e-3)
+            ref = optimize.approx_fprime(theta, f, step)
+            np.testing.assert_allclose(part(jac[i]), ref, rtol=2e-5,
+                                       atol=2e-5 * np.max(np.abs(ref)) + 1e-12)
+
+
+def test_closed_forms():
+    t_c = 2e-3
+    tau = TIMES
+    # energy decays as exp(-t/T_c); the field magnitude as exp(-t/(2 T_c)) (textbook)
+    power, _ = ringdown_mean("power", tau, [t_c, 1.0, 0.0])
+    np.testing.assert_allclose(power, np.exp(-tau / t_c), rtol=1e-14)
+    amp, _ = ringdown_mean("amplitude", tau, [t_c, 1.0, 0.0])
+    np.testing.assert_allclose(amp, np.exp(-tau / (2 * t_c)), rtol=1e-14)
+    # <n>(t) relaxes to n_th: d<n>/dt = -kappa(<n> - n_th) (Walls & Milburn sec. 6.1)
+    mean, _ = ringdown_mean("mean_n", tau, [t_c, 0.2, 3.0])
+    np.testing.assert_allclose(mean, 0.2 + 2.8 * np.exp(-tau / t_c), rtol=1e-14)
+
+
+def test_rice_logpdf_against_scipy():
+    # source: scipy.stats.rice with shape b = nu / sigma and scale sigma; the large-nu
+    # case (nu / sigma = 80) checks the scaled Bessel function where I_0 would overflow
+    for nu, sigma in ((0.0, 1.0), (2.0, 0.7), (40.0, 0.5)):
+        m = np.clip(nu + sigma * np.linspace(-4.0, 6.0, 50), 0.01, None)
+        ref = stats.rice.logpdf(m, nu / sigma, scale=sigma)
+        np.testing.assert_allclose(rice_logpdf(m, nu, sigma), ref, rtol=1e-9, atol=1e-9)
+
+
+def test_initial_distribution():
+    np.testing.assert_array_equal(initial_distribution(2), [0.0, 0.0, 1.0])
+    np.testing.assert_array_equal(initial_distribution([0.25, 0.75]), [0.25, 0.75])
+    for bad in (1.5, -1, [0.5, 0.6]):
+        with pytest.raises(InputError):
+            initial_distribution(bad)
