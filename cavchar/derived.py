@@ -1,7 +1,7 @@
 """Quantities derived from posterior draws of the lifetime and the thermal photon number.
 
-Per draw (equations; Q and linewidth from Q = 2 pi x stored energy / energy lost per
-cycle, see CHECKS.md):
+Per draw (equations; Q, linewidth and amplitude decay time from
+:mod:`cavchar.quantities`, which also holds the units and labels of every column):
 
     quality_factor        Q = 2 pi nu T_c
     linewidth             FWHM = kappa / (2 pi) = 1 / (2 pi T_c)        [Hz]
@@ -22,21 +22,11 @@ import numpy as np
 import pandas as pd
 
 from cavchar.errors import InputError
+from cavchar.quantities import COLUMN_INFO, amplitude_decay_time, linewidth, quality_factor
 
 __all__ = ["add_derived_quantities", "planck_check", "COLUMN_INFO", "CREDIBLE_68",
            "PILE_UP_RATIO"]
 
-#: derived column -> (unit, dimension, label)
-COLUMN_INFO: dict[str, tuple[str, str, str]] = {
-    "lifetime": ("s", "time", "T_c"),
-    "n_thermal": ("", "dimensionless", "n_th"),
-    "quality_factor": ("", "dimensionless", "Q"),
-    "linewidth": ("Hz", "frequency", "linewidth (FWHM)"),
-    "amplitude_decay_time": ("s", "time", "amplitude decay time 2 T_c"),
-    "effective_temperature": ("K", "temperature", "T_eff"),
-    "stage_occupation": ("", "dimensionless", "n(nu, T_stage)"),
-    "excess_photons": ("", "dimensionless", "n_th - n(nu, T_stage)"),
-}
 
 #: probability mass of a one-sigma interval of a normal law (the "68%" intervals)
 CREDIBLE_68 = math.erf(1.0 / math.sqrt(2.0))
@@ -92,10 +82,10 @@ def add_derived_quantities(samples: pd.DataFrame, freq_hz: float | None = None,
     t_c = out["lifetime"].to_numpy(dtype=float)
     if np.any(~(t_c > 0)):
         raise InputError("lifetime draws must be positive")
-    out["linewidth"] = 1.0 / (2.0 * np.pi * t_c)
-    out["amplitude_decay_time"] = 2.0 * t_c
+    out["linewidth"] = linewidth(t_c)
+    out["amplitude_decay_time"] = amplitude_decay_time(t_c)
     if freq_hz is not None:
-        out["quality_factor"] = 2.0 * np.pi * freq_hz * t_c
+        out["quality_factor"] = quality_factor(freq_hz, t_c)
     has_n = "n_thermal" in out.columns
     if has_n and freq_hz is not None:
         n = out["n_thermal"].to_numpy(dtype=float)

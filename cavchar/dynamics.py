@@ -70,12 +70,19 @@ def down_rate(kappa: ArrayLike, n_th: ArrayLike, n: ArrayLike) -> np.ndarray:
     return np.asarray(kappa) * (1 + np.asarray(n_th)) * np.asarray(n)
 
 
-def bose_einstein(n_th: float, n: ArrayLike) -> np.ndarray:
-    """Untruncated Bose–Einstein law ``P_n = n_th^n / (1 + n_th)^(n+1)``."""
+def bose_einstein(n_th: ArrayLike, n: ArrayLike) -> np.ndarray:
+    """Untruncated Bose–Einstein law ``P_n = n_th^n / (1 + n_th)^(n+1)``.
+
+    A scalar ``n_th`` gives the shape of ``n``; an array ``n_th`` of shape (k,)
+    gives shape (k,) + ``n.shape`` (one law per parameter set).
+    """
     n = np.asarray(n, dtype=float)
-    if n_th == 0:
-        return np.where(n == 0, 1.0, 0.0)
-    return np.exp(n * np.log(n_th) - (n + 1) * np.log1p(n_th))
+    nth = np.asarray(n_th, dtype=float)
+    batched = nth.ndim > 0
+    nth = nth.reshape(nth.shape + (1,) * n.ndim) if batched else nth
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out = np.exp(n * np.log(nth) - (n + 1) * np.log1p(nth))
+    return np.where(nth == 0, np.where(n == 0, 1.0, 0.0), out)
 
 
 def truncation_levels(n_th: float, n_max: int = 0, tail: float = 1e-12) -> int:

@@ -62,3 +62,27 @@ def test_initial_distribution():
     for bad in (1.5, -1, [0.5, 0.6]):
         with pytest.raises(InputError):
             initial_distribution(bad)
+
+
+def test_figures_of_merit():
+    # Q = 2 pi nu T_c and FWHM = 1/(2 pi T_c) (Pozar, Microwave Engineering, sec. 6.1);
+    # from memory: a 1 ms energy lifetime at 5 GHz is Q ~ 3.1e7 and a 159 Hz linewidth
+    from cavchar.quantities import amplitude_decay_time, linewidth, quality_factor
+
+    assert quality_factor(5e9, 1e-3) == pytest.approx(3.1416e7, rel=1e-4)
+    assert linewidth(1e-3) == pytest.approx(159.155, rel=1e-5)
+    assert amplitude_decay_time(1e-3) == pytest.approx(2e-3)
+
+
+def test_bose_einstein_batched_matches_scipy_geometric():
+    # source: scipy.stats.geom with success probability 1/(1+n_th), shifted to start at 0
+    from cavchar.dynamics import bose_einstein
+
+    n = np.arange(12)
+    n_th = np.array([0.0, 0.05, 0.7, 3.0])
+    batch = bose_einstein(n_th, n)
+    assert batch.shape == (4, 12)
+    for row, value in zip(batch, n_th):
+        ref = stats.geom.pmf(n + 1, 1 / (1 + value)) if value > 0 else (n == 0).astype(float)
+        np.testing.assert_allclose(row, ref, rtol=1e-12, atol=1e-300)
+        np.testing.assert_allclose(bose_einstein(float(value), n), row)

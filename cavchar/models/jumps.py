@@ -38,7 +38,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike
 
-from cavchar.dynamics import symmetric_eigen_batch, truncation_levels
+from cavchar.dynamics import bose_einstein, symmetric_eigen_batch
 
 __all__ = [
     "JumpStatistics",
@@ -295,24 +295,11 @@ def sampled_log_likelihood(
         logp = np.log(np.clip(prob, 0.0, None))
     total = logp @ trans.count
     if initial == "stationary":
-        total = total + np.sum(np.log(bose_einstein_batch(nth, trans.initial_states)), axis=1)
+        total = total + np.sum(np.log(bose_einstein(nth, trans.initial_states)), axis=1)
     elif initial != "conditional":
         raise ValueError("initial must be 'conditional' or 'stationary'")
     out[ok] = np.where(np.isnan(total), -np.inf, total)
     return out
-
-
-def bose_einstein_batch(n_th: np.ndarray, states: np.ndarray) -> np.ndarray:
-    """Bose–Einstein probabilities, shape (k, s), for a batch of ``n_th``."""
-    s = np.asarray(states, dtype=float)[None, :]
-    nth = np.asarray(n_th, dtype=float)[:, None]
-    return np.exp(s * np.log(nth) - (s + 1) * np.log1p(nth))
-
-
-def sampled_truncation(trans: SampledTransitions, n_thermal_high: float) -> int:
-    """Levels for a sampled-record fit: observed maximum plus a tail below 1e-12 at
-    ``n_thermal_high`` (a generous upper value of n_th, e.g. a high posterior quantile)."""
-    return truncation_levels(n_thermal_high, trans.n_max)
 
 
 def dwell_times(

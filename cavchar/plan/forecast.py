@@ -34,6 +34,7 @@ from numpy.typing import ArrayLike
 from cavchar.errors import CavcharWarning, InputError
 from cavchar.plan import fisher, study
 from cavchar.plan.fisher import Information
+from cavchar.quantities import quality_factor
 
 __all__ = ["Forecast", "plan_jumps", "plan_probes", "plan_ringdown", "precision_curve",
            "COLUMNS", "StudyDisagreementWarning"]
@@ -102,7 +103,7 @@ class Forecast:
                          bound[i] / value if value > 0 else math.nan)
         if self.freq_hz:
             unit_, t_c, rel, err, brel = out["lifetime"]
-            out["quality_factor"] = ("", 2 * math.pi * self.freq_hz * t_c, rel, err, brel)
+            out["quality_factor"] = ("", float(quality_factor(self.freq_hz, t_c)), rel, err, brel)
             if "n_thermal" in out and out["n_thermal"][1] > 0:
                 n = out["n_thermal"][1]
                 t_eff = float(effective_temperature(self.freq_hz, n))
@@ -183,8 +184,8 @@ def _merge_study(table: pd.DataFrame, result: study.StudyResult, freq_hz: float 
 
     est = result.estimates[result.estimates["ok"]].copy()
     if freq_hz and "lifetime" in est:
-        est["quality_factor"] = 2 * math.pi * freq_hz * est["lifetime"]
-        est["quality_factor_sd"] = 2 * math.pi * freq_hz * est["lifetime_sd"]
+        est["quality_factor"] = quality_factor(freq_hz, est["lifetime"])
+        est["quality_factor_sd"] = quality_factor(freq_hz, est["lifetime_sd"])
     if freq_hz and "n_thermal" in est and (est["n_thermal"] > 0).all():
         est["effective_temperature"] = effective_temperature(freq_hz, est["n_thermal"])
         est["effective_temperature_sd"] = (d_temperature_d_occupation(freq_hz, est["n_thermal"])
