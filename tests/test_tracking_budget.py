@@ -194,17 +194,23 @@ def test_cli_budget_from_the_log(tmp_path, run_cli, monkeypatch):
         no_stage = make_result(rng.normal(2e-3, 1e-4, 100), np.full(100, 1e-3), freq=nu,
                                stage=None, sha="f" * 64)
         bad_id = log.add_fit(entry_from_result(no_stage), "A", "cd0")
-    code, _, err = run_cli("budget", "--cavity", "A")
-    assert code == 2 and f"fit(s) {bad_id} have no stage temperature" in err
-    code, out, err = run_cli("budget", "--cavity", "A", "--cooldown", "cd1", "-o", tmp_path / "o")
+    code, _, err = run_cli("budget", "--cavity", "A", "--cooldown", "cd0")
+    assert code == 2 and "no usable logged fit with n_th draws and a stage temperature" in err
+    code, out, err = run_cli("budget", "--cavity", "A", "-o", tmp_path / "o")
     assert code == 0, err
+    # the fit without a stage temperature is set aside and said so; cd0 has no budget
+    assert (f"note: cooldown cd0 has no budget: fit {bad_id} set aside (no stage temperature "
+            "logged)") in out
     assert "stated model: stage plus constant excess" in out and "not identifiable" in out
     assert "20 mK" in out and "excess photons n_x =" in out
+    assert "uses fit 1 at 20 mK: the only fit at 20 mK" in out
     doc = json.loads((tmp_path / "o" / "budget.json").read_text())
-    x = doc["stage_plus_excess"]["parameters"]["excess_photons"]
+    assert [c["cooldown"] for c in doc["per_cooldown"]] == ["cd1"]
+    assert doc["fit_ids"] == [1, 2, 3, 4]
+    x = doc["per_cooldown"][0]["budget"]["stage_plus_excess"]["parameters"]["excess_photons"]
     assert x["low_95"] < h < x["high_95"]
     assert (tmp_path / "o" / "budget.png").stat().st_size > 1000
-    code, _, err = run_cli("budget", "--cavity", "A", "--cooldown", "cd1", "-o", tmp_path / "o")
+    code, _, err = run_cli("budget", "--cavity", "A", "-o", tmp_path / "o")
     assert code == 2 and "already exists" in err
     code, _, err = run_cli("budget", "--cavity", "A", "--cooldown", "nope")
     assert code == 2 and "unknown cooldown 'nope'" in err

@@ -197,9 +197,11 @@ def test_cli_sources_and_bad_input(tmp_path, run_cli, monkeypatch):
     spec = tmp_path / "spec.toml"
     spec.write_text("[lifetime]\nat_least = '1.5ms'\ncredibility = 0.95\n"
                     "[thermal_photons]\nat_most = 0.01\ncredibility = 0.9\n")
-    # whole cavity: the newest fit measuring each quantity (ring-down of cd2 for the lifetime)
+    # no --cooldown: the latest cooldown with fits (cd2, a ring-down only); n_th is not taken
+    # from an older cooldown
     code, out, _ = run_cli("qualify", spec, "--cavity", "A")
-    assert code == EXIT_FAIL and "fit 2 (ringdown" in out and "fit 1 (jumps" in out
+    assert code == EXIT_FAIL and "fit 2 (ringdown, cooldown cd2 (the latest cooldown" in out
+    assert "no data on thermal photon number" in out and "fit 1" not in out
     assert run_cli("qualify", spec, "--cavity", "A", "--fit", "1")[0] == EXIT_PASS
     result = make_result(np.random.default_rng(34).normal(2e-3, 1e-4, 3000), sha="9" * 64)
     result.to_json(tmp_path / "r.json")

@@ -92,20 +92,25 @@ def test_trend_rows_intervals_and_selection(tmp_path):
                     "A", "cd1")
         log.add_fit(entry_from_result(random_result(rng, lifetime=1.9e-3, sha="2" * 64)),
                     "A", "cd2")
-        latest = log.add_fit(entry_from_result(random_result(rng, lifetime=1.8e-3,
-                                                             sha="4" * 64)), "A", "cd2")
+        precise = make_result(rng.normal(1.8e-3, 0.02 * 1.8e-3, 6000),
+                              np.exp(rng.normal(np.log(1e-3), 0.04, 6000)), sha="4" * 64)
+        latest = log.add_fit(entry_from_result(precise), "A", "cd2")
         ringdown = make_result(rng.normal(1.7e-3, 5e-5, 3000), sha="5" * 64, kind="ringdown")
         log.add_fit(entry_from_result(ringdown), "A", "cd2")
         trend = cooldown_trend(log, "A", kind="jumps")
         assert [r.cooldown for r in trend.rows] == ["cd1", "cd2", "cd3"]  # by start date
         row = trend.rows[1]
-        assert row.fit_id == latest and row.n_fits == 2  # two jumps fits in cd2
-        stored = log.draws(latest)
+        # the more precise of the two jumps fits at base temperature stands for cd2
+        assert row.fit_id == latest and row.n_fits == 3 and row.fit_ids == (latest,)
+        assert dict(row.set_aside)[latest - 1].startswith("at base temperature but less precise")
+        assert "not selected" in dict(row.set_aside)[latest + 1]  # the ring-down, --kind jumps
+        # intervals: the fit's own summary (all its draws), as a report of the result shows
+        summary = precise.summary()
         for name in ("lifetime", "n_thermal", "effective_temperature"):
-            q = np.quantile(stored[name], [0.5, 0.16, 0.84, 0.025, 0.975])
             s = row.stats[name]
-            np.testing.assert_allclose([s.median, s.low_68, s.high_68, s.low_95, s.high_95], q)
-        assert any("latest" in n for n in trend.notes)
+            np.testing.assert_allclose([s.median, s.low_68, s.high_68, s.low_95, s.high_95],
+                                       summary.loc[name, ["median", "lo68", "hi68", "lo95",
+                                                          "hi95"]].to_numpy(dtype=float))
         each = cooldown_trend(log, "A", each_fit=True)
         assert len(each.rows) == 5
         assert any("mix fit kinds" in n for n in each.notes)
@@ -115,7 +120,7 @@ def test_trend_rows_intervals_and_selection(tmp_path):
         with pytest.raises(InputError, match="unknown cooldown 'cd7'"):
             cooldown_trend(log, "A", reference="cd7")
         log.add_cooldown("empty")
-        with pytest.raises(InputError, match="no fit in reference cooldown 'empty'"):
+        with pytest.raises(InputError, match="no usable lifetime in reference cooldown 'empty'"):
             cooldown_trend(log, "A", reference="empty")
         with pytest.raises(InputError, match="unknown cavity 'Z'"):
             cooldown_trend(log, "Z")

@@ -7,12 +7,13 @@ import json
 from pathlib import Path
 
 from cavchar.cli.common import HelpFormatter, add_output_options, quantity
-from cavchar.cli.log import add_log_file_option
+from cavchar.cli.log import add_log_file_option, add_selection_options, interval_text
 from cavchar.errors import InputError
 
 EXAMPLES = """examples:
-  cavchar budget --cavity mirrors-B                       # every logged fit with n_th
+  cavchar budget --cavity mirrors-B                       # one budget per cooldown
   cavchar budget --cavity mirrors-B --cooldown CD12 -o budget/
+  cavchar budget --cavity mirrors-B --pool                # also all cooldowns together
   cavchar budget --result a.json --stage-temp 20mK --result b.json --stage-temp 80mK \\
                  --result c.json --stage-temp 150mK --freq 6.8GHz
 
@@ -21,6 +22,11 @@ plus a constant excess n_th = n(nu, T_stage) + n_x.  The two-bath model is state
 T_hot is identifiable (95% interval within a factor 10, clear of its prior bounds);
 otherwise the excess model is, and the output says so.  Each fit's n_th posterior serves
 as its likelihood (normal or kernel-density approximation in ln n_th, see --approximation).
+From the log, each cooldown gets its own budget (its own excess and, where identifiable,
+hot-bath temperature) from one fit per stage temperature (the most precise, or the one
+marked with `cavchar log prefer`); every fit used or set aside is listed with why.
+--pool adds one budget of all cooldowns together, with a likelihood-ratio check that
+they share one excess (and a clear statement when they do not).
 With -o DIR: budget.json and budget.png.
 """
 
@@ -37,7 +43,9 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument("--cavity", default=None, help="cavity name (data from the log)")
     parser.add_argument("--cooldown", action="append", default=None,
                         help="only fits of this cooldown (repeatable)")
-    parser.add_argument("--kind", default=None, help="only fits of this kind")
+    add_selection_options(parser)
+    parser.add_argument("--pool", action="store_true",
+                        help="also fit all cooldowns together (with a check that they agree)")
     parser.add_argument("--result", action="append", default=None, metavar="RESULT.json",
                         help="result file instead of the log (repeatable)")
     parser.add_argument("--stage-temp", type=quantity("temperature"), action="append",
@@ -79,69 +87,113 @@ def _points_from_results(args: argparse.Namespace):
     return points, (max(freqs) if freqs else None)
 
 
-def print_budget(budget) -> None:
+def _dim(name: str) -> str:
+    return "temperature" if "temperature" in name else "dimensionless"
+
+
+def print_budget(budget, indent: str = "") -> None:
+    """One budget (points, stated model and why, parameters) on stdout."""
     from cavchar.units import format_quantity
 
-    print(f"thermal budget at {format_quantity(budget.freq_hz, 'frequency', 6)}")
-    print(f"  {'data':<28} {'stage':>9} {'n_th median [95%]':<28} {'Planck n(stage)':>15}")
+    print(f"{indent}thermal budget at {format_quantity(budget.freq_hz, 'frequency', 6)}")
+    print(f"{indent}  {'data':<28} {'stage':>9}  {'n_th median [95%]':<30} Planck n(stage)")
     for p in budget.points:
-        print(f"  {p['label']:<28} {format_quantity(p['stage_temp_k'], 'temperature'):>9} "
-              f"{p['n_thermal_median']:.3g} [{p['n_thermal_low_95']:.3g}, "
-              f"{p['n_thermal_high_95']:.3g}]".ljust(70) + f"{p['planck_occupation']:>11.3g}")
-    print(f"stated model: {budget.model}")
-    print(f"  {budget.reason}")
+        stats = _Point(p)
+        print(f"{indent}  {p['label']:<28} "
+              f"{format_quantity(p['stage_temp_k'], 'temperature'):>9}  "
+              f"{interval_text(stats, 'dimensionless'):<30} "
+              f"{format_quantity(p['planck_occupation'], 'dimensionless')}")
+    print(f"{indent}stated model: {budget.model}")
+    print(f"{indent}  why: {budget.reason}")
     x = budget.excess.parameters["excess_photons"]
     if budget.excess_is_upper_limit:
-        print(f"  excess photons n_x < {x.high_95:.3g} (95% upper limit; no excess detected)")
+        print(f"{indent}  excess photons n_x < {format_quantity(x.high_95, 'dimensionless')} "
+              "(95% upper limit; no excess detected)")
     else:
-        print(f"  excess photons n_x = {x.median:.3g}  68%: [{x.low_68:.3g}, {x.high_68:.3g}]  "
-              f"95%: [{x.low_95:.3g}, {x.high_95:.3g}]")
+        print(f"{indent}  excess photons n_x = {interval_text(x, 'dimensionless')} "
+              "(median [95%])")
     if budget.two_bath is not None:
         tb = budget.two_bath.parameters
         lead = "" if budget.model == budget.two_bath.model else " (not identified)"
-        t, f, s = tb["hot_temperature"], tb["hot_fraction"], tb["excess_share_at_coldest"]
-        print(f"  two-bath{lead}: T_hot = {format_quantity(t.median, 'temperature')} 95%: "
-              f"[{format_quantity(t.low_95, 'temperature')}, "
-              f"{format_quantity(t.high_95, 'temperature')}]; f = {f.median:.3g} 95%: "
-              f"[{f.low_95:.3g}, {f.high_95:.3g}]")
-        print(f"  share of n_th from the hot side at the coldest stage: {s.median:.3g} "
-              f"95%: [{s.low_95:.3g}, {s.high_95:.3g}]")
+        print(f"{indent}  two-bath{lead}, median [95%]: T_hot = "
+              f"{interval_text(tb['hot_temperature'], 'temperature')}; hot fraction f = "
+              f"{interval_text(tb['hot_fraction'], 'dimensionless')}")
+        print(f"{indent}  share of n_th from the hot side at the coldest stage: "
+              f"{interval_text(tb['excess_share_at_coldest'], 'dimensionless')}")
     for note in budget.notes:
+        print(f"{indent}note: {note}")
+
+
+class _Point:
+    """Interval fields from a budget point's flat ``n_thermal_*`` keys."""
+
+    def __init__(self, p: dict) -> None:
+        self.median, self.low_68, self.high_68 = (p["n_thermal_median"], p["n_thermal_low_68"],
+                                                  p["n_thermal_high_68"])
+        self.low_95, self.high_95 = p["n_thermal_low_95"], p["n_thermal_high_95"]
+
+
+def print_budgets(report) -> None:
+    """Per-cooldown budgets (with the fits used and set aside), then the pooled one."""
+    from cavchar.units import format_quantity
+
+    print(f"cavity {report.cavity}: one thermal budget per cooldown")
+    for c in report.per_cooldown:
+        print(f"\ncooldown {c.cooldown}: fits {', '.join(str(i) for i in c.fit_ids)}")
+        for i, t, why in c.selection.used:
+            print(f"  uses fit {i} at {format_quantity(t, 'temperature')}: {why}")
+        for i, why in c.selection.set_aside:
+            print(f"  sets aside fit {i}: {why}")
+        print_budget(c.budget, indent="  ")
+    if report.pooled is not None:
+        print("\nall cooldowns pooled (on request):")
+        print_budget(report.pooled, indent="  ")
+    for note in report.notes:
         print(f"note: {note}")
 
 
 def handle(args: argparse.Namespace) -> int:
-    from cavchar.tracking.budget import points_from_log, thermal_budget
+    from cavchar.tracking.budget import cooldown_budgets, thermal_budget
 
     if (args.result is None) == (args.cavity is None):
         raise InputError("give either --cavity (data from the log) or --result files")
     out = None if args.out is None else Path(args.out)
     if out is not None and out.exists() and not out.is_dir():
         raise InputError("--out must be a folder", path=out)
-    if args.result is not None:
-        points, freq = _points_from_results(args)
-    else:
-        if args.stage_temp:
-            raise InputError("--stage-temp goes with --result; logged fits carry their own")
-        from cavchar.tracking.store import open_log
-
-        with open_log(args.log_file, create=False) as log:
-            points, freq = points_from_log(log, args.cavity, cooldowns=args.cooldown,
-                                           kind=args.kind)
-    freq = args.freq or freq
-    if freq is None:
-        raise InputError("the mode frequency is unknown", hint="give --freq, e.g. 6.8GHz")
     if out is not None:
         from cavchar.io.atomic import check_can_write
 
         for name in ("budget.json", "budget.png"):
             check_can_write(out / name, args.force)
-    budget = thermal_budget(points, freq, approximation=args.approximation,
-                            t_hot_max_k=args.t_hot_max, seed=args.seed)
+    if args.result is not None:
+        if args.pool or args.kind or args.min_stage_temp is not None \
+                or args.max_stage_temp is not None:
+            raise InputError("--pool, --kind and the stage-temperature filters select logged "
+                             "fits; they do not go with --result")
+        points, freq = _points_from_results(args)
+        freq = args.freq or freq
+        if freq is None:
+            raise InputError("the mode frequency is unknown", hint="give --freq, e.g. 6.8GHz")
+        budget = thermal_budget(points, freq, approximation=args.approximation,
+                                t_hot_max_k=args.t_hot_max, seed=args.seed)
+    else:
+        if args.stage_temp:
+            raise InputError("--stage-temp goes with --result; logged fits carry their own")
+        from cavchar.tracking.store import open_log
+
+        with open_log(args.log_file, readonly=True) as log:
+            budget = cooldown_budgets(log, args.cavity, cooldowns=args.cooldown,
+                                      kind=args.kind, pool=args.pool,
+                                      min_stage_k=args.min_stage_temp,
+                                      max_stage_k=args.max_stage_temp, freq_hz=args.freq,
+                                      approximation=args.approximation,
+                                      t_hot_max_k=args.t_hot_max, seed=args.seed)
     if args.json:
         print(json.dumps(budget.to_dict(), indent=1))
-    else:
+    elif args.result is not None:
         print_budget(budget)
+    else:
+        print_budgets(budget)
     if out is not None:
         import io
 

@@ -6,7 +6,12 @@ import argparse
 import json
 
 from cavchar.cli.common import HelpFormatter, quantity
-from cavchar.cli.log import add_log_file_option
+from cavchar.cli.log import (
+    add_log_file_option,
+    add_selection_options,
+    fit_id_arg,
+    interval_text,
+)
 from cavchar.errors import InputError
 
 EXAMPLES = """spec file (TOML), one table per requirement:
@@ -28,6 +33,10 @@ examples:
   cavchar qualify spec.toml --result fit.json --freq 6.8GHz
   cavchar qualify spec.toml --cavity mirrors-B --fit 7 --json
 
+From the log, the cooldown is represented by the fits that stand for it: those at its
+base stage temperature (lowest logged, within 20% + 1 mK), the most precise per quantity,
+unless a fit is marked with `cavchar log prefer` / `log exclude`; each verdict names its
+fit and why.
 PASS if P(met) >= credibility, FAIL if P(not met) >= credibility, else UNDECIDED.
 Exit code 0 all PASS, 4 any FAIL, 5 otherwise any UNDECIDED (2 bad input).
 """
@@ -44,8 +53,10 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     add_log_file_option(parser)
     parser.add_argument("--cavity", default=None, help="cavity name (data from the log)")
     parser.add_argument("--cooldown", default=None,
-                        help="only fits of this cooldown (default: all of the cavity's fits)")
-    parser.add_argument("--fit", type=int, default=None, metavar="FIT_ID",
+                        help="the cooldown judged (default: the latest with fits of the "
+                        "cavity); its fits at base stage temperature stand for it")
+    add_selection_options(parser)
+    parser.add_argument("--fit", type=fit_id_arg, default=None, metavar="FIT_ID",
                         help="use only this logged fit")
     parser.add_argument("--result", default=None, metavar="RESULT.json",
                         help="judge a result file instead of the log")
@@ -55,9 +66,14 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.set_defaults(func=handle)
 
 
+class _Span:
+    def __init__(self, v) -> None:
+        self.median, self.low_95, self.high_95 = v.median, v.low_95, v.high_95
+        self.low_68, self.high_68 = v.low_95, v.high_95  # decimals from the 95% interval
+
+
 def print_qualification(report) -> None:
     from cavchar.tracking.qualify import QUANTITIES
-    from cavchar.units import format_quantity
 
     title = f" {report.spec.title!r}" if report.spec.title else ""
     print(f"spec{title} ({report.spec.path}): {report.status}")
@@ -65,9 +81,8 @@ def print_qualification(report) -> None:
         dim = QUANTITIES[v.requirement.quantity][0]
         print(f"  {v.status:<9} {v.requirement.describe()}")
         if v.probability is not None:
-            print(f"            P(met) = {v.probability:.3f} (+- {v.mc_error:.3f} Monte Carlo); "
-                  f"median {format_quantity(v.median, dim)}, 95%: "
-                  f"[{format_quantity(v.low_95, dim)}, {format_quantity(v.high_95, dim)}]")
+            print(f"            P(met) = {v.probability:.3f} ± {v.mc_error:.3f} (Monte Carlo); "
+                  f"median [95%] {interval_text(_Span(v), dim)}")
         if v.evidence is not None:
             print(f"            data: {v.evidence.description}")
         if v.hint:
@@ -81,7 +96,8 @@ def handle(args: argparse.Namespace) -> int:
     if (args.result is None) == (args.cavity is None):
         raise InputError("give either --cavity (data from the log) or --result (a result file)")
     if args.result is not None:
-        if args.cooldown or args.fit is not None:
+        if (args.cooldown or args.fit is not None or args.kind
+                or args.min_stage_temp is not None or args.max_stage_temp is not None):
             raise InputError("--cooldown and --fit select logged fits; they do not go with "
                              "--result")
         from cavchar.tracking.records import read_result_file
@@ -90,9 +106,11 @@ def handle(args: argparse.Namespace) -> int:
     else:
         from cavchar.tracking.store import open_log
 
-        with open_log(args.log_file, create=False) as log:
+        with open_log(args.log_file, readonly=True) as log:
             evidence = evidence_from_log(log, args.cavity, cooldown=args.cooldown,
-                                         fit_id=args.fit, freq_hz=args.freq)
+                                         fit_id=args.fit, freq_hz=args.freq, kind=args.kind,
+                                         min_stage_k=args.min_stage_temp,
+                                         max_stage_k=args.max_stage_temp)
     report = qualify(spec, evidence)
     if args.json:
         print(json.dumps(report.to_dict(), indent=1))

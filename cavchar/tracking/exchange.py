@@ -1,7 +1,7 @@
 """Export the cooldown log to JSON or CSV and import such files back.
 
-JSON export (complete): ``{"format": "cavchar cooldown log export", "version": 1,
-"log_schema": 1, "exported_at", "cavities": [...], "cooldowns": [...],
+JSON export (complete): ``{"format": "cavchar cooldown log export", "version": 2,
+"log_schema": 2, "exported_at", "cavities": [...], "cooldowns": [...],
 "fits": [...]}``; each fit carries its settings, summary, provenance fields and
 its stored draws as base64 text of little-endian float32
 (``"draws": {"lifetime": "..."}``).
@@ -13,7 +13,10 @@ columns ``draws_<parameter>``.  Cavities or cooldowns without any fit are only
 in the JSON export.
 
 Both import back with :func:`import_log` into the same or another log: the
-draws come back bit for bit, and fits already present are skipped.
+draws come back bit for bit, and fits already present are skipped.  Version 2
+adds each fit's mark, mark reason, notes and tags; version 1 files still import.
+A file is checked whole (version, the type of every container and field) before
+anything is written: a wrong one is refused with one line naming the element.
 """
 
 from __future__ import annotations
@@ -22,6 +25,7 @@ import base64
 import csv
 import io
 import json
+import math
 import os
 from dataclasses import asdict, dataclass
 from datetime import UTC, datetime
@@ -41,17 +45,17 @@ from cavchar.tracking.records import (
 from cavchar.tracking.store import SCHEMA_VERSION, CooldownLog, _insert_cavity, _insert_cooldown
 
 __all__ = ["EXPORT_FORMAT", "EXPORT_VERSION", "ImportReport", "export_document", "export_log",
-           "import_log"]
+           "import_log", "read_export"]
 
 EXPORT_FORMAT = "cavchar cooldown log export"
-EXPORT_VERSION = 1
+EXPORT_VERSION = 2
 _UNIT_TAG = {"lifetime": "_s", "n_thermal": "", "effective_temperature": "_K"}
 _FIT_FIELDS = ("kind", "model", "settings", "seed", "summary", "input_sha256", "settings_sha256",
                "tool_version", "fitted_at", "logged_at", "freq_hz", "stage_temp_k", "source",
-               "n_draws_total", "parameters")
+               "n_draws_total", "parameters", "mark", "mark_reason", "notes", "tags")
 _CAVITY_FIELDS = ("name", "freq_hz", "notes", "created_at")
 _COOLDOWN_FIELDS = ("label", "start_date", "stage_temp_k", "stage_temps", "notes", "created_at")
-_JSON_CELLS = {"settings", "seed", "summary", "cooldown_stage_temps", "parameters"}
+_JSON_CELLS = {"settings", "seed", "summary", "cooldown_stage_temps", "parameters", "tags"}
 _FLOAT_CELLS = {"freq_hz", "stage_temp_k", "cavity_freq_hz", "cooldown_stage_temp_k"}
 
 
@@ -204,20 +208,104 @@ def _read_document(file: Path) -> dict:
         raise InputError(f"not valid JSON ({exc.msg})", path=file, line=exc.lineno) from None
     if not isinstance(doc, dict) or doc.get("format") != EXPORT_FORMAT:
         raise InputError("not a cooldown log export (no 'format' marker)", path=file)
-    if int(doc.get("version", 0)) > EXPORT_VERSION:
-        raise InputError(f"export version {doc.get('version')} is newer than this cavchar "
-                         "reads", path=file, hint="update cavchar")
+    version = doc.get("version")
+    if isinstance(version, bool) or not isinstance(version, int) or version < 1:
+        raise InputError(f"the export's 'version' must be a whole number from 1 to "
+                         f"{EXPORT_VERSION}, not {_short(version)}", path=file)
+    if version > EXPORT_VERSION:
+        raise InputError(f"export version {version} is newer than this cavchar reads "
+                         f"({EXPORT_VERSION})", path=file, hint="update cavchar")
     return doc
 
 
-def import_log(log: CooldownLog, path: str | os.PathLike) -> ImportReport:
+def _short(value: Any) -> str:
+    text = repr(value)
+    return text if len(text) <= 40 else text[:37] + "..."
+
+
+_TEXT, _NUMBER, _OBJECT, _LIST = "text", "a number", "an object", "a list"
+_CAVITY_TYPES = {"name": _TEXT, "freq_hz": _NUMBER, "notes": _TEXT, "created_at": _TEXT}
+_COOLDOWN_TYPES = {"label": _TEXT, "start_date": _TEXT, "stage_temp_k": _NUMBER,
+                   "stage_temps": _OBJECT, "notes": _TEXT, "created_at": _TEXT}
+_FIT_TYPES = {"cavity": _TEXT, "cooldown": _TEXT, "kind": _TEXT, "model": _TEXT,
+              "settings": _OBJECT, "summary": _OBJECT, "input_sha256": _TEXT,
+              "settings_sha256": _TEXT, "tool_version": _TEXT, "fitted_at": _TEXT,
+              "logged_at": _TEXT, "freq_hz": _NUMBER, "stage_temp_k": _NUMBER, "source": _TEXT,
+              "n_draws_total": _NUMBER, "parameters": _LIST, "mark": _TEXT,
+              "mark_reason": _TEXT, "notes": _TEXT, "tags": _LIST, "draws": _OBJECT}
+_REQUIRED = {"cavities": ("name",), "cooldowns": ("label",),
+             "fits": ("cavity", "cooldown", "kind", "settings", "draws")}
+
+
+def _type_ok(value: Any, want: str) -> bool:
+    if value is None:
+        return True
+    if want == _TEXT:
+        return isinstance(value, str)
+    if want == _NUMBER:
+        return (isinstance(value, int | float) and not isinstance(value, bool)
+                and math.isfinite(value))
+    if want == _OBJECT:
+        return isinstance(value, dict)
+    return isinstance(value, list)
+
+
+def validate_document(doc: dict, file: Path) -> None:
+    """Check the containers and field types of an export document; InputError naming the
+    first wrong element (e.g. ``fits[3].draws``), before anything is written."""
+    from cavchar.tracking.store import MARKS
+
+    types = {"cavities": _CAVITY_TYPES, "cooldowns": _COOLDOWN_TYPES, "fits": _FIT_TYPES}
+    for section, fields in types.items():
+        items = doc.get(section, [])
+        if not isinstance(items, list):
+            raise InputError(f"'{section}' must be a list of objects, not "
+                             f"{type(items).__name__}", path=file)
+        for i, item in enumerate(items):
+            where = f"{section}[{i}]"
+            line = item.get("_line") if isinstance(item, dict) else None
+            if not isinstance(item, dict):
+                raise InputError(f"{where} must be an object, not {type(item).__name__}",
+                                 path=file)
+            for key in _REQUIRED[section]:
+                if item.get(key) is None:
+                    raise InputError(f"{where} has no '{key}'", path=file, line=line)
+            for key, want in fields.items():
+                if not _type_ok(item.get(key), want):
+                    raise InputError(f"{where}.{key} must be {want}, not "
+                                     f"{_short(item.get(key))}", path=file, line=line)
+            if section == "fits":
+                for name, text in item["draws"].items():
+                    if name not in KEY_PARAMETERS or not isinstance(text, str):
+                        raise InputError(f"{where}.draws must map {', '.join(KEY_PARAMETERS)} "
+                                         f"to base64 text (found {_short(name)})", path=file,
+                                         line=line)
+                if item.get("mark") is not None and item["mark"] not in MARKS:
+                    raise InputError(f"{where}.mark must be one of {', '.join(MARKS)}",
+                                     path=file, line=line)
+                if any(not isinstance(t, str) for t in item.get("tags") or ()):
+                    raise InputError(f"{where}.tags must be a list of text", path=file,
+                                     line=line)
+
+
+def read_export(path: str | os.PathLike) -> dict:
+    """Read and check an export file (JSON or CSV) without touching any log."""
+    file = Path(path)
+    doc = _read_document(file)
+    validate_document(doc, file)
+    return doc
+
+
+def import_log(log: CooldownLog, path: str | os.PathLike, *,
+               document: dict | None = None) -> ImportReport:
     """Add the cavities, cooldowns and fits of an export file to ``log`` (one transaction).
 
     Fits already in the log (same input SHA-256 and settings) are skipped; an
     existing cavity or cooldown keeps its own frequency, temperatures and notes.
+    ``document`` is the file already read with :func:`read_export`.
     """
     file = Path(path)
-    doc = _read_document(file)
+    doc = read_export(file) if document is None else document
     known_cavities = {c.name for c in log.cavities()}
     known_cooldowns = {c.label for c in log.cooldowns()}
     added = skipped = 0
@@ -233,11 +321,17 @@ def import_log(log: CooldownLog, path: str | os.PathLike) -> ImportReport:
                                  created_at=cool.get("created_at"))
             for fit in doc.get("fits", []):
                 entry = _entry_from_record(fit, file)
-                _, new = log._add_fit_locked(
+                fit_id, new = log._add_fit_locked(
                     con, entry, fit["cavity"], fit["cooldown"], stage_temp_k=None, create=False,
-                    on_duplicate="skip_quiet", logged_at=fit.get("logged_at"))
+                    on_duplicate="skip_quiet", logged_at=fit.get("logged_at"), force_freq=True)
+                if new and (fit.get("mark") or fit.get("notes") or fit.get("tags")):
+                    con.execute("UPDATE fits SET mark = ?, mark_reason = ?, notes = ?, tags = ? "
+                                "WHERE id = ?", (fit.get("mark"), fit.get("mark_reason") or "",
+                                                 fit.get("notes") or "",
+                                                 canonical_json(list(fit.get("tags") or [])),
+                                                 fit_id))
                 added, skipped = added + new, skipped + (not new)
-    except (KeyError, TypeError, ValueError) as exc:
+    except (KeyError, TypeError, ValueError, AttributeError, OverflowError) as exc:
         raise InputError(f"not a complete cooldown log export (problem with {exc})",
                          path=file) from None
     return ImportReport(added, skipped,
@@ -249,7 +343,8 @@ def _entry_from_record(fit: dict, file: Path) -> FitEntry:
     draws = {p: decode_draws(base64.b64decode(text, validate=True))
              for p, text in fit["draws"].items()}
     fields = {k: fit.get(k) for k in _FIT_FIELDS
-              if k not in ("kind", "settings_sha256", "logged_at", "parameters")}
+              if k not in ("kind", "settings_sha256", "logged_at", "parameters", "mark",
+                           "mark_reason", "notes", "tags")}
     entry = FitEntry(kind=fit["kind"], draws=draws, parameters=tuple(fit.get("parameters") or ()),
                      **fields)
     if fit.get("settings_sha256") and entry.settings_sha256 != fit["settings_sha256"]:

@@ -198,6 +198,9 @@ class Evidence:
     kind: str | None = None
     input_sha256: str | None = None
     n_draws_total: int | None = None
+    reason: str = ""
+    cooldown: str | None = None
+    stage_temp_k: float | None = None
 
     def quantity(self, name: str) -> np.ndarray | None:
         """Draws of a spec quantity in SI units, or None if this fit cannot give them."""
@@ -255,10 +258,16 @@ class Qualification:
     def exit_code(self) -> int:
         return {"PASS": EXIT_PASS, "FAIL": EXIT_FAIL, "UNDECIDED": EXIT_UNDECIDED}[self.status]
 
+    @property
+    def fit_ids(self) -> tuple[int, ...]:
+        """Ids of the logged fits the verdicts rest on."""
+        return tuple(sorted({v.evidence.fit_id for v in self.verdicts
+                             if v.evidence is not None and v.evidence.fit_id is not None}))
+
     def to_dict(self) -> dict:
         return {"title": self.spec.title, "spec": self.spec.path, "status": self.status,
-                "exit_code": self.exit_code, "requirements": [_verdict_dict(v)
-                                                              for v in self.verdicts]}
+                "exit_code": self.exit_code, "fit_ids": list(self.fit_ids),
+                "requirements": [_verdict_dict(v) for v in self.verdicts]}
 
 
 def _verdict_dict(v: Verdict) -> dict:
@@ -270,6 +279,7 @@ def _verdict_dict(v: Verdict) -> dict:
             "data_factor": v.data_factor, "hint": v.hint,
             "evidence": None if e is None else {
                 "description": e.description, "fit_id": e.fit_id, "kind": e.kind,
+                "reason": e.reason, "cooldown": e.cooldown, "stage_temp_k": e.stage_temp_k,
                 "input_sha256": e.input_sha256, "n_draws_stored": _n(e),
                 "n_draws_total": e.n_draws_total}}
 
@@ -335,33 +345,81 @@ def qualify(spec: Spec, evidence: Evidence | dict[str, Evidence]) -> Qualificati
 
 def evidence_from_log(log, cavity: str, cooldown: str | None = None,
                       fit_id: int | None = None, freq_hz: float | None = None,
-                      quantities: tuple[str, ...] = tuple(QUANTITIES)) -> dict[str, Evidence]:
-    """For each quantity, the latest fit of ``cavity`` (in ``cooldown``) that measures it.
+                      quantities: tuple[str, ...] = tuple(QUANTITIES), *,
+                      kind: str | None = None, min_stage_k: float | None = None,
+                      max_stage_k: float | None = None) -> dict[str, Evidence]:
+    """For each quantity, the fit that stands for the cooldown (the documented rule of
+    :mod:`cavchar.tracking.selection`), with the reason in its description.
 
-    With ``fit_id`` only that fit is used; ``freq_hz`` [Hz] stands in for fits
-    logged without a mode frequency.
+    Parameters
+    ----------
+    cooldown
+        The cooldown judged; default: the latest cooldown (by start date) with
+        fits of the cavity, and the description says so.
+    fit_id
+        Use only this fit (the rule is not applied).
+    freq_hz
+        Mode frequency [Hz] for fits logged without one.
+    kind, min_stage_k, max_stage_k
+        Only fits of this kind / in this stage-temperature range [K].
     """
+    from cavchar.tracking.selection import STANDING
+
     if fit_id is not None:
-        fits = [log.fit(fit_id)]
-        if fits[0].cavity != cavity:
-            raise InputError(f"fit {fit_id} belongs to cavity {fits[0].cavity!r}, "
+        fit = log.fit(fit_id)
+        if fit.cavity != cavity:
+            raise InputError(f"fit {fit_id} belongs to cavity {fit.cavity!r}, "
                              f"not {cavity!r}")
-    else:
-        fits = log.fits(cavity=cavity, cooldown=cooldown)
-    if not fits:
-        where = f" in cooldown {cooldown!r}" if cooldown else ""
-        raise InputError(f"cavity {cavity!r} has no logged fits{where}")
-    chosen: dict[str, Evidence] = {}
-    for fit in reversed(fits):  # newest first
         ev = Evidence(description=f"fit {fit.id} ({fit.kind}, cooldown {fit.cooldown}, "
-                      f"logged {fit.logged_at})", draws=log.draws(fit.id),
-                      freq_hz=fit.freq_hz or freq_hz,
-                      fit_id=fit.id, kind=fit.kind, input_sha256=fit.input_sha256,
-                      n_draws_total=fit.n_draws_total)
-        for q in quantities:
-            if q not in chosen and ev.quantity(q) is not None:
-                chosen[q] = ev
+                      f"stage {_temp(fit.stage_temp_k)}; chosen with --fit)",
+                      draws=log.draws(fit.id), freq_hz=fit.freq_hz or freq_hz, fit_id=fit.id,
+                      kind=fit.kind, input_sha256=fit.input_sha256,
+                      n_draws_total=fit.n_draws_total, reason="chosen by the user (--fit)",
+                      cooldown=fit.cooldown, stage_temp_k=fit.stage_temp_k)
+        return {q: ev for q in quantities if ev.quantity(q) is not None}
+    from cavchar.tracking.trend import cooldown_selections
+
+    selections, fits, _ = cooldown_selections(
+        log, cavity, kind=kind, min_stage_k=min_stage_k, max_stage_k=max_stage_k,
+        cooldowns=None if cooldown is None else [cooldown])
+    if cooldown is None:
+        usable = [s for s in selections if s.choices]
+        if not usable:
+            raise InputError(f"no fit of cavity {cavity!r} stands for any cooldown",
+                             hint="see `cavchar log list` for excluded fits and stage "
+                             "temperatures")
+        selection, how = usable[-1], " (the latest cooldown with usable fits)"
+    else:
+        if not selections:
+            raise InputError(f"cavity {cavity!r} has no logged fits in cooldown {cooldown!r}")
+        selection, how = selections[0], ""
+    by_id = {f.id: f for f in fits}
+    chosen: dict[str, Evidence] = {}
+    cache: dict[int, dict] = {}
+    for q in quantities:
+        column = {"thermal_photons": "n_thermal", "effective_temperature":
+                  "effective_temperature"}.get(q, "lifetime")
+        choice = selection.choices.get(column) or selection.choices.get(STANDING[column])
+        if choice is None:
+            continue
+        fit = by_id[choice.fit_id]
+        if fit.id not in cache:
+            cache[fit.id] = log.draws(fit.id)
+        ev = Evidence(description=f"fit {fit.id} ({fit.kind}, cooldown {fit.cooldown}{how}, "
+                      f"stage {_temp(fit.stage_temp_k)}): {choice.reason}",
+                      draws=cache[fit.id], freq_hz=fit.freq_hz or freq_hz, fit_id=fit.id,
+                      kind=fit.kind, input_sha256=fit.input_sha256,
+                      n_draws_total=fit.n_draws_total, reason=choice.reason,
+                      cooldown=fit.cooldown, stage_temp_k=fit.stage_temp_k)
+        if ev.quantity(q) is not None:
+            chosen[q] = ev
     return chosen
+
+
+def _temp(value: float | None) -> str:
+    from cavchar.units import format_quantity
+
+    return "unknown" if value is None else format_quantity(value, "temperature")
 
 
 def evidence_from_entry(entry, freq_hz: float | None = None) -> Evidence:

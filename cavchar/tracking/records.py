@@ -161,7 +161,10 @@ class FitRecord:
     source: str | None
     n_draws_total: int | None
     parameters: tuple = ()
-
+    mark: str | None = None          # "preferred", "excluded" or None
+    mark_reason: str = ""
+    notes: str = ""
+    tags: tuple = ()
 
 
 def thin_index(n_total: int, max_draws: int) -> np.ndarray:

@@ -13,6 +13,10 @@ the file is marked as a cavchar log by ``PRAGMA application_id``):
   copy of the posterior draws (at most ``max_draws``, the same rows for every
   parameter so joint draws stay joint) as little-endian float32 blobs.
 
+Schema version 2 adds to ``fits`` the user's mark (``mark``: ``"preferred"``
+or ``"excluded"``, with ``mark_reason``), free ``notes`` and ``tags`` (JSON
+list); see :mod:`cavchar.tracking.selection` for what the marks do.
+
 Safety: the file runs in WAL mode with a busy timeout; every write is one
 ``BEGIN IMMEDIATE ... COMMIT`` transaction, so a process killed mid-write leaves
 the log as it was and concurrent writers queue instead of failing.  The same
@@ -46,11 +50,12 @@ from cavchar.tracking.records import (
     decode_draws,
     encode_draws,
 )
+from cavchar.tracking.rules import DEFAULT_FREQ_TOLERANCE, check_fit_frequency
 
 __all__ = ["SCHEMA_VERSION", "LOG_ENV", "DEFAULT_LOG_NAME", "CooldownLog",
            "resolve_log_path", "open_log", "log_fit_result"]
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 #: "CAVC" in ASCII: marks an SQLite file as a cavchar log
 APPLICATION_ID = 0x43415643
 LOG_ENV = "CAVCHAR_LOG"
@@ -84,7 +89,17 @@ _MIGRATIONS: tuple[tuple[str, ...], ...] = (
             parameter TEXT NOT NULL, data BLOB NOT NULL,
             PRIMARY KEY (fit_id, parameter)) WITHOUT ROWID""",
     ),
+    (
+        "ALTER TABLE fits ADD COLUMN mark TEXT",
+        "ALTER TABLE fits ADD COLUMN mark_reason TEXT NOT NULL DEFAULT ''",
+        "ALTER TABLE fits ADD COLUMN notes TEXT NOT NULL DEFAULT ''",
+        "ALTER TABLE fits ADD COLUMN tags TEXT NOT NULL DEFAULT '[]'",
+    ),
 )
+#: the marks a user can set on a logged fit (``cavchar log prefer`` / ``log exclude``)
+MARKS = ("preferred", "excluded")
+#: largest id SQLite stores (signed 64-bit integer)
+MAX_ID = 2**63 - 1
 assert len(_MIGRATIONS) == SCHEMA_VERSION
 
 
@@ -95,7 +110,7 @@ def _now() -> str:
 _FIT_COLUMNS = (
     "f.id, c.name, d.label, f.kind, f.model, f.settings, f.seed, f.summary, f.input_sha256, "
     "f.settings_sha256, f.tool_version, f.fitted_at, f.logged_at, f.freq_hz, f.stage_temp_k, "
-    "f.source, f.n_draws_total, f.parameters"
+    "f.source, f.n_draws_total, f.parameters, f.mark, f.mark_reason, f.notes, f.tags"
 )
 _FIT_FROM = "fits f JOIN cavities c ON c.id = f.cavity_id JOIN cooldowns d ON d.id = f.cooldown_id"
 
@@ -106,7 +121,65 @@ def _fit_record(row: Sequence) -> FitRecord:
     values[6] = None if values[6] is None else json.loads(values[6])
     values[7] = json.loads(values[7])
     values[17] = tuple(json.loads(values[17]))
+    values[21] = tuple(json.loads(values[21]))
     return FitRecord(*values)
+
+
+def check_fit_id(fit_id: object) -> int:
+    """A fit id as int; InputError for anything SQLite cannot hold (not an integer, < 1,
+    or above 2**63 - 1)."""
+    try:
+        value = int(fit_id)  # type: ignore[call-overload]
+    except (TypeError, ValueError, OverflowError):
+        raise InputError(f"fit id {str(fit_id)[:40]!r} is not a whole number",
+                         hint="`cavchar log list` shows the fit ids") from None
+    if isinstance(fit_id, float) and value != fit_id:
+        raise InputError(f"fit id {fit_id!r} is not a whole number")
+    if not 1 <= value <= MAX_ID:
+        shown = str(value) if len(str(value)) <= 30 else str(value)[:27] + "..."
+        raise InputError(f"fit id {shown} is out of range (ids run from 1 to {MAX_ID})",
+                         hint="`cavchar log list` shows the fit ids")
+    return value
+
+
+#: SQLite primary result codes (sqlite.org/rescode.html) that say what is wrong
+_SQLITE_PERM, _SQLITE_BUSY, _SQLITE_LOCKED, _SQLITE_READONLY = 3, 5, 6, 8
+_SQLITE_IOERR, _SQLITE_CORRUPT, _SQLITE_FULL, _SQLITE_CANTOPEN, _SQLITE_NOTADB = 10, 11, 13, 14, 26
+
+
+def sqlite_input_error(exc: BaseException, path: Path) -> InputError:
+    """One clear InputError for an SQLite failure, by its result code: busy, read-only,
+    disk full, cannot open, I/O error, damaged; never a guess that the file is damaged
+    when SQLite says something else."""
+    code = getattr(exc, "sqlite_errorcode", None)
+    base = None if code is None else int(code) & 0xFF
+    text = str(exc)
+    if base in (_SQLITE_BUSY, _SQLITE_LOCKED) or "locked" in text or "busy" in text:
+        return InputError("the log is busy (another process holds it too long)", path=path,
+                          hint="retry in a moment")
+    if base == _SQLITE_FULL or "disk is full" in text:
+        return InputError("the disk is full: the log could not be written (nothing was "
+                          "changed)", path=path, hint="free some space and run the command "
+                          "again")
+    if base in (_SQLITE_READONLY, _SQLITE_PERM) or "readonly" in text:
+        return InputError("the log cannot be written: the file or its folder is read-only "
+                          "(nothing was changed)", path=path,
+                          hint="reading (log list, log show, trend, qualify) still works; make "
+                          "the file and its folder writable to change the log")
+    if base == _SQLITE_CANTOPEN or "unable to open" in text:
+        return InputError("cannot open the log file (its folder is missing, not readable, or "
+                          "read-only while SQLite needs to write beside the file)", path=path,
+                          hint="check the path and the folder's permissions")
+    if base == _SQLITE_IOERR or "disk I/O error" in text:
+        return InputError(f"a disk read or write failed ({text}); nothing was changed",
+                          path=path, hint="check free space, permissions and the disk, then "
+                          "retry")
+    if base in (_SQLITE_CORRUPT, _SQLITE_NOTADB) or isinstance(exc, sqlite3.DatabaseError) \
+            and not isinstance(exc, sqlite3.OperationalError):
+        return InputError(f"the log file is damaged ({text})", path=path,
+                          hint="restore it from a backup or an export")
+    return InputError(f"cannot use the log: {text}", path=path,
+                      hint="`cavchar log check` checks the file")
 
 
 def resolve_log_path(path: str | os.PathLike | None = None) -> Path:
@@ -148,16 +221,8 @@ class CooldownLog:
         """Turn SQLite failures into one clear InputError naming the file."""
         try:
             yield
-        except sqlite3.OperationalError as exc:
-            text = str(exc)
-            if "locked" in text or "busy" in text:
-                raise InputError("the log is busy (another process holds it too long)",
-                                 path=self.path, hint="retry in a moment") from None
-            raise InputError(f"cannot use the log: {text}", path=self.path,
-                             hint="the file may be damaged; `cavchar log check` tells") from None
-        except sqlite3.DatabaseError as exc:
-            raise InputError(f"the log file is damaged ({exc})", path=self.path,
-                             hint="restore it from a backup or an export") from None
+        except sqlite3.Error as exc:
+            raise sqlite_input_error(exc, self.path) from None
 
     @contextmanager
     def transaction(self) -> Iterator[sqlite3.Connection]:
@@ -237,7 +302,9 @@ class CooldownLog:
 
     def add_fit(self, entry: FitEntry, cavity: str, cooldown: str, *,
                 stage_temp_k: float | None = None, create: bool = False,
-                on_duplicate: str = "error", logged_at: str | None = None) -> int:
+                on_duplicate: str = "error", logged_at: str | None = None,
+                force_freq: bool = False,
+                freq_tolerance: float = DEFAULT_FREQ_TOLERANCE) -> int:
         """Log one fit in one transaction and return its id.
 
         Parameters
@@ -253,17 +320,24 @@ class CooldownLog:
         on_duplicate
             ``"error"`` (InputError naming the earlier fit), ``"skip"`` (warn and
             return the earlier fit's id) or ``"keep"`` (log it again).
+        force_freq, freq_tolerance
+            A fit whose mode frequency differs from the cavity's by more than
+            ``freq_tolerance`` (relative) is refused unless ``force_freq``
+            (:func:`cavchar.tracking.rules.check_fit_frequency`); a fit without a
+            frequency takes the cavity's.
         """
         if on_duplicate not in ("error", "skip", "keep"):
             raise ValueError(f"on_duplicate must be error, skip or keep, not {on_duplicate!r}")
         with self.transaction() as con:  # the duplicate check runs under the write lock
             return self._add_fit_locked(con, entry, cavity, cooldown, stage_temp_k=stage_temp_k,
                                         create=create, on_duplicate=on_duplicate,
-                                        logged_at=logged_at)[0]
+                                        logged_at=logged_at, force_freq=force_freq,
+                                        freq_tolerance=freq_tolerance)[0]
 
     def _add_fit_locked(self, con: sqlite3.Connection, entry: FitEntry, cavity: str,
                         cooldown: str, *, stage_temp_k: float | None, create: bool,
-                        on_duplicate: str, logged_at: str | None) -> tuple[int, bool]:
+                        on_duplicate: str, logged_at: str | None, force_freq: bool = False,
+                        freq_tolerance: float = DEFAULT_FREQ_TOLERANCE) -> tuple[int, bool]:
         """add_fit inside an open transaction; returns (fit id, whether it was added)."""
         _check_entry(entry)
         if on_duplicate != "keep":
@@ -283,11 +357,8 @@ class CooldownLog:
         cav = self.cavity(cavity)
         cool = self.cooldown(cooldown)
         freq = entry.freq_hz if entry.freq_hz is not None else cav.freq_hz
-        if (entry.freq_hz is not None and cav.freq_hz is not None
-                and abs(entry.freq_hz - cav.freq_hz) > 1e-6 * cav.freq_hz):
-            warnings.warn(f"the fit's mode frequency {entry.freq_hz:.9g} Hz differs from "
-                          f"cavity {cav.name}'s {cav.freq_hz:.9g} Hz", CavcharWarning,
-                          stacklevel=3)
+        check_fit_frequency(entry.freq_hz, cav.freq_hz, cav.name, tolerance=freq_tolerance,
+                            force=force_freq, source=entry.source)
         if cav.freq_hz is None and freq is not None:
             con.execute("UPDATE cavities SET freq_hz = ? WHERE id = ?", (freq, cav.id))
         stage = next((t for t in (stage_temp_k, entry.stage_temp_k, cool.stage_temp_k)
@@ -329,10 +400,21 @@ class CooldownLog:
             sql += " WHERE " + " AND ".join(where)
         return [_fit_record(r) for r in self._query(sql + " ORDER BY f.id", params)]
 
+    def summaries_of(self, fit_ids: Sequence[int]) -> dict[int, dict]:
+        """The stored summaries of many fits: {fit id: summary dict}."""
+        ids = [check_fit_id(i) for i in fit_ids]
+        out: dict[int, dict] = {}
+        for start in range(0, len(ids), 500):
+            chunk = ids[start:start + 500]
+            marks = ",".join("?" * len(chunk))
+            rows = self._query(f"SELECT id, summary FROM fits WHERE id IN ({marks})", chunk)
+            out.update((i, json.loads(text)) for i, text in rows)
+        return out
+
     def fit(self, fit_id: int) -> FitRecord:
         """The fit with this id; InputError if there is none."""
         rows = self._query(f"SELECT {_FIT_COLUMNS} FROM {_FIT_FROM} WHERE f.id = ?",
-                           (int(fit_id),))
+                           (check_fit_id(fit_id),))
         if not rows:
             raise InputError(f"no fit {fit_id} in the log", path=self.path,
                              hint="`cavchar log list` shows the fit ids")
@@ -341,7 +423,8 @@ class CooldownLog:
     def draws(self, fit_id: int, parameters: Sequence[str] | None = None
               ) -> dict[str, np.ndarray]:
         """Stored draws of one fit: {parameter: (n,) float64} (joint rows aligned)."""
-        rows = self._query("SELECT parameter, data FROM draws WHERE fit_id = ?", (int(fit_id),))
+        rows = self._query("SELECT parameter, data FROM draws WHERE fit_id = ?",
+                           (check_fit_id(fit_id),))
         found = {p: decode_draws(b) for p, b in rows}
         if parameters is None:
             return found
@@ -349,7 +432,7 @@ class CooldownLog:
 
     def draws_of(self, fit_ids: Sequence[int], parameter: str) -> dict[int, np.ndarray]:
         """One parameter's draws for many fits in one query: {fit id: (n,) float64}."""
-        ids = [int(i) for i in fit_ids]
+        ids = [check_fit_id(i) for i in fit_ids]
         out: dict[int, np.ndarray] = {}
         for start in range(0, len(ids), 500):  # stay below SQLite's variable limit
             chunk = ids[start:start + 500]
@@ -359,9 +442,36 @@ class CooldownLog:
             out.update((i, decode_draws(b)) for i, b in rows)
         return out
 
+    def set_mark(self, fit_id: int, mark: str | None, reason: str = "") -> FitRecord:
+        """Mark a fit ``"preferred"`` (it stands for its cooldown), ``"excluded"`` (never
+        used) or clear the mark (``None``); returns the updated fit."""
+        if mark is not None and mark not in MARKS:
+            raise InputError(f"unknown mark {mark!r}", hint="preferred or excluded")
+        fit = self.fit(fit_id)
+        with self.transaction() as con:
+            con.execute("UPDATE fits SET mark = ?, mark_reason = ? WHERE id = ?",
+                        (mark, str(reason or ""), fit.id))
+        return self.fit(fit.id)
+
+    def set_notes(self, fit_id: int, *, notes: str | None = None,
+                  add_tags: Sequence[str] = (), remove_tags: Sequence[str] = ()) -> FitRecord:
+        """Replace a fit's notes (if ``notes`` is given) and add or remove tags."""
+        for tag in [*add_tags, *remove_tags]:
+            if not isinstance(tag, str) or not tag.strip() or tag != tag.strip() or "," in tag:
+                raise InputError(f"tag {tag!r} must be non-empty text without outer spaces "
+                                 "or commas")
+        fit = self.fit(fit_id)
+        tags = [t for t in fit.tags if t not in remove_tags]
+        tags += [t for t in add_tags if t not in tags]
+        with self.transaction() as con:
+            con.execute("UPDATE fits SET notes = ?, tags = ? WHERE id = ?",
+                        (fit.notes if notes is None else str(notes), canonical_json(tags),
+                         fit.id))
+        return self.fit(fit.id)
+
     def delete_fits(self, fit_ids: Sequence[int]) -> int:
         """Delete fits (and their draws) in one transaction; returns how many went."""
-        ids = [int(i) for i in fit_ids]
+        ids = [check_fit_id(i) for i in fit_ids]
         for i in ids:
             self.fit(i)  # InputError for an unknown id, before anything is deleted
         with self.transaction() as con:
@@ -451,7 +561,7 @@ def _initialise(con: sqlite3.Connection, path: Path) -> None:
 
 
 def open_log(path: str | os.PathLike | None = None, *, create: bool = True,
-             busy_timeout_s: float = 30.0) -> CooldownLog:
+             busy_timeout_s: float = 30.0, readonly: bool = False) -> CooldownLog:
     """Open (and, with ``create``, make) the cooldown log.
 
     Parameters
@@ -463,31 +573,43 @@ def open_log(path: str | os.PathLike | None = None, *, create: bool = True,
         Make a new log if the file does not exist; otherwise that is an InputError.
     busy_timeout_s
         How long a write waits for another process's transaction [s].
+    readonly
+        Open for reading only (listing, trends, qualification): works in a
+        read-only folder and on a read-only file, never changes the file (an
+        older schema is brought up to date in a copy in memory).
 
     Raises
     ------
     InputError
-        Missing file (without ``create``), a file that is not SQLite or is
-        damaged, an SQLite file of some other program, or a newer schema.
+        Missing file (without ``create``, always when ``readonly``), a file that
+        is not SQLite or is damaged, an SQLite file of some other program, a
+        newer schema, or a file or folder that cannot be written (when not
+        ``readonly``), each said as it is.
     """
     file = resolve_log_path(path)
     if file.is_dir():
         raise InputError("the log path is a folder, not a file", path=file)
     if file.exists() and file.stat().st_size > 0:
-        with open(file, "rb") as handle:
-            if handle.read(16) != _SQLITE_MAGIC:
-                raise InputError("this file is not an SQLite log (damaged or another kind of "
-                                 "file)", path=file, hint="give another --log-file")
+        try:
+            with open(file, "rb") as handle:
+                head = handle.read(16)
+        except OSError as exc:
+            raise InputError(f"cannot read the log file ({exc.strerror})", path=file) from None
+        if head != _SQLITE_MAGIC:
+            raise InputError("this file is not an SQLite log (damaged or another kind of "
+                             "file)", path=file, hint="give another --log-file")
     elif not file.exists():
-        if not create:
+        if readonly or not create:
             raise InputError("there is no cooldown log here", path=file,
                              hint="log a fit first (`cavchar log add`) or give --log-file")
         if not file.parent.exists():
             raise InputError("the folder of the log does not exist", path=file)
+    if readonly:
+        return _open_readonly(file)
     try:
         con = sqlite3.connect(file, timeout=busy_timeout_s, isolation_level=None)
     except sqlite3.Error as exc:
-        raise InputError(f"cannot open the log ({exc})", path=file) from None
+        raise sqlite_input_error(exc, file) from None
     log = CooldownLog(file, con)
     try:
         with log._guard():
@@ -502,18 +624,61 @@ def open_log(path: str | os.PathLike | None = None, *, create: bool = True,
     return log
 
 
+def _open_readonly(file: Path) -> CooldownLog:
+    """Open an existing log for reading only.
+
+    ``mode=ro`` first; a WAL file in a folder where SQLite cannot create its
+    shared-memory file beside it is then read with ``immutable=1`` (nobody can be
+    writing to it there: a writer would need that file too).  An older schema
+    is migrated in an in-memory copy, never in the file.
+    """
+    from urllib.parse import quote
+
+    base = "file:" + quote(str(file.resolve()))
+    last: sqlite3.Error | None = None
+    for flags in ("?mode=ro", "?mode=ro&immutable=1"):
+        con = None
+        try:
+            con = sqlite3.connect(base + flags, uri=True, isolation_level=None)
+            con.execute("SELECT count(*) FROM sqlite_master").fetchone()
+            break
+        except sqlite3.Error as exc:
+            if con is not None:
+                con.close()
+            con, last = None, exc
+    if con is None:
+        assert last is not None
+        raise sqlite_input_error(last, file)
+    log = CooldownLog(file, con)
+    try:
+        with log._guard():
+            version = con.execute("PRAGMA user_version").fetchone()[0]
+            if version < SCHEMA_VERSION:
+                memory = sqlite3.connect(":memory:", isolation_level=None)
+                con.backup(memory)
+                con.close()
+                log = CooldownLog(file, memory)
+                con = memory
+            _initialise(con, file)
+    except BaseException:
+        con.close()
+        raise
+    return log
+
+
 def log_fit_result(result: Any, cavity: str, cooldown: str,
                    path: str | os.PathLike | None = None, *, create: bool = False,
                    on_duplicate: str = "skip", stage_temp_k: float | None = None,
-                   source: str | None = None) -> int:
+                   source: str | None = None, force_freq: bool = False) -> int:
     """Log a FitResult (for the ``--log`` option of the fit commands); returns the fit id.
 
     A fit already in the log is not added again (a warning says so) unless
-    ``on_duplicate="keep"``.
+    ``on_duplicate="keep"``; a fit at another mode frequency than the cavity's is
+    refused unless ``force_freq``.
     """
     from cavchar.tracking.records import entry_from_result
 
     entry = entry_from_result(result, source=source)
     with open_log(path) as log:
         return log.add_fit(entry, cavity, cooldown, stage_temp_k=stage_temp_k, create=create,
-                           on_duplicate=on_duplicate)
+                           on_duplicate=on_duplicate, force_freq=force_freq)
