@@ -16,6 +16,7 @@ and :func:`planck_check`, the comparison of the mode with its stage.
 from __future__ import annotations
 
 import math
+import numbers
 from typing import Any
 
 import numpy as np
@@ -24,8 +25,8 @@ import pandas as pd
 from cavchar.errors import InputError
 from cavchar.quantities import COLUMN_INFO, amplitude_decay_time, linewidth, quality_factor
 
-__all__ = ["add_derived_quantities", "planck_check", "COLUMN_INFO", "CREDIBLE_68",
-           "PILE_UP_RATIO"]
+__all__ = ["add_derived_quantities", "planck_check", "format_probability", "COLUMN_INFO",
+           "CREDIBLE_68", "PILE_UP_RATIO"]
 
 
 #: probability mass of a one-sigma interval of a normal law (the "68%" intervals)
@@ -171,3 +172,49 @@ def planck_check(samples: pd.DataFrame, freq_hz: float, stage_temp_k: float) -> 
         # T_eff increases with n, so the limit maps through exactly
         out["effective_temperature_upper95_k"] = float(effective_temperature(freq_hz, n_upper))
     return out
+
+
+def format_probability(p: float | None, n_draws: int | None = None, decimals: int = 3) -> str:
+    """A posterior probability for people to read: never printed as exactly 1 or 0.
+
+    A probability estimated from ``n_draws`` Monte Carlo draws cannot be told
+    from 1 (or 0) closer than its resolution ``1/n_draws``, and one shown with
+    ``decimals`` places cannot be told from them closer than ``10**-decimals``.
+    Within the larger of the two from either end the value is written as a
+    bound, with the resolution when the number of draws is known::
+
+        format_probability(1.0, 4000)   -> "> 0.999 (Monte Carlo resolution 0.0003, 4000 draws)"
+        format_probability(0.0)         -> "< 0.001"
+        format_probability(0.97312)     -> "0.973"
+
+    Parameters
+    ----------
+    p
+        The probability (fraction of draws), in [0, 1].
+    n_draws
+        Number of draws it was estimated from, if known.
+    decimals
+        Decimal places of an interior value (at least 1).
+
+    Returns
+    -------
+    str
+        The text; ``"unknown"`` for None or a non-finite value.
+    """
+    if p is None or isinstance(p, bool) or not isinstance(p, numbers.Real) \
+            or not math.isfinite(p):
+        return "unknown"
+    p = min(max(float(p), 0.0), 1.0)
+    decimals = max(1, int(decimals))
+    edge = 10.0**-decimals
+    note = ""
+    if isinstance(n_draws, numbers.Integral) and not isinstance(n_draws, bool) and n_draws > 0:
+        n_draws = int(n_draws)
+        edge = max(edge, 1.0 / n_draws)
+        note = f" (Monte Carlo resolution {1.0 / n_draws:.1g}, {n_draws} draws)"
+    shown = round(p, decimals)
+    if p > 1.0 - edge or shown >= 1.0:
+        return f"> {1.0 - edge:.{decimals}f}{note}"
+    if p < edge or shown <= 0.0:
+        return f"< {edge:.{decimals}f}{note}"
+    return f"{p:.{decimals}f}"

@@ -91,7 +91,10 @@ class FitResult:
         Parameter specifications (names, units, labels, priors), in order.
     samples
         Posterior draws, one row per draw: the parameters (SI units), derived
-        columns and ``log_posterior`` / ``log_likelihood``.
+        columns and ``log_posterior`` / ``log_likelihood``.  Read-only: the draws
+        are copied once into a read-only array, and each access gives a new
+        DataFrame over it, so nothing can change what :meth:`summary` and
+        :meth:`to_json` report (writing into the frame raises ``ValueError``).
     map_values
         MAP of each parameter (and of derived quantities computed from it).
     diagnostics
@@ -125,15 +128,38 @@ class FitResult:
 
     def __post_init__(self) -> None:
         specs = tuple(self.specs)
-        missing = [s.name for s in specs if s.name not in self.samples.columns]
+        frame = self.__dict__.pop("_samples_given")
+        if not isinstance(frame, pd.DataFrame):
+            frame = pd.DataFrame(frame)
+        missing = [s.name for s in specs if s.name not in frame.columns]
         if missing:
             raise ValueError(f"samples lack the parameter columns {missing}")
         object.__setattr__(self, "specs", specs)
-        object.__setattr__(self, "samples", self.samples.reset_index(drop=True).copy())
+        # the draws are kept as one read-only float array: neither the frames handed out
+        # by ``samples`` nor the arrays taken from them can change what summary() and
+        # to_json() see
+        draws = np.array(frame.to_numpy(dtype=float), dtype=float, copy=True, order="F")
+        draws.flags.writeable = False
+        object.__setattr__(self, "_draws", draws)
+        object.__setattr__(self, "_columns", tuple(frame.columns))
+        if self.trace is not None:
+            trace = np.array(self.trace, dtype=float, copy=True)
+            trace.flags.writeable = False
+            object.__setattr__(self, "trace", trace)
         for name in ("map_values", "diagnostics", "settings", "provenance", "checks", "extras"):
             object.__setattr__(self, name, to_plain_json(copy.deepcopy(getattr(self, name))))
         object.__setattr__(self, "map_values",
                            {k: (math.nan if v is None else v) for k, v in self.map_values.items()})
+
+    def __setstate__(self, state: dict[str, Any]) -> None:
+        """Unpickling (dask, copy): the draws and the chain stay read-only."""
+        state = dict(state)
+        for key in ("_draws", "trace"):
+            if state.get(key) is not None:
+                array = np.array(state[key], dtype=float, copy=True)
+                array.flags.writeable = False
+                state[key] = array
+        self.__dict__.update(state)
 
     # ------------------------------------------------------------------ construction
     @classmethod
@@ -186,6 +212,19 @@ class FitResult:
         return [s.name for s in self.specs]
 
     @property
+    def n_draws(self) -> int:
+        """Number of posterior draws."""
+        return int(self._draws.shape[0])
+
+    def column(self, name: str) -> np.ndarray:
+        """The draws of one column as a read-only float array (no copy), SI units."""
+        try:
+            index = self._columns.index(name)
+        except ValueError:
+            raise KeyError(f"no column {name!r} in the posterior draws") from None
+        return self._draws[:, index]
+
+    @property
     def seed(self) -> int | None:
         """The sampler seed (from the settings, else the provenance)."""
         seed = self.settings.get("sampler", {}).get("seed")
@@ -198,13 +237,13 @@ class FitResult:
                 return spec.unit, spec.dimension, spec.label
         if name in COLUMN_INFO:
             return COLUMN_INFO[name]
-        if name not in self.samples.columns:
+        if name not in self._columns:
             raise KeyError(f"no column {name!r} in the posterior draws")
         return "", "dimensionless", name
 
     def quantity_names(self) -> list[str]:
         """Summarised columns: the parameters first, then the derived quantities."""
-        rest = [c for c in self.samples.columns
+        rest = [c for c in self._columns
                 if c not in self.parameter_names and c not in BOOKKEEPING]
         return self.parameter_names + rest
 
@@ -213,7 +252,7 @@ class FitResult:
         0.6827) and 95% (lo95, hi95) credible intervals, and the MAP (NaN if unknown)."""
         rows = {}
         for name in self.quantity_names():
-            x = self.samples[name].to_numpy(dtype=float)
+            x = self.column(name)
             lo68, med, hi68, lo95, hi95 = np.quantile(x, [_Q68[0], 0.5, _Q68[1], 0.025, 0.975])
             rows[name] = {"unit": self.column_info(name)[0], "median": med,
                           "mean": float(np.mean(x)), "sd": float(np.std(x, ddof=1)),
@@ -237,7 +276,7 @@ class FitResult:
         from cavchar.units import format_quantity
 
         unit, dimension, label = self.column_info(name)
-        x = self.samples[name].to_numpy(dtype=float)
+        x = self.column(name)
         if upper_limit is None:
             upper_limit = (name in ("n_thermal", "effective_temperature")
                            and bool(self.checks.get("planck", {}).get("piles_up_at_zero")))
@@ -248,12 +287,52 @@ class FitResult:
         value, plus, minus, unit_text = _scaled(med, hi - med, med - lo, dimension)
         return f"{label} = {value}(+{plus}/-{minus}){unit_text} (68% credible)"
 
+    # ------------------------------------------------------------------ display
+    def plot(self, which: str = "corner", **kwargs: Any) -> Any:
+        """A figure of this result, for notebooks and scripts (matplotlib, imported lazily).
+
+        Parameters
+        ----------
+        which
+            ``"corner"`` (marginal posteriors, :func:`cavchar.plots.common.corner_plot`),
+            ``"trace"`` (walker chains or the kept draws,
+            :func:`cavchar.plots.common.trace_plot`) or ``"data"`` (the first figure of
+            the data with the posterior fit that the result's own excerpts allow).
+        **kwargs
+            Passed to the plotting function (``columns=``, ``truths=``, ...).
+
+        Returns
+        -------
+        matplotlib.figure.Figure
+        """
+        from cavchar.plots import common
+
+        if which == "corner":
+            return common.corner_plot(self, **kwargs)
+        if which == "trace":
+            return common.trace_plot(self, **kwargs)
+        if which == "data":
+            from cavchar.report.figures import data_figures
+
+            made, notes = data_figures(self)
+            if not made:
+                raise InputError("no data figure can be drawn from this result"
+                                 + (f": {notes[0]}" if notes else ""))
+            return made[0].figure
+        raise InputError(f"unknown figure {which!r}", hint="use corner, trace or data")
+
+    def _repr_html_(self) -> str:
+        """Summary table and one-line forms as escaped HTML (Jupyter's rich display)."""
+        from cavchar.report.html import result_summary_html
+
+        return result_summary_html(self)
+
     # ------------------------------------------------------------------ files
     def to_dict(self) -> dict[str, Any]:
         """The plain-JSON form written by :meth:`to_json`."""
         summary = self.summary()
         columns = {c: dict(zip(("unit", "dimension", "label"), self.column_info(c),
-                               strict=True)) for c in self.samples.columns}
+                               strict=True)) for c in self._columns}
         return to_plain_json({
             "schema": SCHEMA_VERSION,
             "kind": self.kind,
@@ -268,7 +347,7 @@ class FitResult:
             "provenance": self.provenance,
             "checks": self.checks,
             "extras": self.extras,
-            "samples": {c: self.samples[c].to_numpy(dtype=float) for c in self.samples.columns},
+            "samples": {c: self.column(c) for c in self._columns},
         })
 
     def to_json(self, path: str | os.PathLike, force: bool = False) -> Path:
@@ -280,7 +359,14 @@ class FitResult:
     @classmethod
     def from_dict(cls, data: Mapping[str, Any], path: str | os.PathLike | None = None
                   ) -> FitResult:
-        """Inverse of :meth:`to_dict`; raises :class:`InputError` for other files."""
+        """Inverse of :meth:`to_dict`; raises :class:`InputError` for other files.
+
+        The data are checked against the schema first
+        (:func:`cavchar.result_schema.validate_result_data`: types, finite draws,
+        sizes, nesting); the first mismatch is refused with one line naming the field.
+        """
+        from cavchar.result_schema import validate_result_data
+
         schema = data.get("schema") if isinstance(data, Mapping) else None
         name, _, major = str(schema).partition("/")
         if name != _SCHEMA_NAME:
@@ -288,6 +374,8 @@ class FitResult:
         if not major.isdigit() or int(major) not in _KNOWN_MAJORS:
             raise InputError(f"result schema {schema!r} is newer than this cavchar reads",
                              path=path, hint="update cavchar")
+        data = _migrate(data, int(major))
+        validate_result_data(data, path=path)
         try:
             specs = tuple(ParameterSpec.from_dict(p) for p in data["parameters"])
             samples = pd.DataFrame({c: np.array(v, dtype=float)
@@ -299,20 +387,24 @@ class FitResult:
                        settings=data["settings"], provenance=data["provenance"],
                        checks=data.get("checks", {}), extras=data.get("extras", {}),
                        converged=bool(data["converged"]))
+        except InputError as exc:
+            raise InputError(f"damaged cavchar result file: {exc.message}", path=path,
+                             hint=exc.hint) from None
         except (KeyError, TypeError, ValueError) as exc:
-            raise InputError(f"damaged cavchar result file ({type(exc).__name__}: {exc})",
-                             path=path) from None
+            raise InputError(f"damaged cavchar result file ({type(exc).__name__}: "
+                             f"{str(exc)[:200]})", path=path) from None
 
     @classmethod
     def from_json(cls, path: str | os.PathLike) -> FitResult:
-        """Read a file written by :meth:`to_json` (any schema version this cavchar knows)."""
-        try:
-            data = json.loads(Path(path).read_text(encoding="utf-8"))
-        except (OSError, UnicodeDecodeError) as exc:
-            raise InputError(f"cannot read the result file ({exc})", path=path) from None
-        except json.JSONDecodeError as exc:
-            raise InputError(f"not valid JSON: {exc.msg}", path=path, line=exc.lineno) from None
-        return cls.from_dict(data, path=path)
+        """Read a file written by :meth:`to_json` (any schema version this cavchar knows).
+
+        The file must be strict JSON (``NaN``/``Infinity`` literals are refused) and
+        match the schema (see :meth:`from_dict`); anything else is one
+        :class:`InputError` naming the file and the field.
+        """
+        from cavchar.result_schema import load_result_json
+
+        return cls.from_dict(load_result_json(path), path=path)
 
     def write_draws(self, path: str | os.PathLike, force: bool = False) -> Path:
         """Write the draws table: Parquet for ``.parquet``/``.pq`` (needs pyarrow), else CSV
@@ -334,6 +426,30 @@ class FitResult:
         if suffixes[-2:] == [".csv", ".gz"] or (suffixes and suffixes[-1] == ".gz"):
             return write_bytes_atomic(target, gzip.compress(text.encode(), mtime=0), force=force)
         return write_text_atomic(target, text, force=force)
+
+
+def _get_samples(self: FitResult) -> pd.DataFrame:
+    """The posterior draws as a new DataFrame over read-only memory (see the class doc)."""
+    return pd.DataFrame(self._draws, columns=list(self._columns), copy=False)
+
+
+def _set_samples(self: FitResult, value: Any) -> None:
+    if "_draws" in self.__dict__:  # only the generated __init__ may set it, once
+        raise AttributeError("the draws of a FitResult are read-only")
+    self.__dict__["_samples_given"] = value
+
+
+FitResult.samples = property(  # type: ignore[assignment]
+    _get_samples, _set_samples,
+    doc="Posterior draws, one row per draw: a new DataFrame over read-only memory at each "
+        "access (writing into it raises; adding columns changes only that frame).")
+
+
+def _migrate(data: Mapping[str, Any], major: int) -> Mapping[str, Any]:
+    """Bring a file of an older schema major to the current layout (identity for 1)."""
+    if major == 1:  # the current layout: files of version 1 read as they are
+        return data
+    raise InputError(f"no migration from result schema major {major}")  # pragma: no cover
 
 
 def _dump(data: dict[str, Any]) -> str:

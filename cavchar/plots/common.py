@@ -175,7 +175,10 @@ def _default_columns(result: Any, frame) -> list[str]:
 
 
 def _axis_label(label: str, unit: str) -> str:
-    return f"{label} [{unit}]" if unit else label
+    """Axis text ``label [unit]``; the label (from a result file) is made literal."""
+    from cavchar.plots.style import literal
+
+    return literal(f"{label} [{unit}]" if unit else label)
 
 
 def corner_plot(
@@ -211,7 +214,7 @@ def corner_plot(
     """
     import corner
 
-    from cavchar.plots.style import BAND_68, INK, PALETTE, apply_style, new_figure
+    from cavchar.plots.style import BAND_68, INK, PALETTE, apply_style, literal, new_figure
 
     frame = _samples_frame(result)
     names = list(columns) if columns else _default_columns(result, frame)
@@ -220,6 +223,12 @@ def corner_plot(
         raise InputError(f"no posterior draws of {', '.join(missing) or 'any parameter'}",
                          hint="known columns: " + ", ".join(map(str, frame.columns)))
     rows = np.linspace(0, len(frame) - 1, min(len(frame), int(max_draws))).astype(int)
+    spread = [n for n in names if np.ptp(np.asarray(frame[n], dtype=float)[rows]) > 0
+              and np.all(np.isfinite(np.asarray(frame[n], dtype=float)[rows]))]
+    if not spread:
+        raise InputError("no corner plot: the draws of " + ", ".join(map(str, names))
+                         + " have no spread or are not finite")
+    names = spread  # a column whose draws are all equal has no marginal to draw
     data, labels, titles, scales = [], [], [], []
     for name in names:
         values = np.asarray(frame[name], dtype=float)[rows]
@@ -227,7 +236,7 @@ def corner_plot(
         factor, unit = display_unit(values, dim)
         data.append(values * factor)
         labels.append(_axis_label(label, unit))
-        titles.append(label)
+        titles.append(literal(label))
         scales.append(factor)
     data = np.column_stack(data)
     k = data.shape[1]
@@ -331,6 +340,9 @@ def figure_bytes(fig, fmt: str = "png", dpi: float | None = None, tight: bool = 
     fmt = fmt.lower().lstrip(".")
     if fmt not in FIGURE_FORMATS:
         raise InputError(f"unknown figure format {fmt!r}", hint="use png, pdf or svg")
+    from cavchar.plots.style import literal_figure
+
+    literal_figure(fig)  # text that cannot be typeset is drawn as it is, never a crash
     buffer = io.BytesIO()
     metadata = {"Creator": "cavchar"} if fmt in ("pdf", "svg") else {"Software": "cavchar"}
     if fmt == "pdf":

@@ -36,6 +36,8 @@ __all__ = [
     "style_params",
     "apply_style",
     "new_figure",
+    "literal",
+    "literal_figure",
 ]
 
 #: series colours, darkest first (greyscale lightness rises monotonically along the list)
@@ -160,4 +162,40 @@ def new_figure(figsize: tuple[float, float] = (6.4, 3.6), **kwargs: Any):
 
     fig = Figure(figsize=figsize, **kwargs)
     FigureCanvasAgg(fig)
+    return fig
+
+
+def literal(text: object) -> str:
+    """User text (labels, cavity and file names) made literal for matplotlib.
+
+    matplotlib reads text between two unescaped ``$`` as mathtext, so a label
+    such as ``"cavity $A$"`` is typeset and ``"cost $5 and $"`` fails to
+    parse.  Every ``$`` is escaped as ``\\$``, which matplotlib draws as a
+    plain dollar sign; the rest of the text is drawn as given.  Our own labels
+    never use mathtext, so every piece of text from a user or a file goes
+    through this function on its way into a figure.
+    """
+    return str(text).replace("$", r"\$")
+
+
+def literal_figure(fig):
+    """Safety net before a figure is rendered: any text of ``fig`` that matplotlib would
+    parse as mathtext but cannot is drawn as plain text instead of failing the rendering.
+
+    Numeric tick labels (``$\\mathdefault{10^{-2}}$``) parse and stay typeset.
+    Returns the figure.
+    """
+    from matplotlib import cbook
+    from matplotlib.mathtext import MathTextParser
+    from matplotlib.text import Text
+
+    parser = MathTextParser("path")
+    for item in fig.findobj(Text):
+        text = item.get_text()
+        if not text or not cbook.is_math_text(text):
+            continue
+        try:
+            parser.parse(text, dpi=72, prop=item.get_fontproperties())
+        except (ValueError, RuntimeError):
+            item.set_parse_math(False)
     return fig

@@ -10,17 +10,24 @@ part of ``result.kind`` before the first ``-``), first match wins:
   and captions from the module's ``FIGURE_CAPTIONS = {name: (title, caption)}``
   when it has one);
 * otherwise the adapters below draw what they can with the module's plain
-  plotting functions.  The record is the one given to the report,
-or the input file named in the result's provenance when it is still there and
-its SHA-256 matches (so a figure never shows data other than the fitted ones).
+  plotting functions, from a record the caller gives.
+
+Figures are drawn from what the result holds (its draws and its ``extras``
+excerpts).  The input file named in a result's provenance is never opened by
+default: :func:`load_input_record` reads it only when a caller asks (the
+report's ``reread_inputs=True``), and only when its SHA-256 matches the hash
+the result recorded (a result without a hash is not re-read), so a crafted
+result cannot make a report embed a local file.  All text a figure takes from
+a result or a user is drawn literally (:func:`cavchar.plots.style.literal`).
 """
 
 from __future__ import annotations
 
 import importlib
 import importlib.util
+import re
 import warnings
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -42,39 +49,57 @@ class Figure:
     figure: Any
 
 
+#: fit families that have a plotting module
+FAMILIES = ("jumps", "probes", "ringdown")
+
+#: problems a plotting function meets in a result's excerpts of the wrong shape or type
+_DRAW_ERRORS = (CavcharError, TypeError, ValueError, KeyError, IndexError, AttributeError)
+
+
 def kind_family(kind: str) -> str:
     """``"jumps-exact"`` -> ``"jumps"``."""
     return str(kind).split("-", 1)[0].split("_", 1)[0]
 
 
 def _provenance_input(result: Any) -> tuple[str | None, str | None]:
-    prov = getattr(result, "provenance", None) or {}
+    prov = getattr(result, "provenance", None)
+    prov = prov if isinstance(prov, Mapping) else {}
     path, sha = prov.get("input_path"), prov.get("input_sha256")
     if isinstance(path, list):
         path = path[0] if len(path) == 1 else None
         sha = sha[0] if isinstance(sha, list) and len(sha) == 1 else None
+    path = path if isinstance(path, str) else None
+    sha = sha if isinstance(sha, str) and re.fullmatch(r"[0-9a-f]{64}", sha) else None
     return path, sha
 
 
 def load_input_record(result: Any) -> tuple[Any | None, str]:
-    """The fitted record, re-read from the input file of the provenance.
+    """The fitted record, re-read from the input file of the provenance, on request only.
+
+    The file is read only when the result records its SHA-256 and the file's
+    bytes hash to exactly that value; otherwise nothing is read.
 
     Returns
     -------
     (record or None, note)
-        ``note`` says why there is no record (file gone, changed, unreadable).
+        ``note`` says why there is no record (no hash, file gone, changed, unreadable).
     """
     from cavchar.provenance import sha256_of_file
 
     path, sha = _provenance_input(result)
     if not path:
         return None, "the result names no single input file"
+    if not sha:
+        return None, "the result records no SHA-256 of its input file to check it against"
+    family = kind_family(result.kind)
+    if family not in FAMILIES:
+        return None, "no reader is known for this fit kind"
     file = Path(path)
     if not file.is_file():
-        return None, f"the input file {path} is not there any more"
+        return None, "the input file named in the result is not there any more"
     try:
-        if sha and sha256_of_file(file) != sha:
-            return None, f"the input file {path} has changed since the fit (SHA-256 differs)"
+        if sha256_of_file(file) != sha:
+            return None, "the input file has changed since the fit (its SHA-256 differs)"
         return _read_record(result, file), ""
     except CavcharError as exc:
         return None, f"the input file could not be read again ({exc})"
@@ -98,6 +123,8 @@ def _read_record(result: Any, file: Path) -> Any:
 
 
 def _provider(family: str):
+    if family not in FAMILIES:
+        return None, None
     name = f"cavchar.plots.{family}"
     try:
         if importlib.util.find_spec(name) is None:
@@ -179,55 +206,63 @@ def data_figures(result: Any, record: Any | None = None) -> tuple[list[Figure], 
     notes: list[str] = []
     module, provider = _provider(family)
     if module is None:
-        return [], [f"no plotting module for fits of kind {result.kind!r} is installed"]
-
-    def need_record() -> Any:
-        nonlocal record
-        if record is None:
-            record, why = load_input_record(result)
-            if record is None and why:
-                notes.append(f"The data panels are left out: {why}.")
-        return record
-
+        return [], [f"No data figure: cavchar draws none for fits of kind {result.kind}."]
     try:
         figures: list[Figure] = []
         if provider is not None:
-            made = provider(result, need_record())
+            made = provider(result, record)
             figures = [f if isinstance(f, Figure) else Figure(*f) for f in made]
         elif hasattr(module, "figures"):
             captions = {**KNOWN_CAPTIONS, **getattr(module, "FIGURE_CAPTIONS", {})}
             for name, fig in module.figures(result).items():
                 title, caption = captions.get(name, (name.replace("_", " ").capitalize(), ""))
                 figures.append(Figure(title, caption, fig))
-        if not figures and family == "jumps":
-            figures = _jump_figures(module, result, need_record())
-    except CavcharError as exc:
-        warnings.warn(f"report: the data figures of a {result.kind} fit failed ({exc})",
+        if not figures and family == "jumps" and record is not None:
+            figures = _jump_figures(module, result, record)
+    except _DRAW_ERRORS as exc:
+        why = str(exc)[:200] if isinstance(exc, CavcharError) else \
+            "the result's data excerpts do not have the expected form"
+        warnings.warn(f"report: the data figures of a {result.kind} fit were left out ({why})",
                       CavcharWarning, stacklevel=2)
-        return [], [f"The data figures could not be drawn: {exc}."]
+        return [], [f"The data figures could not be drawn: {why}."]
     if not figures and not notes:
-        notes.append(f"The plotting module of {family} fits offers no figure for the report yet.")
+        notes.append("The result holds no data excerpt to draw (the data figures are drawn "
+                     "from the result alone).")
     return figures, notes
 
 
-def sampler_figures(result: Any, truths: dict[str, float] | None = None) -> list[Figure]:
-    """Corner plot and chain traces of one result."""
+def sampler_figures(result: Any, truths: dict[str, float] | None = None,
+                    notes: list[str] | None = None) -> list[Figure]:
+    """Corner plot and chain traces of one result.
+
+    A figure that cannot be drawn (draws without spread, a stored chain of the
+    wrong shape) is left out, and why is appended to ``notes`` when given.
+    """
     from cavchar.plots.common import corner_plot, result_trace, trace_plot
 
-    out = [Figure("Posterior draws (corner plot)",
-                  "Marginal posterior of each fitted parameter (diagonal; dashed lines at the "
-                  "16th, 50th and 84th percentiles) and of each pair (contours holding about "
-                  "39% and 86% of the draws)."
-                  + (" Solid brick-coloured lines: the true values of the simulation."
-                     if truths else ""),
-                  corner_plot(result, truths=truths))]
-    stored = result_trace(result) is not None
-    out.append(Figure("Chain traces",
-                      "Position of the sampler's walkers step by step (grey), their median "
-                      "(dashed) and the discarded burn-in (shaded)." if stored else
-                      "The result file keeps no walker chain, so the kept draws are shown in "
-                      "their stored order; a steady band without drifts is what to look for.",
-                      trace_plot(result)))
+    out = []
+    try:
+        out.append(Figure("Posterior draws (corner plot)",
+                          "Marginal posterior of each fitted parameter (diagonal; dashed lines "
+                          "at the 16th, 50th and 84th percentiles) and of each pair (contours "
+                          "holding about 39% and 86% of the draws)."
+                          + (" Solid brick-coloured lines: the true values of the simulation."
+                             if truths else ""),
+                          corner_plot(result, truths=truths)))
+    except _DRAW_ERRORS as exc:
+        if notes is not None:
+            notes.append(f"The corner plot is left out: {str(exc)[:200]}.")
+    try:
+        stored = result_trace(result) is not None
+        out.append(Figure("Chain traces",
+                          "Position of the sampler's walkers step by step (grey), their median "
+                          "(dashed) and the discarded burn-in (shaded)." if stored else
+                          "The result file keeps no walker chain, so the kept draws are shown "
+                          "in their stored order; a steady band without drifts is what to look "
+                          "for.", trace_plot(result)))
+    except _DRAW_ERRORS as exc:
+        if notes is not None:
+            notes.append(f"The chain traces are left out: {str(exc)[:200]}.")
     return out
 
 
@@ -244,7 +279,7 @@ def comparison_figure(results: Sequence[Any], labels: Sequence[str]):
     in greyscale.
     """
     from cavchar.plots.common import display_unit
-    from cavchar.plots.style import apply_style, new_figure, series
+    from cavchar.plots.style import apply_style, literal, new_figure, series
 
     panels = [(name, title, dim) for name, title, dim in _COMPARE
               if any(_column(r, name) is not None for r in results)]
@@ -271,7 +306,8 @@ def comparison_figure(results: Sequence[Any], labels: Sequence[str]):
             if name == "n_thermal" and pooled.min() > 0 and pooled.max() / pooled.min() > 30:
                 ax.set_yscale("log")
             ax.set_ylabel(f"{title} [{unit}]" if unit else title, fontsize=8)
-        axes[-1].set_xticks(np.arange(len(results)), list(labels), rotation=20, ha="right")
+        axes[-1].set_xticks(np.arange(len(results)), [literal(x) for x in labels], rotation=20,
+                            ha="right")
         axes[-1].set_xlim(-0.6, len(results) - 0.4)
         axes[0].set_title("results side by side (thick bar 68%, thin bar 95%)")
         fig.align_ylabels(axes)

@@ -2,8 +2,16 @@
 
 One file holds everything: figures are embedded as base64 PNG, the style sheet
 is inline and nothing refers to the network.  The page is filled from the
-package templates ``cavchar/templates/report.html`` and ``report.css``
-(:class:`string.Template` placeholders).
+package templates ``cavchar/templates/report.html`` (jinja2, autoescaping on)
+and ``report.css``.
+
+Safety: every value from a result reaches the page escaped (fragments are
+:class:`markupsafe.Markup` built by :func:`cavchar.report.text.html`, the
+template escapes whatever else it gets), and the page carries a
+Content-Security-Policy (:data:`CONTENT_SECURITY_POLICY`) that forbids every
+script and every outside resource.  Figures are drawn from what the result
+holds; the input file named in a result's provenance is never opened, unless
+``reread_inputs=True`` asks for it and its SHA-256 matches the recorded one.
 
 For each result: a summary table of lifetime, Q, linewidth, n_th and effective
 temperature with 68 % and 95 % intervals and units; one-line forms for papers
@@ -24,11 +32,16 @@ from collections.abc import Mapping, Sequence
 from datetime import UTC, datetime
 from importlib import resources
 from pathlib import Path
-from string import Template
 from typing import Any
 
 from cavchar.errors import InputError
-from cavchar.report.figures import Figure, comparison_figure, data_figures, sampler_figures
+from cavchar.report.figures import (
+    Figure,
+    comparison_figure,
+    data_figures,
+    load_input_record,
+    sampler_figures,
+)
 from cavchar.report.sections import (
     CAUTIONS_HTML,
     Section,
@@ -40,9 +53,15 @@ from cavchar.report.sections import (
     provenance_html,
     summary_table_html,
 )
-from cavchar.report.text import esc, format_interval_row, table_html
+from cavchar.report.text import Markup, format_interval_row, html, table_html
 
-__all__ = ["write_report", "render_report", "load_results", "Section", "result_label"]
+__all__ = ["write_report", "render_report", "load_results", "Section", "result_label",
+           "result_summary_html", "CONTENT_SECURITY_POLICY"]
+
+#: the page's Content-Security-Policy: no script, no outside resource, images only as
+#: embedded data, the inline style sheet
+CONTENT_SECURITY_POLICY = ("default-src 'none'; script-src 'none'; img-src data:; "
+                           "style-src 'unsafe-inline'; base-uri 'none'; form-action 'none'")
 
 #: rows of the comparison table: column, heading, dimension
 _COMPARE_ROWS = (("lifetime", "T_c", "time"), ("quality_factor", "Q", "dimensionless"),
@@ -74,15 +93,27 @@ def load_results(results: Sequence[Any]) -> tuple[list[Any], list[str | None]]:
 
 def result_label(result: Any, source: str | None = None) -> str:
     """Short name of a result: its kind and input file (or result file)."""
-    path = (result.provenance or {}).get("input_path")
+    prov = result.provenance if isinstance(result.provenance, Mapping) else {}
+    path = prov.get("input_path")
     if isinstance(path, list):
-        path = path[0] + (f" (+{len(path) - 1})" if len(path) > 1 else "") if path else None
+        path = str(path[0]) + (f" (+{len(path) - 1})" if len(path) > 1 else "") if path \
+            else None
+    path = None if path is None else str(path)
     name = Path(path).name if path else (Path(source).name if source else "no input file")
     return f"{result.kind} · {name}"
 
 
 def _template(name: str) -> str:
     return resources.files("cavchar").joinpath("templates", name).read_text(encoding="utf-8")
+
+
+def _page_template():
+    """The jinja2 page template, autoescaping every value that is not Markup."""
+    import jinja2
+
+    env = jinja2.Environment(autoescape=True, undefined=jinja2.StrictUndefined,
+                             keep_trailing_newline=True)
+    return env.from_string(_template("report.html"))
 
 
 def _close(fig: Any) -> None:
@@ -96,7 +127,7 @@ def _close(fig: Any) -> None:
 REPORT_DPI = 120.0
 
 
-def _figure_html(item: Figure, number: str) -> str:
+def _figure_html(item: Figure, number: str) -> Markup:
     from cavchar.plots.common import figure_data_uri
 
     try:
@@ -105,10 +136,9 @@ def _figure_html(item: Figure, number: str) -> str:
         width, height = (int(round(v * REPORT_DPI)) for v in item.figure.get_size_inches())
     finally:
         _close(item.figure)
-    caption = f"<b>Figure {esc(number)}. {esc(item.title)}.</b> {esc(item.caption)}"
-    return (f'<figure><img src="{uri}" alt="{esc(item.title)}" '
-            f'style="max-width:min(100%, {width}px)" data-height="{height}">'
-            f"<figcaption>{caption}</figcaption></figure>")
+    return html('<figure><img src="{}" alt="{}" style="max-width:min(100%, {}px)" '
+                'data-height="{}"><figcaption><b>Figure {}. {}.</b> {}</figcaption></figure>',
+                uri, item.title, width, height, number, item.title, item.caption)
 
 
 class _Counter:
@@ -120,76 +150,87 @@ class _Counter:
         return str(self.n)
 
 
-def _status_line(result: Any) -> str:
-    d = result.diagnostics or {}
-    state = ('<span class="badge pass">CONVERGED</span>' if result.converged
-             else '<span class="badge fail">NOT CONVERGED</span>')
-    parts = [f"{len(result.samples)} posterior draws", f"seed {esc(result.seed)}"]
+def _status_line(result: Any) -> Markup:
+    d = result.diagnostics if isinstance(result.diagnostics, Mapping) else {}
+    state = (Markup('<span class="badge pass">CONVERGED</span>') if result.converged is True
+             else Markup('<span class="badge fail">NOT CONVERGED</span>'))
+    parts = [f"{len(result.samples)} posterior draws", f"seed {result.seed}"]
     if d.get("n_walkers"):
         parts.append(f"{d['n_walkers']} walkers × {d.get('n_steps', '?')} steps")
-    return f'<p class="status">{state} {" · ".join(parts)}</p>'
+    return html('<p class="status">{} {}</p>', state, " · ".join(parts))
 
 
 def _result_section(index: int, result: Any, label: str, *, truths: Mapping | None,
-                    record: Any, counter: _Counter, figures: bool = True) -> tuple[str, str]:
+                    record: Any, counter: _Counter, figures: bool = True,
+                    reread_input: bool = False) -> tuple[str, Markup]:
     anchor = f"fit-{index}"
-    parts = [f'<section class="fit" id="{anchor}">',
-             f"<h2>{index}. {esc(label)}</h2>", _status_line(result)]
-    parts.append("<h3>Summary</h3>")
+    parts = [html('<section class="fit" id="{}">', anchor),
+             html("<h2>{}. {}</h2>", index, label), _status_line(result)]
+    parts.append(Markup("<h3>Summary</h3>"))
     parts.append(summary_table_html(result, index, truths))
-    parts.append("<h3>In one line</h3>")
+    parts.append(Markup("<h3>In one line</h3>"))
     parts.append(oneliners_html(result))
-    planck = (result.checks or {}).get("planck")
-    parts.append("<h3>Planck check</h3>")
-    parts.append(planck_html(planck, result))
+    checks = result.checks if isinstance(result.checks, Mapping) else {}
+    parts.append(Markup("<h3>Planck check</h3>"))
+    parts.append(planck_html(checks.get("planck"), result))
     if figures:
-        made, notes = data_figures(result, record)
-        parts.append("<h3>Data and fit</h3>")
+        notes: list[str] = []
+        if record is None and reread_input:
+            record, why = load_input_record(result)
+            if record is None:
+                notes.append(f"The input file was not read again: {why}.")
+        made, more = data_figures(result, record)
+        parts.append(Markup("<h3>Data and fit</h3>"))
         for fig in made:
             parts.append(_figure_html(fig, counter.next()))
-        for note in notes:
-            parts.append(f'<p class="note">{esc(note)}</p>')
-    details = ["<h3>Model checks</h3>", checks_html(result), "<h3>Posterior and sampler</h3>"]
+        for note in notes + more:
+            parts.append(html('<p class="note">{}</p>', note))
+    details = [Markup("<h3>Model checks</h3>"), checks_html(result),
+               Markup("<h3>Posterior and sampler</h3>")]
     if figures:
-        for fig in sampler_figures(result, truths=dict(truths) if truths else None):
+        notes = []
+        made = sampler_figures(result, truths=dict(truths) if truths else None, notes=notes)
+        for fig in made:
             details.append(_figure_html(fig, counter.next()))
+        for note in notes:
+            details.append(html('<p class="note">{}</p>', note))
     details.append(diagnostics_html(result))
-    details.append("<h3>Priors and settings</h3>")
+    details.append(Markup("<h3>Priors and settings</h3>"))
     details.append(priors_html(result))
-    settings = json.dumps(result.settings, indent=1, sort_keys=True)
-    details.append(f"<details><summary>every setting of this fit (JSON)</summary>"
-                   f"<pre>{esc(settings)}</pre></details>")
-    details.append("<h3>Provenance</h3>")
+    settings = json.dumps(result.settings, indent=1, sort_keys=True, default=str)
+    details.append(html("<details><summary>every setting of this fit (JSON)</summary>"
+                        "<pre>{}</pre></details>", settings))
+    details.append(Markup("<h3>Provenance</h3>"))
     details.append(provenance_html(result))
     if figures:
         parts += details
     else:  # a compact section: the rest folded away
-        parts.append('<details class="fold"><summary>model checks, convergence, priors and '
-                     "provenance of this fit (its figures are left out to keep the page "
-                     "short; the result file holds every draw)</summary>"
-                     + "".join(details) + "</details>")
-    parts.append("</section>")
-    return anchor, "\n".join(parts)
+        parts.append(html('<details class="fold"><summary>model checks, convergence, priors '
+                          "and provenance of this fit (its figures are left out to keep the "
+                          "page short; the result file holds every draw)</summary>{}</details>",
+                          Markup("").join(details)))
+    parts.append(Markup("</section>"))
+    return anchor, Markup("\n").join(parts)
 
 
 def _comparison_section(results: Sequence[Any], labels: Sequence[str],
-                        counter: _Counter) -> str:
+                        counter: _Counter) -> Markup:
     header = ["result"] + [f"{h} (95% interval)" for _, h, _ in _COMPARE_ROWS]
     rows = []
     for result, label in zip(results, labels, strict=True):
         table = result.summary()
-        cells = [esc(label)]
+        cells: list[Any] = [label]
         for name, _, dim in _COMPARE_ROWS:
             if name not in table.index:
                 cells.append("–")
                 continue
             text = format_interval_row(table.loc[name], dim)
-            unit = f" {esc(text['unit'])}" if text["unit"] else ""
-            cells.append(f"{esc(text['median'])} "
-                         f"<span class=mono>[{esc(text['interval95'])}]</span>{unit}")
+            cells.append(html("{} <span class=mono>[{}]</span>{}", text["median"],
+                              text["interval95"], f" {text['unit']}" if text["unit"] else ""))
         rows.append(cells)
-    parts = ['<section class="comparison" id="comparison">', "<h2>Results side by side</h2>",
-             table_html(header, rows, raw=True, css_class="grid summary",
+    parts = [Markup('<section class="comparison" id="comparison">'),
+             Markup("<h2>Results side by side</h2>"),
+             table_html(header, rows, css_class="grid summary",
                         caption="median and equal-tailed 95% credible interval of each result")]
     fig = comparison_figure(results, labels)
     if fig is not None:
@@ -197,8 +238,8 @@ def _comparison_section(results: Sequence[Any], labels: Sequence[str],
             "Lifetime, thermal photons and effective temperature of each result",
             "Point: median; thick bar: 68% interval; thin bar: 95% interval. Each result "
             "keeps its own marker and colour.", fig), counter.next()))
-    parts.append("</section>")
-    return "\n".join(parts)
+    parts.append(Markup("</section>"))
+    return Markup("\n").join(parts)
 
 
 def _extra(section: Any, counter: _Counter) -> Section:
@@ -207,6 +248,17 @@ def _extra(section: Any, counter: _Counter) -> Section:
     from cavchar.report.tracking import section_for
 
     return section_for(section, figure_html=lambda fig: _figure_html(fig, counter.next()))
+
+
+def result_summary_html(result: Any) -> Markup:
+    """A compact, escaped HTML view of one result (for notebooks): status, summary table,
+    one-line forms and the Planck check; no figures."""
+    checks = result.checks if isinstance(result.checks, Mapping) else {}
+    parts = [html("<div><p><b>cavchar fit result</b> · {}</p>", result.kind),
+             _status_line(result), summary_table_html(result, 1, None),
+             oneliners_html(result), planck_html(checks.get("planck"), result),
+             Markup("</div>")]
+    return Markup("\n").join(parts)
 
 
 def render_report(
@@ -219,13 +271,14 @@ def render_report(
     extra_sections: Sequence[Any] = (),
     intro: str | None = None,
     figures: bool | Sequence[bool] = True,
+    reread_inputs: bool = False,
 ) -> str:
     """The report as one HTML string (see :func:`write_report` for the arguments)."""
     from cavchar import __version__
 
     loaded, sources = load_results(results)
     n = len(loaded)
-    labels = list(labels) if labels is not None else [
+    labels = [str(x) for x in labels] if labels is not None else [
         result_label(r, s) for r, s in zip(loaded, sources, strict=True)]
     truths = list(truths) if truths is not None else [None] * n
     records = list(records) if records is not None else [None] * n
@@ -233,39 +286,38 @@ def render_report(
     if not (len(labels) == len(truths) == len(records) == len(draw) == n):
         raise InputError("labels, truths, records and figures need one entry per result")
     counter = _Counter()
-    contents, body = [], []
+    contents: list[tuple[str, str]] = []
+    body: list[Markup] = []
     if n > 1:
         body.append(_comparison_section(loaded, labels, counter))
-        contents.append('<li><a href="#comparison">Results side by side</a></li>')
+        contents.append(("comparison", "Results side by side"))
     for i, (result, label) in enumerate(zip(loaded, labels, strict=True), start=1):
         anchor, text = _result_section(i, result, label, truths=truths[i - 1],
                                        record=records[i - 1], counter=counter,
-                                       figures=draw[i - 1])
+                                       figures=draw[i - 1], reread_input=reread_inputs)
         body.append(text)
-        contents.append(f'<li><a href="#{anchor}">{esc(label)}</a></li>')
+        contents.append((anchor, label))
     used: set[str] = {"comparison", "cautions", *(f"fit-{i}" for i in range(1, n + 1))}
     for j, raw in enumerate(extra_sections, start=1):
         section = _extra(raw, counter)
-        anchor = section.anchor or f"extra-{j}"
+        anchor = str(section.anchor or f"extra-{j}")
         if anchor in used:
             anchor = f"{anchor}-{j}"
         used.add(anchor)
-        body.append(f'<section class="extra" id="{esc(anchor)}"><h2>{esc(section.title)}</h2>'
-                     f"{section.html}</section>")
-        contents.append(f'<li><a href="#{esc(anchor)}">{esc(section.title)}</a></li>')
-    contents.append('<li><a href="#cautions">Cautions</a></li>')
+        # a Section's body is HTML made by cavchar's own code (values escaped there)
+        body.append(html('<section class="extra" id="{}"><h2>{}</h2>{}</section>', anchor,
+                         section.title, Markup(section.html)))
+        contents.append((anchor, str(section.title)))
+    contents.append(("cautions", "Cautions"))
     now = datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")
-    kinds = sorted({r.kind for r in loaded})
+    kinds = sorted({str(r.kind) for r in loaded})
     byline = (f"{n} fit result{'s' if n > 1 else ''} ({', '.join(kinds)}) · written {now} · "
               f"cavchar {__version__}")
-    page = Template(_template("report.html"))
-    return page.substitute(
-        title=esc(title or ("Cavity fit report" if n == 1 else "Cavity fit report: "
-                            f"{n} results")),
-        version=esc(__version__), byline=esc(byline), generated=esc(now),
-        intro=f'<p class="statement">{esc(intro)}</p>' if intro else "",
-        css=_template("report.css"), contents="\n".join(contents), body="\n".join(body),
-        cautions=CAUTIONS_HTML,
+    return _page_template().render(
+        title=title or ("Cavity fit report" if n == 1 else f"Cavity fit report: {n} results"),
+        version=__version__, byline=byline, generated=now, intro=intro or "",
+        csp=CONTENT_SECURITY_POLICY, css=Markup(_template("report.css")), contents=contents,
+        body=body, cautions=CAUTIONS_HTML,
     )
 
 
@@ -281,6 +333,7 @@ def write_report(
     extra_sections: Sequence[Any] = (),
     intro: str | None = None,
     figures: bool | Sequence[bool] = True,
+    reread_inputs: bool = False,
 ) -> Path:
     """Write one self-contained HTML report of fit results.
 
@@ -301,8 +354,8 @@ def write_report(
         Per result, known true values in SI units by column name (simulated
         data): shown in the summary table and the corner plot.
     records
-        Per result, the fitted record (default: re-read from the input file
-        named in the provenance, if it is unchanged).
+        Per result, the fitted record, for data figures beyond what the result's
+        own excerpts allow (default: none; figures are drawn from the result).
     extra_sections
         Further sections: :class:`Section` objects, or the objects returned by
         :func:`cavchar.tracking.cooldown_trend`, :func:`cavchar.tracking.qualify`
@@ -311,6 +364,10 @@ def write_report(
         A paragraph of plain text under the title.
     figures
         Draw the figures of every result (True), of none, or per result.
+    reread_inputs
+        Read each result's input file again for its data figures (default: never).
+        Only a file whose SHA-256 matches the one recorded in the provenance is
+        read; a result without a recorded hash is not.
 
     Returns
     -------
@@ -321,5 +378,6 @@ def write_report(
 
     target = check_can_write(out_path, force)
     text = render_report(results, title=title, labels=labels, truths=truths, records=records,
-                         extra_sections=extra_sections, intro=intro, figures=figures)
+                         extra_sections=extra_sections, intro=intro, figures=figures,
+                         reread_inputs=reread_inputs)
     return write_text_atomic(target, text, force=force)

@@ -1,5 +1,11 @@
 """HTML pieces of one result's part of the report: summary table, one-liners, Planck
-check, model checks, convergence diagnostics, priors and provenance."""
+check, model checks, convergence diagnostics, priors and provenance.
+
+Every piece is :class:`markupsafe.Markup` built with :func:`cavchar.report.text.html`
+or :func:`~cavchar.report.text.table_html`, so each value from a result is escaped on
+its way in.  A check or diagnostics block whose fields do not have the types its
+typed view expects is shown by the generic key-value view instead (as escaped text).
+"""
 
 from __future__ import annotations
 
@@ -10,9 +16,11 @@ from dataclasses import dataclass
 from typing import Any
 
 from cavchar.report.text import (
-    esc,
+    Markup,
     format_interval_row,
     format_quantity_text,
+    html,
+    number_text,
     planck_sentences,
     prior_text,
     probability_text,
@@ -26,14 +34,15 @@ __all__ = ["Section", "CAUTIONS_HTML", "SUMMARY_ORDER", "summary_names", "summar
 
 @dataclass(frozen=True)
 class Section:
-    """A section of the report: a title and its HTML body (already escaped / trusted)."""
+    """A section of the report: a title (plain text, escaped) and its HTML body (trusted:
+    built by cavchar's own code, with every value escaped on its way in)."""
 
     title: str
     html: str
     anchor: str | None = None
 
 
-CAUTIONS_HTML = (
+CAUTIONS_HTML = Markup(
     "<p>cavchar analyses data and controls nothing: no instrument, cryostat or source is "
     "driven by it, and nothing in this report is an instruction to operate one.</p>"
     "<p>The experiments behind such data involve hazards. Cryogens (liquid helium and "
@@ -92,15 +101,15 @@ def summary_table_html(result: Any, index: int, truths: Mapping[str, float] | No
             true = truths.get(name)
             row.append("–" if true is None else format_quantity_text(float(true), dimension, 4))
         rows.append(row)
-    out = [f'<div id="summary-{index}">' + table_html(
+    out = [html('<div id="summary-{}">{}</div>', index, table_html(
         header, rows, css_class="grid summary",
         caption="posterior median and equal-tailed credible intervals "
-                "(68%: 15.9th–84.1st percentile; 95%: 2.5th–97.5th)") + "</div>"]
+                "(68%: 15.9th–84.1st percentile; 95%: 2.5th–97.5th)"))]
     if flagged:
-        out.append('<p class="note">† n_th piles up against zero (its 95% interval spans more '
-                   "than two decades): quote the one-sided 95% upper limit given below, not "
-                   "the interval.</p>")
-    return "\n".join(out)
+        out.append(Markup('<p class="note">† n_th piles up against zero (its 95% interval '
+                          "spans more than two decades): quote the one-sided 95% upper limit "
+                          "given below, not the interval.</p>"))
+    return Markup("\n").join(out)
 
 
 def oneliners_html(result: Any) -> str:
@@ -111,12 +120,19 @@ def oneliners_html(result: Any) -> str:
             line = result.one_line(name)
         except (KeyError, ValueError):
             continue
-        items.append(f"<li><code>{esc(line)}</code></li>")
-    return '<ul class="oneliners">' + "".join(items) + "</ul>"
+        items.append(html("<li><code>{}</code></li>", line))
+    return html('<ul class="oneliners">{}</ul>', Markup("").join(items))
 
 
-def planck_html(check: Mapping[str, Any] | None, result: Any) -> str:
+def planck_html(check: Mapping[str, Any] | None, result: Any) -> Markup:
     """The Planck check in words, or why there is none."""
+    if check and not isinstance(check, Mapping):
+        return _generic_check(check)
+    if check:
+        try:
+            return _planck_words(check)
+        except (TypeError, ValueError, KeyError, AttributeError):
+            return _generic_check(check)
     if not check:
         fit = (result.settings or {}).get("fit", {})
         missing = [w for w, k in (("the mode frequency", "freq_hz"),
@@ -128,103 +144,128 @@ def planck_html(check: Mapping[str, Any] | None, result: Any) -> str:
             why = "it needs " + " and ".join(missing) + " (--freq, --stage-temp)"
         else:
             why = "the fit stored none"
-        return f'<p class="note">No Planck check: {esc(why)}.</p>'
+        return html('<p class="note">No Planck check: {}.</p>', why)
+    return Markup("")
+
+
+def _planck_words(check: Mapping[str, Any]) -> Markup:
     sentences = planck_sentences(check)
-    first = f'<p class="statement">{esc(sentences[0])}</p>'
-    rest = "".join(f"<p>{esc(s)}</p>" for s in sentences[1:])
+    first = html('<p class="statement">{}</p>', sentences[0])
+    rest = Markup("").join(html("<p>{}</p>", s) for s in sentences[1:])
     verdict = str(check.get("verdict", ""))
-    badge = ""
+    badge = Markup("")
     if verdict:
         klass = "fail" if "hotter" in verdict else "pass" if "colder" in verdict else "undecided"
-        badge = f'<p><span class="badge {klass}">{esc(verdict.upper())}</span> at ' \
-                f"{esc(check.get('decision_probability', 0.95))} posterior probability</p>"
+        badge = html('<p><span class="badge {}">{}</span> at {} posterior probability</p>',
+                     klass, verdict.upper(),
+                     number_text(check.get("decision_probability", 0.95), "g"))
     return first + rest + badge
 
 
-def _cell(value: Any) -> str:
+def _cell(value: Any, key: str = "") -> str:
+    """Plain text of a value for a table cell (escaped by the table)."""
     if value is None:
         return "–"
     if isinstance(value, bool):
         return "yes" if value else "no"
+    if isinstance(value, float | int) and _is_probability_key(key) and 0 <= value <= 1:
+        return probability_text(value)
     if isinstance(value, float):
         return f"{value:.4g}" if math.isfinite(value) else "–"
-    if isinstance(value, (dict, list)):
-        return json.dumps(value, sort_keys=True)
+    if isinstance(value, dict | list):
+        return json.dumps(value, sort_keys=True, default=str)
     return str(value)
 
 
-def _generic_check(value: Any) -> str:
+def _is_probability_key(key: str) -> bool:
+    key = str(key).lower()
+    return key.startswith(("p_value", "prob")) or key.endswith(("p_value", "probability"))
+
+
+def _generic_check(value: Any) -> Markup:
+    """Any JSON value as escaped key-value tables (the fallback view of every block)."""
     if not isinstance(value, Mapping):
-        return f"<p>{esc(_cell(value))}</p>"
+        return html("<p>{}</p>", _cell(value))
     scalars = [(k, v) for k, v in value.items()
-               if not (isinstance(v, list) and v and isinstance(v[0], Mapping))]
+               if not (isinstance(v, list) and v and all(isinstance(r, Mapping) for r in v))]
     tables = [(k, v) for k, v in value.items() if (k, v) not in scalars]
     parts = []
     if scalars:
-        parts.append(table_html(["item", "value"], [(k.replace("_", " "), _cell(v))
+        parts.append(table_html(["item", "value"], [(str(k).replace("_", " "), _cell(v, k))
                                                     for k, v in scalars],
                                 css_class="grid keyvalue", numeric_from=9))
     for key, rows in tables:
         columns = list(dict.fromkeys(c for row in rows for c in row))
-        parts.append(table_html([c.replace("_", " ") for c in columns],
-                                [[_cell(row.get(c)) for c in columns] for row in rows],
-                                css_class="grid", caption=key.replace("_", " ")))
-    return "".join(parts)
+        parts.append(table_html([str(c).replace("_", " ") for c in columns],
+                                [[_cell(row.get(c), c) for c in columns] for row in rows],
+                                css_class="grid", caption=str(key).replace("_", " ")))
+    return Markup("").join(parts)
 
 
-def _dwell_check(check: Mapping[str, Any]) -> str:
+def _dwell_check(check: Mapping[str, Any]) -> Markup:
     misfit = check.get("misfit")
-    badge = ('<span class="badge fail">MISFIT</span>' if misfit
-             else '<span class="badge pass">NO MISFIT</span>')
-    p = check.get("smallest_p_value")
-    words = (f"{badge} Smallest posterior predictive p-value "
-             f"{'–' if p is None else f'{p:.3g}'} against a threshold of "
-             f"{check.get('threshold', float('nan')):.3g} ({esc(check.get('method', ''))}).")
+    badge = (Markup('<span class="badge fail">MISFIT</span>') if misfit
+             else Markup('<span class="badge pass">NO MISFIT</span>'))
+    words = html("{} Smallest posterior predictive p-value {} against a threshold of {} ({}).",
+                 badge, number_text(check.get("smallest_p_value"), ".3g"),
+                 number_text(check.get("threshold"), ".3g"), check.get("method", ""))
     rows = []
     for row in check.get("per_photon_number", []):
         mean, expected = row.get("mean_dwell_s"), row.get("expected_mean_dwell_s")
         rows.append([row.get("photon_number"), row.get("complete_dwells"),
                      format_quantity_text(mean, "time") if mean is not None else "–",
                      format_quantity_text(expected, "time") if expected is not None else "–",
-                     _cell(row.get("ks_distance")), _cell(row.get("p_value"))])
+                     _cell(row.get("ks_distance")), _cell(row.get("p_value"), "p_value")])
     table = table_html(["photon number", "complete dwells", "mean dwell", "expected (fit)",
                         "KS distance", "p-value"], rows, css_class="grid")
-    return f"<p>{words}</p>{table}"
+    return html("<p>{}</p>{}", words, table)
 
 
-def checks_html(result: Any) -> str:
+def checks_html(result: Any) -> Markup:
     """Every check of the result other than the Planck check."""
     checks = {k: v for k, v in (result.checks or {}).items() if k != "planck"}
     if not checks:
-        return '<p class="note">This fit stored no posterior predictive or residual check.</p>'
+        return Markup('<p class="note">This fit stored no posterior predictive or residual '
+                      "check.</p>")
     parts = []
     for name, value in checks.items():
-        title = name.replace("_", " ")
-        parts.append(f"<p><b>{esc(title)}</b></p>")
+        parts.append(html("<p><b>{}</b></p>", str(name).replace("_", " ")))
         if name == "dwell_times" and isinstance(value, Mapping):
-            parts.append(_dwell_check(value))
-        else:
-            parts.append(_generic_check(value))
-    return "".join(parts)
+            try:
+                parts.append(_dwell_check(value))
+                continue
+            except (TypeError, ValueError, KeyError, AttributeError):
+                pass
+        parts.append(_generic_check(value))
+    return Markup("").join(parts)
 
 
-def diagnostics_html(result: Any) -> str:
+def diagnostics_html(result: Any) -> Markup:
     """Convergence diagnostics: the run as a whole and per parameter."""
     d = result.diagnostics or {}
     if not d:
-        return '<p class="note">No sampler diagnostics were stored.</p>'
+        return Markup('<p class="note">No sampler diagnostics were stored.</p>')
+    if not isinstance(d, Mapping):
+        return _generic_check(d)
+    try:
+        return _diagnostics_tables(result, d)
+    except (TypeError, ValueError, KeyError, AttributeError):
+        return _generic_check(d)
+
+
+def _diagnostics_tables(result: Any, d: Mapping[str, Any]) -> Markup:
     acc = d.get("acceptance_fraction") or {}
     overall = [
         ("converged", _cell(d.get("converged", result.converged))),
-        ("walkers × steps", f"{d.get('n_walkers', '?')} × {d.get('n_steps', '?')}"),
+        ("walkers × steps", f"{_cell(d.get('n_walkers', '?'))} × "
+                            f"{_cell(d.get('n_steps', '?'))}"),
         ("burn-in (steps)", _cell(d.get("burn_in"))),
         ("thinning (steps)", _cell(d.get("thin"))),
         ("draws kept", _cell(d.get("n_draws", len(result.samples)))),
         ("moves", _cell(d.get("moves"))),
         ("acceptance fraction", (f"{acc['mean']:.3f} (walkers {acc['min']:.3f}–"
                                  f"{acc['max']:.3f})") if "mean" in acc else "–"),
-        ("sampling time", format_quantity_text(d["elapsed_s"], "time")
-         if d.get("elapsed_s") is not None else "–"),
+        ("sampling time", format_quantity_text(d.get("elapsed_s"), "time")),
     ]
     parts = [table_html(["run", "value"], overall, css_class="grid keyvalue", numeric_from=9)]
     names = list((d.get("tau") or {}).keys())
@@ -242,15 +283,17 @@ def diagnostics_html(result: Any) -> str:
             css_class="grid", caption="convergence per parameter (rank-normalized split R-hat "
                                       "and ESS after Vehtari et al. 2021)"))
     failed = d.get("failed_checks") or []
+    if isinstance(failed, str):
+        failed = [failed]
     if failed:
-        parts.append('<p><span class="badge fail">FAILED CHECKS</span></p><ul>'
-                     + "".join(f"<li>{esc(f)}</li>" for f in failed) + "</ul>")
+        parts.append(html('<p><span class="badge fail">FAILED CHECKS</span></p><ul>{}</ul>',
+                          Markup("").join(html("<li>{}</li>", f) for f in failed)))
     else:
-        parts.append("<p>Every convergence check passed.</p>")
-    return "".join(parts)
+        parts.append(Markup("<p>Every convergence check passed.</p>"))
+    return Markup("").join(parts)
 
 
-def priors_html(result: Any) -> str:
+def priors_html(result: Any) -> Markup:
     """The fitted parameters with their priors and MAP values."""
     rows = []
     for spec in result.specs:
@@ -264,17 +307,23 @@ def priors_html(result: Any) -> str:
                       css_class="grid", numeric_from=5)
 
 
-def provenance_html(result: Any) -> str:
+def provenance_html(result: Any) -> Markup:
     """Where the result came from: input, hash, command, seed, versions, date."""
     prov = result.provenance or {}
+    if not isinstance(prov, Mapping):
+        return _generic_check(prov)
 
     def joined(value: Any) -> str:
         if isinstance(value, list):
             return "; ".join(str(v) for v in value)
         return "–" if value is None else str(value)
 
-    command = prov.get("command") or " ".join(prov.get("command_line") or []) or "–"
+    line = prov.get("command_line") or []
+    command = prov.get("command") or (" ".join(map(str, line)) if isinstance(line, list)
+                                      else str(line)) or "–"
     versions = prov.get("versions") or {}
+    if not isinstance(versions, Mapping):
+        versions = {"": versions}
     rows = [
         ("input file", joined(prov.get("input_path"))),
         ("input SHA-256", joined(prov.get("input_sha256"))),
@@ -284,12 +333,8 @@ def provenance_html(result: Any) -> str:
         ("versions", ", ".join(f"{k} {v}" for k, v in versions.items()) or "–"),
         ("platform", joined(prov.get("platform"))),
     ]
-    if "n_thermal" in result.samples.columns and (result.checks or {}).get("planck"):
-        n = result.checks["planck"].get("n_draws")
-        rows.append(("draws behind the probabilities", joined(n)))
+    planck = (result.checks or {}).get("planck")
+    if "n_thermal" in result.samples.columns and isinstance(planck, Mapping):
+        rows.append(("draws behind the probabilities", joined(planck.get("n_draws"))))
     return table_html(["item", "value"], rows, css_class="grid keyvalue", numeric_from=9)
 
-
-def probability_cell(p: float | None, n: int | None = None) -> str:
-    """A probability for a table cell."""
-    return "–" if p is None else probability_text(p, n)

@@ -8,16 +8,25 @@ Data Group rounding rule applied to the smaller half-width of the 68 %
 interval (leading digits 100-354: two significant digits, 355-949: one,
 950-999: round up to two; PDG, Review of Particle Physics, "Rounding", from
 memory), the same rule :meth:`cavchar.result.FitResult.one_line` uses.
+
+HTML is escaped by construction: every fragment of the page is a
+:class:`markupsafe.Markup` built with :func:`html` (whose arguments are
+escaped unless they are Markup themselves) or :func:`table_html`; the page is
+filled by a jinja2 template with autoescaping, so a value that reached it as
+plain text is shown as text, never read as markup.
 """
 
 from __future__ import annotations
 
-import html
 import math
+import numbers
 from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
-__all__ = ["esc", "display_scale", "decimals_for", "format_number", "format_interval_row",
+from markupsafe import Markup, escape
+
+__all__ = ["esc", "html", "Markup", "number_text", "display_scale", "decimals_for",
+           "format_number", "format_interval_row",
            "format_quantity_text", "planck_sentences", "probability_text", "table_html",
            "prior_text"]
 
@@ -25,9 +34,38 @@ _POWERS = {"-": "⁻", "0": "⁰", "1": "¹", "2": "²", "3": "³", "4": "⁴", 
            "7": "⁷", "8": "⁸", "9": "⁹"}
 
 
-def esc(value: Any) -> str:
-    """HTML-escaped text of any value."""
-    return html.escape("" if value is None else str(value), quote=True)
+def esc(value: Any) -> Markup:
+    """HTML-escaped text of any value (Markup passes unchanged; None gives "")."""
+    if value is None:
+        return Markup("")
+    if isinstance(value, Markup):
+        return value
+    return escape(str(value))
+
+
+def html(template: str, *args: Any, **kwargs: Any) -> Markup:
+    """An HTML fragment: ``template`` (our own constant markup) with ``{}`` fields filled
+    by escaped values (a :class:`Markup` argument is inserted as it is).
+
+    ``html("<p>{}</p>", "<b>")`` gives ``<p>&lt;b&gt;</p>``.
+    """
+    return Markup(template).format(*(esc(a) for a in args),
+                                   **{k: esc(v) for k, v in kwargs.items()})
+
+
+def _is_real(value: Any) -> bool:
+    return isinstance(value, numbers.Real) and not isinstance(value, bool) \
+        and math.isfinite(value)
+
+
+def number_text(value: Any, spec: str = ".4g") -> str:
+    """``format(value, spec)`` for a finite number; "–" for None or a non-finite number;
+    any other value as its text (escaped later like all text)."""
+    if value is None or (isinstance(value, float) and not math.isfinite(value)):
+        return "–"
+    if _is_real(value):
+        return format(value, spec)
+    return str(value)
 
 
 def display_scale(median: float, dimension: str) -> tuple[float, str]:
@@ -114,26 +152,21 @@ def format_interval_row(row: Mapping[str, float], dimension: str) -> dict[str, s
 
 
 def format_quantity_text(value: float, dimension: str, digits: int = 3) -> str:
-    """One value with its unit (``"20 mK"``, ``"2.31 × 10⁹"``)."""
-    if value is None or not math.isfinite(value):
-        return "–"
+    """One value with its unit (``"20 mK"``, ``"2.31 × 10⁹"``); text that is not a
+    number is returned as it is."""
+    if not _is_real(value):
+        return number_text(value)
     factor, unit = display_scale(value, dimension)
     text = f"{value / factor:.{digits}g}"
     return f"{text} {unit}".strip()
 
 
 def probability_text(p: float, n_draws: int | None = None) -> str:
-    """A posterior probability from draws, honest at the ends (``"above 0.9997"``)."""
-    if p is None or not math.isfinite(p):
-        return "unknown"
-    if n_draws:
-        if p >= 1.0:
-            return f"above {1 - 1 / n_draws:.4f} (every one of {n_draws} draws)"
-        if p <= 0.0:
-            return f"below {1 / n_draws:.1g} (none of {n_draws} draws)"
-    if 0.001 <= p <= 0.999:
-        return f"{p:.3f}"
-    return f"{p:.2g}"
+    """A posterior probability, never shown as exactly 1 or 0
+    (:func:`cavchar.derived.format_probability`: ``"> 0.999 (Monte Carlo resolution ...)"``)."""
+    from cavchar.derived import format_probability
+
+    return format_probability(p, n_draws)
 
 
 def _interval_words(block: Mapping[str, float], dimension: str) -> str:
@@ -204,29 +237,36 @@ def prior_text(prior: Mapping[str, Any] | None, dimension: str) -> str:
         return text
     if family in ("lognormal", "log-normal"):
         return f"log-normal, median {q('median')}, width {prior.get('sigma_log', '?')} in ln"
-    return esc(family)
+    return family
 
 
 def table_html(header: Sequence[str], rows: Iterable[Sequence[Any]], *,
                css_class: str = "grid", caption: str | None = None,
-               raw: bool = False, numeric_from: int = 1) -> str:
-    """A small HTML table; cells are escaped unless ``raw`` (then they are HTML already).
+               raw: bool = False, numeric_from: int = 1) -> Markup:
+    """A small HTML table; every cell, heading and the caption is escaped unless it is
+    :class:`Markup` (built with :func:`html`).
 
-    Columns from ``numeric_from`` on are right-aligned (class ``num``).
+    ``raw=True`` is kept for callers that pass cells they escaped themselves: their
+    plain strings are then taken as HTML.  Columns from ``numeric_from`` on are
+    right-aligned (class ``num``).
     """
-    cell = (lambda v: "" if v is None else str(v)) if raw else esc
-    parts = [f'<table class="{esc(css_class)}">']
+    def cell(value: Any) -> Markup:
+        if raw and not isinstance(value, Markup):
+            return Markup("" if value is None else str(value))
+        return esc(value)
+
+    parts = [html('<table class="{}">', css_class)]
     if caption:
-        parts.append(f"<caption>{esc(caption)}</caption>")
-    parts.append("<thead><tr>" + "".join(
-        f'<th scope="col"{" class=num" if i >= numeric_from else ""}>{esc(h)}</th>'
-        for i, h in enumerate(header)) + "</tr></thead><tbody>")
+        parts.append(html("<caption>{}</caption>", caption))
+    parts.append(Markup("<thead><tr>") + Markup("").join(
+        html('<th scope="col"{}>{}</th>', Markup(" class=num") if i >= numeric_from else "", h)
+        for i, h in enumerate(header)) + Markup("</tr></thead><tbody>"))
     for row in rows:
         cells = []
         for i, value in enumerate(row):
-            tag = "th scope=\"row\"" if i == 0 else "td"
-            klass = ' class="num"' if i >= numeric_from else ""
-            cells.append(f"<{tag}{klass}>{cell(value)}</{tag.split()[0]}>")
-        parts.append("<tr>" + "".join(cells) + "</tr>")
-    parts.append("</tbody></table>")
-    return "".join(parts)
+            klass = Markup(' class="num"') if i >= numeric_from else ""
+            template = '<th scope="row"{}>{}</th>' if i == 0 else "<td{}>{}</td>"
+            cells.append(html(template, klass, cell(value)))
+        parts.append(Markup("<tr>") + Markup("").join(cells) + Markup("</tr>"))
+    parts.append(Markup("</tbody></table>"))
+    return Markup("").join(parts)
