@@ -84,7 +84,7 @@ class JumpRecord(RecordBase):
         photons = self._integers("photon number", self.photons, m, minimum=0)
         segment, ids, bounds = self._groups("segment", self.segment, m)
         self._increasing(time, bounds, "segment")
-        end = np.atleast_1d(np.asarray(self.end_time, dtype=np.float64))
+        end = np.atleast_1d(self._real("end_time", self.end_time))
         if end.size == 1 and ids.size > 1:
             raise self._error(f"one end time given for {ids.size} segments",
                               hint="give one end time per segment (an end row in each)")
@@ -92,12 +92,19 @@ class JumpRecord(RecordBase):
             raise self._error(f"{end.size} end times for {ids.size} segments",
                               hint="give one end time per segment")
         last = bounds[1:] - 1
-        bad = ~np.isfinite(end) | (end <= time[last])
+        first = bounds[:-1]
+        bad = ~np.isfinite(end) | (end < time[last]) | (end <= time[first])
         if bad.any():
             j = int(np.argmax(bad))
-            raise self._error(f"segment {ids[j]} ends at {end[j]} s, not after its last change "
+            if np.isfinite(end[j]) and end[j] >= time[last[j]]:
+                raise self._error(f"segment {ids[j]} ends at {end[j]} s, where it starts: it "
+                                  "spans no time", int(last[j]),
+                                  hint="give an end time after the segment's first row")
+            raise self._error(f"segment {ids[j]} ends at {end[j]} s, before its last change "
                               f"at {time[last[j]]} s", int(last[j]),
-                              hint="the end time must come after the last row of its segment")
+                              hint="the end time must not come before the last row of its "
+                              "segment (it may equal it: the last dwell then has zero "
+                              "length)")
         step = np.diff(photons)
         inside = np.ones(max(m - 1, 0), bool)
         inside[bounds[1:-1] - 1] = False
