@@ -107,11 +107,15 @@ def read_text(path: Path, raw: bytes, fmt: str, layout: FileLayout | None = None
                          hint="give the number of lines above the header row")
     # leading comments and blanks, line by line (they are few)
     header_start = -1
+    notes: list[str] = []
     while pos < len(raw):
         end = _next_line(raw, pos)
         stripped = raw[pos:end].strip()
         if stripped.startswith(b"#"):
-            _read_metadata(raw[pos:end].decode("utf-8", errors="replace"), metadata)
+            text = raw[pos:end].decode("utf-8", errors="replace")
+            _read_metadata(text, metadata)
+            if len(notes) < 3:
+                notes.append(text.strip().lstrip("#").strip()[:200])
         elif stripped:
             header_start = pos
             break
@@ -154,7 +158,8 @@ def read_text(path: Path, raw: bytes, fmt: str, layout: FileLayout | None = None
         row_lines = data + 1
     columns = dict(zip(names, frame, strict=True))
     described = {"delimiter": _SEP_NAMES[sep], "decimal": "comma" if decimal == "," else "point",
-                 "header_line": header_line, "preamble_lines": found.header}
+                 "header_line": header_line, "preamble_lines": found.header,
+                 "comments": notes}
     return Table(str(path), "tsv" if sep == "\t" else "csv", columns, metadata, row_lines,
                  header_line, lambda line: lines.text(line - 1),
                  line_cells=lambda line: split_cells(lines.text(line - 1), sep),
