@@ -65,7 +65,8 @@ def test_repeated_photon_number_is_allowed_and_no_jump():
     ("kwargs", "words"),
     [
         (dict(time=[0, 1], photons=[0, 2], end_time=3), ["jumps from 0 to 2", "sampled"]),
-        (dict(time=[0, 1], photons=[0, 1], end_time=1), ["not after its last change"]),
+        (dict(time=[0, 1], photons=[0, 1], end_time=0.5), ["before its last change"]),
+        (dict(time=[0], photons=[1], end_time=0), ["spans no time"]),
         (dict(time=[0, 1], photons=[0, 1], end_time=[2, 3]), ["2 end times for 1 segments"]),
         (dict(time=[0, 1], photons=[0, 1], end_time=3, segment=[0, 1]), ["one end time"]),
         (dict(time=[0, 1, 2], photons=[0, 1, 0], end_time=[3, 3], segment=[0, 1, 0]),

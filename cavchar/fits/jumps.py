@@ -68,7 +68,8 @@ def _specs(priors: JumpPriors) -> tuple[ParameterSpec, ParameterSpec]:
     )
 
 
-def _read(record, sampled: bool, end_time: float | None):
+def _read(record, sampled: bool, end_time: float | None, columns=None, layout=None,
+          exact_rows: bool = False):
     from cavchar.io.readers import read_jump_record, read_sampled_record
 
     if isinstance(record, (JumpRecord, SampledRecord)):
@@ -76,8 +77,9 @@ def _read(record, sampled: bool, end_time: float | None):
     if not isinstance(record, (str, os.PathLike)):
         raise TypeError("record must be a JumpRecord, a SampledRecord or a file path")
     if sampled:
-        return read_sampled_record(record)
-    return read_jump_record(record, end_time=end_time)
+        return read_sampled_record(record, columns=columns, layout=layout)
+    return read_jump_record(record, end_time=end_time, columns=columns, layout=layout,
+                            exact_rows=exact_rows or None)
 
 
 def _exact_guess(stats) -> tuple[float, float]:
@@ -119,6 +121,9 @@ def fit_jumps(
     settings: SamplerSettings | None = None,
     seed: int | None = None,
     command: str | None = None,
+    columns: dict[str, str] | None = None,
+    layout=None,
+    exact_rows: bool = False,
 ):
     """Posterior of the energy lifetime and thermal photon number from a jump record.
 
@@ -146,13 +151,20 @@ def fit_jumps(
         Sampler settings; ``seed`` overrides ``settings.seed``.
     command
         The command line, stored in the provenance.
+    columns, layout
+        How to read a file: column mapping ``{"time": "Time (s)", ...}`` and a
+        :class:`~cavchar.io.tables.layout.FileLayout` (rows to skip, delimiter,
+        decimal mark); see docs/data-formats.md.
+    exact_rows
+        Read a file's rows as exact change points even when they are evenly
+        spaced and repeat photon numbers (which otherwise says "use sampled").
 
     Returns
     -------
     FitResult
         Kind ``"jumps-exact"`` or ``"jumps-sampled"``.
     """
-    record = _read(record, sampled, end_time)
+    record = _read(record, sampled, end_time, columns, layout, exact_rows)
     priors = priors or JumpPriors()
     specs = _specs(priors)
     settings = sampler_settings(settings, seed)

@@ -128,6 +128,15 @@ def prepare(inputs, signal: str | None = None, *, start_time: float | None = Non
     """
     wanted, records = load_traces(inputs, signal)
     factor = time_factor(time_unit)
+    _check_time_units(records, factor, time_unit)
+    if wanted not in ("power", "mean-n"):
+        count = sum(r.n_traces for r in records)
+        if count > 1:
+            ids = ", ".join(str(int(i)) for r in records for i in r.trace_ids[:10])
+            raise InputError(f"a {wanted} fit takes one trace; the input holds {count} "
+                             f"(trace ids {ids})", path=records[0].source,
+                             hint="pick one with --trace ID (trace= when reading in Python), "
+                             "or fit the traces one by one")
     series: list[DecaySeries] = []
     counts = None
     for rec in records:
@@ -153,6 +162,20 @@ def prepare(inputs, signal: str | None = None, *, start_time: float | None = Non
                                       label=label))
     return RingdownData(signal=wanted, series=tuple(series), records=records, counts=counts,
                         start_time=start_time, time_factor=factor)
+
+
+def _check_time_units(records, factor: float, time_unit) -> None:
+    """A header that gave the time unit (times already in s) and a --time-unit other than
+    seconds would convert twice: refused."""
+    from cavchar.io.readers import HEADER_TIME_UNIT
+
+    for rec in records:
+        unit = rec.metadata.get(HEADER_TIME_UNIT)
+        if unit is not None and factor != 1.0:
+            raise InputError(f"the header already gives the time unit ({unit}) and the times "
+                             f"were converted to s; --time-unit {time_unit} would convert "
+                             "them again", path=rec.source,
+                             hint="leave --time-unit out (time_unit=None in Python)")
 
 
 def noise_level(values: np.ndarray, sigma: np.ndarray | None) -> np.ndarray | float:

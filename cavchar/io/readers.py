@@ -17,7 +17,9 @@ import numpy as np
 
 from cavchar.errors import InputError
 from cavchar.io.tables import Table, check_columns, read_table
+from cavchar.io.tables.layout import FileLayout, layout_of, plain_name, split_unit
 from cavchar.records import JumpRecord, ProbeRecord, RingdownTrace, SampledRecord
+from cavchar.records.jumps import evenly_sampled
 
 __all__ = [
     "read_jump_record",
@@ -27,6 +29,7 @@ __all__ = [
     "read_response_table",
     "ResponseTable",
     "RINGDOWN_COLUMNS",
+    "HEADER_TIME_UNIT",
 ]
 
 #: value column(s) of each ring-down signal kind; populations use count_0, count_1, ...
@@ -82,8 +85,34 @@ def _end_time_argument(end_time, segment_ids: np.ndarray) -> dict[int, float]:
     return {int(segment_ids[0]): float(end_time)}
 
 
+#: metadata key the writers use to say what a file holds (``record: sampled``, ...)
+RECORD_KEY = "record"
+_SAMPLED_WORDS = ("cavchar sampled photon-number record",)
+
+
+def _own_metadata(table: Table) -> dict[str, str]:
+    """The file's metadata without the writers' ``record`` key (the record type says it)."""
+    return {k: v for k, v in table.metadata.items() if k != RECORD_KEY}
+
+
+def _says_sampled(table: Table) -> str | None:
+    """Why the file says it is a sampled record, or None."""
+    kind = table.metadata.get(RECORD_KEY, "").strip().lower()
+    if kind.startswith("sampled"):
+        return f"its metadata say '{RECORD_KEY}: {table.metadata[RECORD_KEY]}'"
+    for comment in table.layout.get("comments", ()):
+        if any(w in comment.lower() for w in _SAMPLED_WORDS):
+            return "its first comment says it is a sampled photon-number record"
+    return None
+
+
 def read_jump_record(
-    path: str | os.PathLike, end_time: float | Mapping[int, float] | None = None
+    path: str | os.PathLike,
+    end_time: float | Mapping[int, float] | None = None,
+    *,
+    columns: Mapping[str, str] | None = None,
+    layout: FileLayout | None = None,
+    exact_rows: bool | None = None,
 ) -> JumpRecord:
     """Read an exact jump record (change points).
 
@@ -103,7 +132,22 @@ def read_jump_record(
     path
         The file (CSV/TSV/.gz/NPZ/Parquet).
     end_time
-        End time(s) in s for segments without an end row.
+        End time(s) in s for segments without an end row.  An end time equal to
+        the segment's last change is allowed (the last dwell is then censored
+        at zero length and contributes nothing).
+    columns, layout
+        Column mapping ``{"time": "Time (s)", ...}`` and the other layout
+        options (:class:`~cavchar.io.tables.layout.FileLayout`).
+    exact_rows
+        Read the rows as exact change points even when they look sampled
+        (evenly spaced rows repeating photon numbers, see below).
+
+    A file whose metadata (``# record: sampled``, written by
+    :func:`cavchar.io.writers.write_sampled_record`) say it is a sampled record
+    is refused, and so is one whose rows are evenly spaced and often repeat the
+    previous photon number (:func:`cavchar.records.jumps.evenly_sampled`):
+    photon numbers read at probe times, fitted as change points, give a wrong
+    lifetime.  Read such files with :func:`read_sampled_record`.
 
     Returns
     -------
@@ -118,10 +162,26 @@ def read_jump_record(
         :class:`~cavchar.records.JumpRecord` (times, photon numbers, jumps of
         more than one photon), each naming the line.
     """
+    layout = layout_of(path, layout, columns, exact_rows=exact_rows or None)
     table = read_table(path, required=("time", "photons"), optional=("segment",),
-                       allow_empty=("photons",))
+                       allow_empty=("photons",), layout=layout)
+    reason = _says_sampled(table)
+    if reason is not None:
+        raise InputError(f"this is a sampled record ({reason}): its rows are photon numbers "
+                         "at probe times, not change points", path=table.path,
+                         hint="use --sampled (sampled=True, or read_sampled_record in Python)")
     time, photons = table["time"], table["photons"]
     segment = _whole_ids(table, "segment")
+    if not layout.exact_rows:
+        rows = ~np.isnan(photons)
+        found = evenly_sampled(time[rows], photons[rows],
+                               None if segment is None else segment[rows])
+        if found is not None:
+            raise InputError(f"{found}: this looks like photon numbers sampled at probe times, "
+                             "not change points", path=table.path,
+                             hint="use --sampled (sampled=True in Python); if the rows really "
+                             "are exact change points, add --rows-are-changes "
+                             "(exact_rows=True)")
     ids_all = np.zeros(time.size, np.int64) if segment is None else segment
     change = np.flatnonzero(ids_all[1:] != ids_all[:-1]) + 1
     starts = np.concatenate(([0], change))
@@ -194,33 +254,53 @@ def read_jump_record(
     elif not keep.all():  # the end rows go; the copies are ours, so records need not copy
         time, photons, lines = _frozen(time[keep]), _frozen(photons[keep]), _frozen(lines[keep])
         segment = None if segment is None else _frozen(segment[keep])
-    return JumpRecord(time, photons, ends, segment=segment, metadata=table.metadata,
+    return JumpRecord(time, photons, ends, segment=segment, metadata=_own_metadata(table),
                       source=table.path, lines=lines, line_kind=kind)
 
 
-def read_sampled_record(path: str | os.PathLike) -> SampledRecord:
+def read_sampled_record(
+    path: str | os.PathLike,
+    *,
+    columns: Mapping[str, str] | None = None,
+    layout: FileLayout | None = None,
+) -> SampledRecord:
     """Read a sampled photon-number record.
 
     Columns ``time`` (s, probe times, regular or irregular) and ``photons``
     (photon number observed at that time, whole number >= 0; steps of any size
-    are allowed), optional ``segment`` (integer id).
+    are allowed), optional ``segment`` (integer id).  ``columns`` and
+    ``layout`` as for :func:`read_jump_record`.  A file whose metadata say it
+    is an exact record (``# record: exact``) is refused.
 
     Raises
     ------
     InputError
         Every problem of the file or of the record, naming the line.
     """
-    table = read_table(path, required=("time", "photons"), optional=("segment",))
+    table = read_table(path, required=("time", "photons"), optional=("segment",),
+                       layout=layout_of(path, layout, columns))
+    kind = table.metadata.get(RECORD_KEY, "").strip().lower()
+    if kind.startswith("exact"):
+        raise InputError(f"this is an exact jump record (its metadata say '{RECORD_KEY}: "
+                         f"{table.metadata[RECORD_KEY]}'): its rows are change points, not "
+                         "samples", path=table.path,
+                         hint="fit it without --sampled (read_jump_record in Python)")
     return SampledRecord(table["time"], table["photons"], segment=_whole_ids(table, "segment"),
-                         metadata=table.metadata, source=table.path, **_where(table))
+                         metadata=_own_metadata(table), source=table.path, **_where(table))
 
 
-def read_probe_record(path: str | os.PathLike) -> ProbeRecord:
+def read_probe_record(
+    path: str | os.PathLike,
+    *,
+    columns: Mapping[str, str] | None = None,
+    layout: FileLayout | None = None,
+) -> ProbeRecord:
     """Read a raw probe record.
 
     Columns ``time`` (s) and ``outcome`` (0 or 1; an empty cell is a lost
     probe, whose time still advances the record), optional ``setting`` (probe
-    phase in rad) and ``segment`` (integer id).
+    phase in rad) and ``segment`` (integer id).  ``columns`` and ``layout`` as
+    for :func:`read_jump_record`.
 
     Raises
     ------
@@ -228,7 +308,7 @@ def read_probe_record(path: str | os.PathLike) -> ProbeRecord:
         Every problem of the file or of the record, naming the line.
     """
     table = read_table(path, required=("time", "outcome"), optional=("setting", "segment"),
-                       allow_empty=("outcome",))
+                       allow_empty=("outcome",), layout=layout_of(path, layout, columns))
     return ProbeRecord(table["time"], table["outcome"],
                        setting=table["setting"] if "setting" in table else None,
                        segment=_whole_ids(table, "segment"), metadata=table.metadata,
@@ -252,7 +332,56 @@ def _infer_signal(table: Table) -> str:
                      path=table.path, line=table.header_line, hint="pass --signal to choose one")
 
 
-def read_ringdown(path: str | os.PathLike, signal: str | None = None) -> RingdownTrace:
+_VALUE_NAMES = {"power": "power", "power_db": "db", "amplitude": "amplitude",
+                "mean_photons": "mean_n"}
+_DB = {"db", "dbm", "dbw", "dbmw", "dbfs"}
+
+
+def _trace_column(path, layout: FileLayout, signal: str | None) -> tuple[FileLayout, str | None]:
+    """A ``trace`` given as a column header: the layout mapping that column to the
+    signal's value column, and the signal (from the header's name or unit if not given)."""
+    name = str(layout.trace).strip()
+    base, unit = split_unit(name)
+    if signal is None:
+        signal = _VALUE_NAMES.get(plain_name(base))
+        if signal == "power" and unit is not None and unit.lower() in _DB:
+            signal = "db"
+        if signal is None and unit is not None and unit.lower() in _DB:
+            signal = "db"
+        if signal is None:
+            raise InputError(f"cannot tell the signal kind of the trace column {name!r}",
+                             path=path, hint="pass --signal (signal= in Python)")
+    columns = RINGDOWN_COLUMNS.get(signal, ())
+    if len(columns) != 1:
+        raise InputError(f"--trace NAME picks one value column; a {signal} trace has "
+                         f"{len(columns) or 'several'}", path=path,
+                         hint="map the columns with --column instead, e.g. --column "
+                         "real=\"I (V)\" --column imag=\"Q (V)\"")
+    mapping = {columns[0]: name}
+    if "time" not in layout.columns:
+        mapping["time"] = layout.columns.get("time", "time")
+    return layout.merged(mapping), signal
+
+
+def _trace_id(trace) -> int | None:
+    if isinstance(trace, bool):
+        return None
+    if isinstance(trace, int):
+        return trace
+    text = str(trace).strip()
+    if text.lstrip("+-").isdigit():
+        return int(text)
+    return None
+
+
+def read_ringdown(
+    path: str | os.PathLike,
+    signal: str | None = None,
+    *,
+    trace: str | int | None = None,
+    columns: Mapping[str, str] | None = None,
+    layout: FileLayout | None = None,
+) -> RingdownTrace:
     """Read one file of ring-down traces.
 
     Columns: ``time`` (s); the value column(s) of the signal kind —
@@ -261,7 +390,8 @@ def read_ringdown(path: str | os.PathLike, signal: str | None = None) -> Ringdow
     photon number), or ``count_0``, ``count_1``, ... (shots found with 0, 1, ...
     photons; populations); optional ``sigma`` (known standard deviation per
     point; for IQ per quadrature; not for populations) and ``trace`` (integer
-    id, several traces per file).
+    id, several traces per file).  A ``power`` column whose header gives a dB
+    unit (``Power (dBm)``) is read as ``power_db``.
 
     Parameters
     ----------
@@ -270,19 +400,36 @@ def read_ringdown(path: str | os.PathLike, signal: str | None = None) -> Ringdow
     signal
         One of :data:`cavchar.records.SIGNALS` (``mean-n`` is accepted for
         ``mean_n``); by default inferred from the column names.
+    trace
+        Keep one trace: a trace id (whole number) of the ``trace`` column, or
+        the header of the value column to fit (a file with one column per
+        trace); the other traces are ignored.
+    columns, layout
+        Column mapping and layout (:class:`~cavchar.io.tables.layout.FileLayout`).
 
     Raises
     ------
     InputError
         Every problem of the file or the trace, naming the line.
     """
-    table = read_table(path, required=("time",), any_columns=True)
+    layout = layout_of(path, layout, columns, trace=trace)
+    if signal is not None:
+        signal = str(signal).lower().replace("-", "_")
+        if signal == "power2":
+            signal = "power"
+        if signal not in RINGDOWN_COLUMNS:
+            raise InputError(f"unknown signal kind {signal!r}", path=os.fspath(path),
+                             hint=f"choose one of {', '.join(RINGDOWN_COLUMNS)}")
+    trace_id = None
+    if layout.trace is not None:
+        trace_id = _trace_id(layout.trace)
+        if trace_id is None:
+            layout, signal = _trace_column(os.fspath(path), layout, signal)
+    known = ["time", "sigma", "trace"] + [c for cols in RINGDOWN_COLUMNS.values() for c in cols]
+    table = read_table(path, required=("time",), optional=known, prefixed=("count_",),
+                       any_columns=True, layout=layout)
     if signal is None:
         signal = _infer_signal(table)
-    signal = str(signal).lower().replace("-", "_")
-    if signal not in RINGDOWN_COLUMNS:
-        raise InputError(f"unknown signal kind {signal!r}", path=table.path,
-                         hint=f"choose one of {', '.join(RINGDOWN_COLUMNS)}")
     if signal == "populations":
         check_columns(table, ("time",), ("trace",), prefixed=("count_",))
         levels = sorted(int(_COUNT.match(n).group(1)) for n in table.names if _COUNT.match(n))
@@ -295,16 +442,46 @@ def read_ringdown(path: str | os.PathLike, signal: str | None = None) -> Ringdow
             raise InputError(f"count columns skip photon number(s) {missing}",
                              path=table.path, line=table.header_line,
                              hint="give count_0 ... count_K without gaps (zeros are fine)")
+        if levels[-1] > 10**5:
+            raise InputError(f"count columns up to count_{levels[-1]}: too many photon numbers",
+                             path=table.path, line=table.header_line,
+                             hint="give counts for the photon numbers observed")
         value = np.column_stack([table[f"count_{k}"] for k in levels])
         sigma = None
     else:
-        columns = RINGDOWN_COLUMNS[signal]
-        check_columns(table, ("time", *columns), ("sigma", "trace"))
-        value = table["real"] + 1j * table["imag"] if signal == "iq" else table[columns[0]]
+        names = RINGDOWN_COLUMNS[signal]
+        check_columns(table, ("time", *names), ("sigma", "trace"))
+        value = table["real"] + 1j * table["imag"] if signal == "iq" else table[names[0]]
         sigma = table["sigma"] if "sigma" in table else None
-    return RingdownTrace(table["time"], value, signal, sigma=sigma,
-                         trace=_whole_ids(table, "trace"), metadata=table.metadata,
-                         source=table.path, **_where(table))
+    ids = _whole_ids(table, "trace")
+    time = table["time"]
+    where = _where(table)
+    if trace_id is not None:
+        if ids is None:
+            raise InputError(f"--trace {trace_id}: the file has no trace column", path=table.path,
+                             line=table.header_line,
+                             hint="a trace id picks rows of the trace column; to pick a value "
+                             "column give its header, e.g. --trace \"Power B (dBm)\"")
+        keep = ids == trace_id
+        if not keep.any():
+            present = np.unique(ids)
+            shown = ", ".join(str(int(i)) for i in present[:10]) + (
+                ", ..." if present.size > 10 else "")
+            raise InputError(f"--trace {trace_id}: no such trace (the file has {shown})",
+                             path=table.path, hint="give one of the trace ids in the file")
+        time, value = time[keep], value[keep]
+        sigma = None if sigma is None else sigma[keep]
+        where = {"lines": where["lines"][keep], "line_kind": where["line_kind"]}
+        ids = None
+    metadata = dict(table.metadata)
+    if "time_unit" in table.layout:
+        metadata[HEADER_TIME_UNIT] = table.layout["time_unit"]
+    return RingdownTrace(time, value, signal, sigma=sigma, trace=ids, metadata=metadata,
+                         source=table.path, **where)
+
+
+#: metadata key set when the time column's header gave its unit (times are then in s)
+HEADER_TIME_UNIT = "time_unit_from_header"
 
 
 class ResponseTable(NamedTuple):

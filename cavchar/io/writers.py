@@ -163,7 +163,8 @@ def write_jump_record(
         columns["segment"] = np.insert(record.segment, stops, record.segment_ids)
     comments = ["cavchar exact jump record; time in s; photons holds from its time until the "
                 "next row; an empty photons cell marks the end of a segment"]
-    return write_table(path, columns, metadata=_meta(record, metadata), comments=comments,
+    meta = {**_meta(record, metadata), "record": "exact change points"}
+    return write_table(path, columns, metadata=meta, comments=comments,
                        force=force)
 
 
@@ -178,7 +179,8 @@ def write_sampled_record(
     if _needs_ids(record.segment_ids):
         columns["segment"] = record.segment
     comments = ["cavchar sampled photon-number record; time in s; photons observed at that time"]
-    return write_table(path, columns, metadata=_meta(record, metadata), comments=comments,
+    meta = {**_meta(record, metadata), "record": "sampled at probe times"}
+    return write_table(path, columns, metadata=meta, comments=comments,
                        force=force)
 
 

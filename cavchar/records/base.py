@@ -54,8 +54,35 @@ class RecordBase:
                 message = f"row {row + 1}: {message}"
         return InputError(message, path=self.source, line=line, hint=hint)
 
+    def _real(self, name: str, values: ArrayLike) -> np.ndarray:
+        """``values`` as float64; text, complex and other non-real arrays are refused
+        (a complex array is never cut to its real part)."""
+        try:
+            raw = np.asarray(values)
+        except (ValueError, TypeError) as exc:  # ragged nested sequences
+            raise self._error(f"{name} is not an array of numbers ({exc})",
+                              hint=f"give {name} as a 1-D array of real numbers") from None
+        kind = raw.dtype.kind
+        if kind == "c":
+            raise self._error(f"{name} holds complex numbers; their imaginary part would be "
+                              "lost", hint=f"give {name} as real numbers (complex samples "
+                              "belong to the iq signal)")
+        if kind in "USV" or kind in "Mm":
+            raise self._error(f"{name} holds {raw.dtype} values, not numbers",
+                              hint=f"give {name} as real numbers (convert text first)")
+        if kind == "O":
+            try:
+                return raw.astype(np.float64)
+            except (TypeError, ValueError):
+                raise self._error(f"{name} holds values that are not real numbers",
+                                  hint=f"give {name} as real numbers") from None
+        if kind == "u" and raw.size and raw.max() >= 2**63:
+            raise self._error(f"{name} holds an integer beyond 2^63",
+                              hint=f"give {name} as real numbers of sensible size")
+        return raw.astype(np.float64, copy=False)
+
     def _float(self, name: str, values: ArrayLike, n: int | None, allow_nan: bool = False):
-        array = np.asarray(values, dtype=np.float64)
+        array = self._real(name, values)
         if array.ndim != 1 or (n is not None and array.size != n):
             raise self._error(f"{name} must be a 1-D array" + (f" of {n} values" if n else ""))
         bad = np.isinf(array) if allow_nan else ~np.isfinite(array)
@@ -66,8 +93,14 @@ class RecordBase:
         return array
 
     def _integers(self, name: str, values: ArrayLike, n: int, minimum: int | None = None):
-        raw = np.asarray(values)
-        if raw.dtype.kind in "iu":
+        raw = np.asarray(values) if isinstance(values, np.ndarray) else None
+        if raw is None:
+            try:
+                raw = np.asarray(values)
+            except (ValueError, TypeError) as exc:
+                raise self._error(f"{name} is not an array of numbers ({exc})") from None
+        if raw.dtype.kind in "iu" and not (raw.dtype.kind == "u" and raw.size
+                                            and raw.max() >= 2**62):
             array = raw.astype(np.int64)
         else:
             floats = self._float(name, raw, n)

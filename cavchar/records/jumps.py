@@ -11,11 +11,63 @@ import numpy as np
 
 from cavchar.records.base import RecordBase, readonly_array, segment_spans
 
-__all__ = ["JumpRecord", "SampledRecord", "JumpSegment", "SampledSegment"]
+__all__ = ["JumpRecord", "SampledRecord", "JumpSegment", "SampledSegment", "evenly_sampled"]
+
+#: fewest steps (rows after the first, within segments) before the rows are judged
+EVEN_MIN_STEPS = 8
+#: fraction of steps equal to the median step that makes the rows evenly spaced
+EVEN_FRACTION = 0.9
+#: fraction of rows repeating the previous photon number that marks a sampled record
+REPEAT_FRACTION = 0.1
 
 _SAMPLED_HINT = ("if the photon number was observed at probe times (several jumps may happen "
                  "between rows), read the file as a sampled record (read_sampled_record, or "
                  "--sampled on the command line)")
+
+
+def evenly_sampled(time, photons, segment=None) -> str | None:
+    """Why rows look like photon numbers read at probe times, or None.
+
+    Rows of an exact record are change points: their spacing is random (the
+    dwell times of a Markov chain) and a row rarely repeats the previous photon
+    number.  Samples on a probe clock are evenly spaced and mostly repeat it.
+    The rows are judged sampled when there are at least :data:`EVEN_MIN_STEPS`
+    steps within segments, at least :data:`EVEN_FRACTION` of them equal the
+    median step (to 1e-6 of it), and at least :data:`REPEAT_FRACTION` of them
+    repeat the previous photon number.
+
+    Parameters
+    ----------
+    time, photons : array (m,)
+        Row times (s) and photon numbers.
+    segment : array (m,), optional
+        Segment ids; steps across a segment boundary do not count.
+
+    Returns
+    -------
+    str or None
+        A sentence naming the spacing and the share of repeats, when sampled.
+    """
+    time = np.asarray(time, dtype=float)
+    photons = np.asarray(photons, dtype=float)
+    if time.size < 2:
+        return None
+    inside = np.ones(time.size - 1, bool)
+    if segment is not None:
+        segment = np.asarray(segment)
+        inside = segment[1:] == segment[:-1]
+    step = np.diff(time)[inside]
+    if step.size < EVEN_MIN_STEPS or not np.all(np.isfinite(step)):
+        return None
+    median = float(np.median(step))
+    if not median > 0:
+        return None
+    even = np.abs(step - median) <= 1e-6 * median
+    repeats = (photons[1:] == photons[:-1])[inside]
+    if even.mean() < EVEN_FRACTION or repeats.mean() < REPEAT_FRACTION:
+        return None
+    return (f"the rows are evenly spaced (every {median:.6g} s) and {repeats.mean():.0%} of "
+            "them repeat the previous photon number")
 
 
 class JumpSegment(NamedTuple):
@@ -84,7 +136,7 @@ class JumpRecord(RecordBase):
         photons = self._integers("photon number", self.photons, m, minimum=0)
         segment, ids, bounds = self._groups("segment", self.segment, m)
         self._increasing(time, bounds, "segment")
-        end = np.atleast_1d(np.asarray(self.end_time, dtype=np.float64))
+        end = np.atleast_1d(self._real("end_time", self.end_time))
         if end.size == 1 and ids.size > 1:
             raise self._error(f"one end time given for {ids.size} segments",
                               hint="give one end time per segment (an end row in each)")
@@ -92,12 +144,19 @@ class JumpRecord(RecordBase):
             raise self._error(f"{end.size} end times for {ids.size} segments",
                               hint="give one end time per segment")
         last = bounds[1:] - 1
-        bad = ~np.isfinite(end) | (end <= time[last])
+        first = bounds[:-1]
+        bad = ~np.isfinite(end) | (end < time[last]) | (end <= time[first])
         if bad.any():
             j = int(np.argmax(bad))
-            raise self._error(f"segment {ids[j]} ends at {end[j]} s, not after its last change "
+            if np.isfinite(end[j]) and end[j] >= time[last[j]]:
+                raise self._error(f"segment {ids[j]} ends at {end[j]} s, where it starts: it "
+                                  "spans no time", int(last[j]),
+                                  hint="give an end time after the segment's first row")
+            raise self._error(f"segment {ids[j]} ends at {end[j]} s, before its last change "
                               f"at {time[last[j]]} s", int(last[j]),
-                              hint="the end time must come after the last row of its segment")
+                              hint="the end time must not come before the last row of its "
+                              "segment (it may equal it: the last dwell then has zero "
+                              "length)")
         step = np.diff(photons)
         inside = np.ones(max(m - 1, 0), bool)
         inside[bounds[1:-1] - 1] = False

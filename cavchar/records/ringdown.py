@@ -93,22 +93,33 @@ class RingdownTrace(RecordBase):
 
     def _value(self, signal: str, value: ArrayLike, m: int) -> np.ndarray:
         if signal == "iq":
-            array = np.asarray(value)
+            try:
+                array = np.asarray(value)
+            except (ValueError, TypeError):
+                raise self._error("iq values are not an array of numbers") from None
             if array.ndim != 1 or array.size != m:
                 raise self._error(f"an iq trace needs {m} complex values")
+            if array.dtype.kind not in "biufc":
+                raise self._error(f"iq values hold {array.dtype} data, not numbers",
+                                  hint="give complex (or real) numbers")
             array = array.astype(np.complex128)
             bad = ~np.isfinite(array)
             if bad.any():
                 raise self._error("iq value is not finite", int(np.argmax(bad)))
             return array
         if signal == "populations":
-            array = np.asarray(value)
+            try:
+                array = np.asarray(value)
+            except (ValueError, TypeError):
+                raise self._error("counts are not an array of numbers") from None
             if array.ndim != 2 or array.shape[0] != m or array.shape[1] < 1:
                 raise self._error(f"a populations trace needs counts of shape ({m}, levels)")
-            if array.dtype.kind not in "iu":
-                array = np.asarray(array, dtype=np.float64)
+            if array.dtype.kind not in "iu" or (array.dtype.kind == "u" and array.size
+                                                 and array.max() >= 2**62):
+                array = self._real("counts", array)
                 for bad, what in ((~np.isfinite(array), "is not finite"),
-                                  (array != np.round(array), "is not a whole number")):
+                                  (array != np.round(array), "is not a whole number"),
+                                  (np.abs(array) >= 2.0**53, "is too large to count")):
                     if bad.any():
                         row, col = np.argwhere(bad)[0]
                         raise self._error(f"count_{col} = {array[row, col]} {what}", int(row),
@@ -118,6 +129,10 @@ class RingdownTrace(RecordBase):
                 row, col = np.argwhere(counts < 0)[0]
                 raise self._error(f"count_{col} = {counts[row, col]} is negative", int(row),
                                   hint="counts must be whole numbers >= 0")
+            if counts.size and counts.max() >= 2**53:
+                row, col = np.argwhere(counts >= 2**53)[0]
+                raise self._error(f"count_{col} = {counts[row, col]} is too large to count",
+                                  int(row), hint="counts must be whole numbers >= 0")
             empty = counts.sum(axis=1) == 0
             if empty.any():
                 raise self._error("no counts at this delay", int(np.argmax(empty)),

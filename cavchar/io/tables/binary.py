@@ -25,17 +25,35 @@ def read_npz(path: Path, raw: bytes) -> Table:
 
     try:
         archive = np.load(io.BytesIO(raw), allow_pickle=False)
+        if not hasattr(archive, "keys"):  # a bare .npy file under an .npz name
+            raise InputError("the file is a single numpy array, not an NPZ archive of columns",
+                             path=path, hint="write it with numpy.savez(path, time=..., ...)")
         keys = list(archive.keys())
         arrays = {k: archive[k] for k in keys}
-    except (zipfile.BadZipFile, OSError, ValueError, EOFError, zlib.error) as exc:
-        raise InputError(f"not a readable NPZ file ({exc})", path=path,
+    except InputError:
+        raise
+    except ValueError as exc:
+        text = "it holds Python objects, which cavchar never loads" if "pickle" in str(exc) \
+            else _short(exc)
+        raise InputError(f"not a readable NPZ file ({text})", path=path,
+                         hint="write it with numpy.savez of 1-D numeric arrays") from None
+    except (zipfile.BadZipFile, OSError, EOFError, zlib.error, KeyError, TypeError,
+            NotImplementedError, RuntimeError, OverflowError, MemoryError) as exc:
+        raise InputError(f"not a readable NPZ file ({_short(exc)})", path=path,
                          hint="write it with numpy.savez of 1-D numeric arrays") from None
     metadata: dict[str, str] = {}
     if METADATA_KEY in arrays:
-        metadata = _metadata_from_json(path, str(arrays.pop(METADATA_KEY)))
+        value = arrays.pop(METADATA_KEY)
+        if not isinstance(value, np.ndarray) or value.dtype.kind not in "US" or value.size != 1:
+            raise InputError(f"the {METADATA_KEY} member is not one string", path=path,
+                             hint="store the metadata as numpy.array(json.dumps({...}))")
+        metadata = _metadata_from_json(path, str(value.reshape(())[()]))
     columns: dict[str, np.ndarray] = {}
     for key, value in arrays.items():
-        name = key.strip().lower()
+        name = key.strip()
+        if not isinstance(value, np.ndarray):
+            raise InputError(f"the archive member {key!r} is not a numpy array (.npy)",
+                             path=path, hint="store only numpy arrays, one per column")
         if name in columns:
             raise InputError(f"column {name!r} appears twice", path=path,
                              hint="give each column once")
@@ -45,8 +63,30 @@ def read_npz(path: Path, raw: bytes) -> Table:
         if value.dtype.kind not in "biuf":
             raise InputError(f"column {name!r} holds {value.dtype} data, not real numbers",
                              path=path, hint="store numeric (integer or float) arrays")
+        _check_exact_integers(path, name, value)
         columns[name] = value.astype(np.float64)
     return _binary_table(path, "npz", columns, metadata)
+
+
+#: integers beyond this magnitude have no exact float64
+_EXACT = 2**53
+
+
+def _check_exact_integers(path: Path, name: str, value: np.ndarray) -> None:
+    if value.dtype.kind in "iu" and value.size:
+        big = (value > _EXACT) | ((value < -_EXACT) if value.dtype.kind == "i" else False)
+        if np.any(big):
+            row = int(np.argmax(big))
+            raise InputError(f"row {row + 1}: column {name!r} holds the integer {value[row]}, "
+                             "beyond 2^53, which a float cannot hold exactly", path=path,
+                             hint="store such values as floats (e.g. seconds, not "
+                             "nanosecond counts), or subtract an offset first")
+
+
+def _short(exc: object, limit: int = 120) -> str:
+    text = f"{type(exc).__name__}: {exc}" if isinstance(exc, BaseException) else str(exc)
+    text = " ".join(text.split())
+    return text if len(text) <= limit else text[:limit] + "..."
 
 
 def read_parquet(path: Path, raw: bytes) -> Table:
@@ -59,16 +99,22 @@ def read_parquet(path: Path, raw: bytes) -> Table:
                          path=path, hint="pip install pyarrow, or use CSV or NPZ") from None
     try:
         table = pq.read_table(pa.BufferReader(raw))
-    except (pa.ArrowException, OSError) as exc:
-        raise InputError(f"not a readable Parquet file ({exc})", path=path,
+    except (pa.ArrowException, OSError, ValueError, TypeError, KeyError, IndexError,
+            OverflowError, MemoryError, RuntimeError, NotImplementedError) as exc:
+        raise InputError(f"not a readable Parquet file ({_short(exc)})", path=path,
                          hint="write it again, or use CSV or NPZ") from None
     meta = table.schema.metadata or {}
     metadata = {}
     if PARQUET_METADATA_KEY in meta:
-        metadata = _metadata_from_json(path, meta[PARQUET_METADATA_KEY].decode("utf-8"))
+        try:
+            text = meta[PARQUET_METADATA_KEY].decode("utf-8")
+        except UnicodeDecodeError:
+            raise InputError("the stored metadata are not UTF-8 text", path=path,
+                             hint="write metadata as a JSON object of strings") from None
+        metadata = _metadata_from_json(path, text)
     columns: dict[str, np.ndarray] = {}
     for name, column in zip(table.column_names, table.columns, strict=True):
-        key = name.strip().lower()
+        key = name.strip()
         if key in columns:
             raise InputError(f"column {key!r} appears twice", path=path,
                              hint="give each column once")
@@ -77,7 +123,19 @@ def read_parquet(path: Path, raw: bytes) -> Table:
                 or pa.types.is_boolean(kind) or pa.types.is_null(kind)):
             raise InputError(f"column {key!r} has type {kind}, not numbers", path=path,
                              hint="store numeric columns")
-        values = column.cast(pa.float64()).to_numpy(zero_copy_only=False)
+        if pa.types.is_integer(kind):
+            try:
+                ints = column.to_numpy(zero_copy_only=False)
+            except (pa.ArrowException, ValueError, TypeError) as exc:
+                raise InputError(f"column {key!r} cannot be read ({_short(exc)})",
+                                 path=path, hint="store numeric columns") from None
+            if ints.dtype.kind in "iu":
+                _check_exact_integers(path, key, ints)
+        try:
+            values = column.cast(pa.float64()).to_numpy(zero_copy_only=False)
+        except (pa.ArrowException, ValueError, TypeError, OverflowError) as exc:
+            raise InputError(f"column {key!r} cannot be read as numbers ({_short(exc)})",
+                             path=path, hint="store numeric columns") from None
         columns[key] = np.asarray(values, dtype=np.float64)
     return _binary_table(path, "parquet", columns, metadata)
 
@@ -85,13 +143,21 @@ def read_parquet(path: Path, raw: bytes) -> Table:
 def _metadata_from_json(path: Path, text: str) -> dict[str, str]:
     try:
         data = json.loads(text)
-    except json.JSONDecodeError:
-        raise InputError("the stored metadata are not valid JSON", path=path,
-                         hint="write metadata as a JSON object of strings") from None
+    except (json.JSONDecodeError, RecursionError, ValueError):
+        raise InputError("the stored metadata are not valid JSON (or nested too deeply)",
+                         path=path, hint="write metadata as a flat JSON object of strings"
+                         ) from None
     if not isinstance(data, dict):
         raise InputError("the stored metadata are not a JSON object", path=path,
                          hint="write metadata as a JSON object of strings")
-    return {meta_key(str(k)): str(v) for k, v in data.items()}
+    out = {}
+    for k, v in data.items():
+        if isinstance(v, (dict, list)):
+            raise InputError(f"the stored metadata value of {str(k)[:40]!r} is not a plain "
+                             "value", path=path,
+                             hint="write metadata as a flat JSON object of strings")
+        out[meta_key(str(k))] = str(v)
+    return out
 
 
 def _binary_table(path: Path, fmt: str, columns: dict, metadata: dict) -> Table:

@@ -37,6 +37,11 @@ class Table:
         1-based source line of each row (text files); None for binary files.
     header_line : int or None
         1-based line of the header (text files).
+    line_text, line_cells : callable or None
+        Text and cells of a 1-based line (text files; for error messages).
+    layout : dict
+        How the file was read: delimiter, decimal mark, header line, preamble
+        lines skipped, the time unit of the header, columns ignored (plain JSON).
     """
 
     path: str
@@ -46,6 +51,8 @@ class Table:
     row_lines: np.ndarray | None = None
     header_line: int | None = None
     line_text: Callable[[int], str] | None = field(default=None, repr=False)
+    line_cells: Callable[[int], list[str]] | None = field(default=None, repr=False)
+    layout: dict = field(default_factory=dict)
 
     @property
     def names(self) -> list[str]:

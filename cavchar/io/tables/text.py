@@ -1,8 +1,10 @@
 """Text tables: CSV/TSV parsing (already decompressed), with errors naming the line.
 
-The first line that is neither blank nor a comment is the header; ``# key: value``
-comments are metadata.  A fast path parses everything below the header at once;
-when comments or blank lines sit between the rows, a slow path drops them and keeps
+The header row, the delimiter and the decimal mark are found by
+:mod:`cavchar.io.tables.sniff` (lines above the header are an instrument's
+preamble and are skipped); ``# key: value`` comments are metadata.  A fast path
+parses everything below the header at once; when comments or blank lines sit
+between the rows, a slow path drops them and keeps
 the source line of every row.  Every cell must be a number (an empty cell is read
 as NaN and judged by :func:`cavchar.io.tables.reader.read_table`).
 """
@@ -16,12 +18,19 @@ from pathlib import Path
 import numpy as np
 
 from cavchar.errors import InputError
+from cavchar.io.tables.layout import FileLayout, plain_name
+from cavchar.io.tables.sniff import (
+    DECIMAL_SAMPLE_ROWS,
+    MAX_PREAMBLE_LINES,
+    cell_kind,
+    sniff,
+    split_cells,
+)
 from cavchar.io.tables.table import Table, meta_key
 
 __all__ = ["read_text"]
 
 _META_LINE = re.compile(r"^#\s*([A-Za-z][A-Za-z0-9 _-]*?)\s*:\s*(.*?)\s*$")
-_NUMBER = re.compile(r"^[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?$", re.ASCII)
 _NAN_WORDS = {"nan", "+nan", "-nan", "inf", "+inf", "-inf", "infinity", "+infinity",
               "-infinity", "na", "n/a", "null", "none"}
 
@@ -70,21 +79,43 @@ def _read_metadata(text: str, metadata: dict[str, str]) -> None:
         metadata[meta_key(match.group(1))] = match.group(2)
 
 
-def read_text(path: Path, raw: bytes, fmt: str) -> Table:
-    """Table of a text file's (decompressed) bytes ``raw``; ``fmt`` is ``"csv"`` or ``"tsv"``
-    as told by the file name (a header holding tabs and no commas is read as TSV)."""
+def _next_line(raw: bytes, pos: int) -> int:
+    end = raw.find(b"\n", pos)
+    return len(raw) if end < 0 else end
+
+
+def read_text(path: Path, raw: bytes, fmt: str, layout: FileLayout | None = None) -> Table:
+    """Table of a text file's (decompressed) bytes ``raw``.
+
+    ``fmt`` (``"csv"`` or ``"tsv"``, from the file name) only matters when the
+    delimiter cannot be detected; ``layout`` gives rows to skip, the delimiter
+    and the decimal mark (each detected when not given, see
+    :mod:`cavchar.io.tables.sniff`).  Column names are the header's cells as
+    written (quotes and surrounding blanks removed).
+    """
+    layout = layout or FileLayout()
     if raw.startswith(b"\xef\xbb\xbf"):
         raw = b"   " + raw[3:]  # keep byte offsets; the blanks are stripped like any
     lines = _Lines(raw)
     metadata: dict[str, str] = {}
+    pos, index = 0, 0
+    skip = layout.skip_rows or 0
+    while index < skip and pos < len(raw):
+        pos, index = _next_line(raw, pos) + 1, index + 1
+    if skip and pos >= len(raw):
+        raise InputError(f"--skip-rows {skip} skips the whole file ({index} lines)", path=path,
+                         hint="give the number of lines above the header row")
     # leading comments and blanks, line by line (they are few)
-    pos, index, header_start = 0, 0, -1
+    header_start = -1
+    notes: list[str] = []
     while pos < len(raw):
-        end = raw.find(b"\n", pos)
-        end = len(raw) if end < 0 else end
+        end = _next_line(raw, pos)
         stripped = raw[pos:end].strip()
         if stripped.startswith(b"#"):
-            _read_metadata(raw[pos:end].decode("utf-8", errors="replace"), metadata)
+            text = raw[pos:end].decode("utf-8", errors="replace")
+            _read_metadata(text, metadata)
+            if len(notes) < 3:
+                notes.append(text.strip().lstrip("#").strip()[:200])
         elif stripped:
             header_start = pos
             break
@@ -92,59 +123,96 @@ def read_text(path: Path, raw: bytes, fmt: str) -> Table:
     if header_start < 0:
         raise InputError("the file holds no header line and no data (only comments or blanks)",
                          path=path, hint="give a header line naming the columns, then data rows")
-    header_index, header_line = index, index + 1
-    end = raw.find(b"\n", header_start)
-    end = len(raw) if end < 0 else end
-    try:
-        header = raw[header_start:end].decode("utf-8").strip()
-    except UnicodeDecodeError:
-        raise InputError("the file is not UTF-8 text", path=path, line=header_line,
-                         hint="give a CSV/TSV text file, or name a binary file .npz/.parquet"
-                         ) from None
-    sep = "\t" if fmt == "tsv" or ("\t" in header and "," not in header) else ","
-    names = [n.strip().strip('"').strip().lower() for n in header.split(sep)]
-    fmt = "tsv" if sep == "\t" else "csv"
+    candidates, comments = _candidates(path, raw, header_start, index)
+    default_sep = "\t" if fmt == "tsv" else ","
+    found = sniff(path, [(n, t) for n, t, _, _ in candidates], layout.delimiter,
+                  layout.decimal, layout.skip_rows is not None, default_sep)
+    header_line, header_text, header_pos, header_end = candidates[found.header]
+    for number, text in comments:  # comments among the preamble lines
+        if number < header_line:
+            _read_metadata(text, metadata)
+    header_index = header_line - 1
+    sep, decimal = found.sep, found.decimal
+    names = found.names
     _check_header(path, header_line, names)
-    if raw.find(b"\n", header_start, len(raw) - 1) < 0:
+    data_start = header_end + 1
+    if raw[data_start:].strip() == b"":
         raise InputError("the file has a header but no data rows", path=path,
                          line=header_line, hint="add data rows below the header")
     # fast path: parse everything below the header as it is; if every line became a row
     # (no comment or blank line in between), row i sits on line header_line + 1 + i
-    below = raw.count(b"\n", header_start) - (1 if raw.endswith(b"\n") else 0)
+    below = raw.count(b"\n", data_start) + (0 if raw.endswith(b"\n") else 1)
     buffer = io.BytesIO(raw)  # shares the bytes object, no copy
-    buffer.seek(header_start)
-    frame = _parse_numbers(path, lines, None, header_index, names, sep, buffer, quiet=True)
-    if frame is not None and frame[0].size == below:
+    buffer.seek(data_start)
+    parse = _Parse(path, lines, header_index, names, sep, decimal)
+    frame = parse.numbers(None, buffer, quiet=True)
+    if frame is not None and frame[0].size == below and not np.isnan(frame[0]).any():
         row_lines = np.arange(header_line + 1, header_line + 1 + below)
-    else:  # slow path: drop comments and blanks, keep the line of every row
-        data = _data_lines(lines, metadata, header_index)
-        if data.size == 1:
+    else:  # slow path: drop comments, blanks and separator-only lines; keep row lines
+        data = _data_lines(lines, metadata, header_index, sep)
+        if data.size == 0:
             raise InputError("the file has a header but no data rows", path=path,
                              line=header_line, hint="add data rows below the header")
         buffer = _data_buffer(raw, lines.starts, lines.ends, data)
-        frame = _parse_numbers(path, lines, data, header_index, names, sep, buffer)
-        row_lines = data[1:] + 1
+        frame = parse.numbers(data, buffer)
+        row_lines = data + 1
     columns = dict(zip(names, frame, strict=True))
-    return Table(str(path), fmt, columns, metadata, row_lines, header_line,
-                 lambda line: lines.text(line - 1))
+    described = {"delimiter": _SEP_NAMES[sep], "decimal": "comma" if decimal == "," else "point",
+                 "header_line": header_line, "preamble_lines": found.header,
+                 "comments": notes}
+    return Table(str(path), "tsv" if sep == "\t" else "csv", columns, metadata, row_lines,
+                 header_line, lambda line: lines.text(line - 1),
+                 line_cells=lambda line: split_cells(lines.text(line - 1), sep),
+                 layout=described)
 
 
-def _data_lines(lines: _Lines, metadata: dict[str, str], header_index: int) -> np.ndarray:
-    """0-based indices of the header and data lines (comments and blanks dropped)."""
+_SEP_NAMES = {"\t": "tab", ";": "semicolon", ",": "comma", None: "whitespace"}
+
+
+def _candidates(path: Path, raw: bytes, pos: int, index: int) -> list:
+    """``(line number, text, start, end)`` of the first non-comment, non-blank lines
+    from ``pos`` (0-based line ``index``): the header search and the decimal sample."""
+    out, comments = [], []
+    limit = MAX_PREAMBLE_LINES + DECIMAL_SAMPLE_ROWS + 2
+    while pos < len(raw) and len(out) < limit:
+        end = _next_line(raw, pos)
+        piece = raw[pos:end]
+        if piece.strip() and not piece.strip().startswith(b"#"):
+            try:
+                text = piece.decode("utf-8").rstrip("\r")
+            except UnicodeDecodeError:
+                raise InputError("the file is not UTF-8 text", path=path, line=index + 1,
+                                 hint="give a CSV/TSV text file (saved as UTF-8), or name a "
+                                 "binary file .npz/.parquet") from None
+            out.append((index + 1, text, pos, end))
+        elif piece.strip():
+            comments.append((index + 1, piece.decode("utf-8", errors="replace")))
+        pos, index = end + 1, index + 1
+    return out, comments
+
+
+def _data_lines(lines: _Lines, metadata: dict[str, str], header_index: int,
+                sep: str | None) -> np.ndarray:
+    """0-based indices of the data lines below the header (comments, blanks and lines
+    holding only separators dropped)."""
     raw, starts, ends = lines.raw, lines.starts, lines.ends
     b = np.frombuffer(raw, dtype=np.uint8)
-    first = b[starts]
+    first = b[np.minimum(starts, max(b.size - 1, 0))]
     length = ends - starts
     comment = first == ord("#")
     blank = (length == 0) | ((length == 1) & (first == 13))
-    for i in np.flatnonzero((first == 32) | (first == 9)):  # indented lines: rare
+    odd = (first == 32) | (first == 9)
+    if sep is not None and sep not in " \t":
+        odd |= first == ord(sep)
+    for i in np.flatnonzero(odd):  # indented or separator-only lines: rare
         stripped = raw[starts[i]: ends[i]].strip()
-        blank[i] = not stripped
+        blank[i] = not stripped or (sep is not None and not stripped.replace(
+            sep.encode(), b"").strip())
         comment[i] = stripped.startswith(b"#")
     for i in np.flatnonzero(comment[header_index:]) + header_index:
         _read_metadata(lines.text(i), metadata)
     data = np.flatnonzero(~comment & ~blank)
-    return data[data >= header_index]
+    return data[data > header_index]
 
 
 def _check_header(path: Path, line: int, names: list[str]) -> None:
@@ -153,14 +221,14 @@ def _check_header(path: Path, line: int, names: list[str]) -> None:
         if not name:
             raise InputError("the header has an empty column name", path=path, line=line,
                              hint="name every column (or remove a trailing separator)")
-        if name in seen:
-            raise InputError(f"column {name!r} appears twice in the header", path=path,
-                             line=line, hint="give each column once")
-        seen.add(name)
+        if plain_name(name) in seen:
+            raise InputError(f"column {plain_name(name)!r} appears twice in the header",
+                             path=path, line=line, hint="give each column once")
+        seen.add(plain_name(name))
 
 
 def _data_buffer(raw: bytes, starts, ends, data) -> io.BytesIO:
-    """The header and data lines only (comments and blanks removed), as one buffer."""
+    """The data lines only (comments and blanks removed), as one buffer."""
     breaks = np.flatnonzero(np.diff(data) != 1)
     run_first = np.concatenate(([data[0]], data[breaks + 1]))
     run_last = np.concatenate((data[breaks], [data[-1]]))
@@ -172,85 +240,114 @@ def _data_buffer(raw: bytes, starts, ends, data) -> io.BytesIO:
     return io.BytesIO(b"\n".join(pieces))
 
 
-def _parse_numbers(path, lines: _Lines, data, header_index: int, names, sep, buffer,
-                   quiet: bool = False) -> list[np.ndarray] | None:
-    """Float columns of the buffer; on failure None (``quiet``) or an InputError that
-    names the offending line."""
-    import pandas as pd
+class _Parse:
+    """pandas' C parser over the rows below the header, and the errors that name the
+    line it could not read."""
 
-    options = dict(sep=sep, header=0, keep_default_na=False, na_values=[""],
-                   skip_blank_lines=quiet, engine="c")
-    try:
-        frame = pd.read_csv(buffer, dtype=np.float64, **options)
-    except (ValueError, TypeError, UnicodeDecodeError):  # ParserError is a ValueError
-        if quiet:
-            return None
-        frame = None
-    if frame is None or frame.shape[1] != len(names):
-        if quiet:
-            return None
-        buffer.seek(0)
-        _explain_failure(path, lines, data, header_index, names, sep, buffer)
-    columns = []
-    for j in range(len(names)):
-        column = np.asarray(frame.iloc[:, j], dtype=np.float64)  # a view, no copy
-        column.setflags(write=False)
-        columns.append(column)
-    return columns
+    def __init__(self, path, lines: _Lines, header_index: int, names, sep, decimal) -> None:
+        self.path, self.lines, self.header_index = path, lines, header_index
+        self.names, self.sep, self.decimal = names, sep, decimal
+
+    def _read(self, buffer, skip_blank: bool):
+        import warnings
+
+        import pandas as pd
+
+        with warnings.catch_warnings():
+            # a row with more cells than the header: pandas warns and drops cells (or,
+            # without index_col=False, makes the first cell an index); here it is an error
+            warnings.simplefilter("error", pd.errors.ParserWarning)
+            return pd.read_csv(buffer, sep=r"\s+" if self.sep is None else self.sep,
+                               decimal=self.decimal, header=None,
+                               names=list(range(len(self.names))), index_col=False,
+                               dtype=np.float64, keep_default_na=False, na_values=[""],
+                               skip_blank_lines=skip_blank, engine="c")
+
+    def numbers(self, data, buffer, quiet: bool = False) -> list[np.ndarray] | None:
+        """Float columns of the buffer; on failure None (``quiet``) or an InputError that
+        names the offending line."""
+        import pandas as pd
+
+        try:
+            frame = self._read(buffer, quiet)
+        except (ValueError, TypeError, UnicodeDecodeError, pd.errors.ParserWarning):
+            if quiet:
+                return None
+            frame = None
+        if frame is None or frame.shape[1] != len(self.names):
+            if quiet:
+                return None
+            self._explain(data)
+        columns = []
+        for j in range(len(self.names)):
+            column = np.asarray(frame.iloc[:, j], dtype=np.float64)  # a view, no copy
+            column.setflags(write=False)
+            columns.append(column)
+        return columns
+
+    def _rows(self, data):
+        lines = self.lines
+        return range(self.header_index + 1, len(lines)) if data is None else data
+
+    def _explain(self, data) -> None:
+        """Raise the InputError that says which line the parser could not read."""
+        self._field_count(data)
+        self._non_numeric(data)
+        raise InputError("cannot parse the table", path=self.path,
+                         hint="check quotes and separators")
+
+    def _field_count(self, data) -> None:
+        n = len(self.names)
+        for i in self._rows(data):
+            text = self.lines.text(i)
+            stripped = text.strip()
+            if not stripped or stripped.startswith("#"):
+                continue
+            count = len(split_cells(text, self.sep))
+            if count == n:
+                continue
+            hint = f"give one value per column ({', '.join(self.names)}), separated by " + \
+                _SEP_WORDS[self.sep]
+            if count > n and self.sep == ",":
+                hint += ("; if the file writes decimal commas (0,5 for 0.5), the cells must be "
+                         "separated by semicolons or tabs (--delimiter), or write decimal "
+                         "points")
+            raise InputError(f"this row has {count} cells but the header names {n} columns",
+                             path=self.path, line=int(i) + 1, hint=hint)
+
+    def _non_numeric(self, data) -> None:
+        good = {"empty", "int", "dot"} if self.decimal == "." else {"empty", "int", "comma"}
+        for i in self._rows(data):
+            text = self.lines.text(i)
+            if not text.strip() or text.strip().startswith("#"):
+                continue
+            for name, cell in zip(self.names, split_cells(text, self.sep), strict=False):
+                if cell_kind(cell) not in good:
+                    _bad_cell(self.path, int(i) + 1, name, cell, self.decimal)
 
 
-def _explain_failure(path, lines: _Lines, data, header_index: int, names, sep, buffer) -> None:
-    """Raise the InputError that says which line the parser could not read."""
-    import pandas as pd
-
-    options = dict(sep=sep, header=0, keep_default_na=False, na_values=[""],
-                   skip_blank_lines=False, engine="c")
-    try:
-        pd.read_csv(buffer, dtype=np.float64, **options)
-    except pd.errors.ParserError as exc:
-        _raise_field_count(path, lines, data, header_index, names, sep)
-        raise InputError(f"cannot parse the table ({exc})", path=path,
-                         hint="check quotes and separators") from None
-    except (ValueError, TypeError):
-        _raise_non_numeric(path, lines, data, header_index, names, sep)
-        raise InputError("the table holds cells that are not numbers", path=path,
-                         hint="every cell must be a number") from None
-    except UnicodeDecodeError:
-        raise InputError("the file is not UTF-8 text", path=path,
-                         hint="give a CSV/TSV text file") from None
-    _raise_field_count(path, lines, data, header_index, names, sep)
-    raise InputError("cannot parse the table", path=path, hint="check quotes and separators")
+_SEP_WORDS = {"\t": "tabs", ";": "semicolons", ",": "commas", None: "blanks"}
 
 
-def _rows(lines: _Lines, data, header_index: int):
-    """0-based indices of the data lines below the header."""
-    return range(header_index + 1, len(lines)) if data is None else data[1:]
-
-
-def _raise_field_count(path, lines: _Lines, data, header_index: int, names, sep) -> None:
-    for i in _rows(lines, data, header_index):
-        count = len(lines.text(i).split(sep))
-        if count != len(names):
-            raise InputError(
-                f"this row has {count} cells but the header names {len(names)} columns",
-                path=path, line=int(i) + 1,
-                hint=f"give one value per column ({', '.join(names)}), separated by "
-                + ("tabs" if sep == "\t" else "commas"))
-
-
-def _raise_non_numeric(path, lines: _Lines, data, header_index: int, names, sep) -> None:
-    for i in _rows(lines, data, header_index):
-        cells = [c.strip().strip('"').strip() for c in lines.text(i).split(sep)]
-        for name, cell in zip(names, cells, strict=False):
-            if cell and not _NUMBER.match(cell):
-                _bad_cell(path, int(i) + 1, name, cell)
-
-
-def _bad_cell(path, line: int | None, name: str, cell: str) -> None:
+def _bad_cell(path, line: int | None, name: str, cell: str, decimal: str = ".") -> None:
     if cell.lower() in _NAN_WORDS:
         raise InputError(f"column {name!r} holds {cell!r}, which is not a finite number",
                          path=path, line=line,
                          hint="write a finite number (an empty cell is allowed only where "
                          "the format says so, e.g. a lost probe's outcome)")
-    raise InputError(f"column {name!r} holds {cell!r}, which is not a number",
+    kind = cell_kind(cell)
+    if kind == "comma":
+        raise InputError(f"column {name!r} holds {cell!r}, a number with a decimal comma, "
+                         "in a file read with decimal points", path=path, line=line,
+                         hint="set --decimal comma (decimal=',' in Python)")
+    if kind == "dot":
+        raise InputError(f"column {name!r} holds {cell!r}, a number with a decimal point, "
+                         "in a file read with decimal commas", path=path, line=line,
+                         hint="write every number with the same decimal mark, or set "
+                         "--decimal point")
+    raise InputError(f"column {name!r} holds {_short(cell)!r}, which is not a number",
                      path=path, line=line, hint="write a plain number such as 0.125 or 3e-4")
+
+
+def _short(text: str, limit: int = 60) -> str:
+    return text if len(text) <= limit else text[:limit] + "..."
