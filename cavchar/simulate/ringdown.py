@@ -14,7 +14,15 @@ from numpy.typing import ArrayLike
 
 from cavchar.errors import InputError
 from cavchar.records import RingdownTrace
-from cavchar.simulate._common import Seed, check_physics, rng_from, truth_metadata
+from cavchar.simulate._common import (
+    MAX_CELLS,
+    MAX_ROWS,
+    Seed,
+    check_physics,
+    check_size,
+    rng_from,
+    truth_metadata,
+)
 
 __all__ = ["simulate_ringdown"]
 
@@ -93,6 +101,8 @@ def simulate_ringdown(
     times = np.asarray(times, dtype=float)
     if times.ndim != 1 or times.size == 0 or traces < 1 or noise < 0:
         raise InputError("give at least one time, traces >= 1 and noise >= 0")
+    check_size(float(traces) * times.size, "trace points", MAX_ROWS,
+               "reduce --points or --traces")
     rng = rng_from(seed)
     m = times.size
     decay = np.exp(-(times - t0) * kappa)
@@ -141,7 +151,12 @@ def simulate_ringdown(
 
 
 def _initial_distribution(initial) -> np.ndarray:
+    from cavchar.dynamics import MAX_LEVELS
+
     if np.ndim(initial) == 0:
+        if not (np.isfinite(initial) and 0 <= initial <= MAX_LEVELS):
+            raise InputError(f"the initial Fock number must lie in 0..{MAX_LEVELS}, "
+                             f"not {initial}")
         n0 = int(initial)
         if n0 != initial or n0 < 0:
             raise InputError(f"the initial Fock number must be a whole number >= 0, not {initial}")
@@ -149,6 +164,9 @@ def _initial_distribution(initial) -> np.ndarray:
         p0[n0] = 1.0
         return p0
     p0 = np.asarray(initial, float)
+    if p0.size > MAX_LEVELS:
+        raise InputError(f"the initial distribution has {p0.size} photon numbers, more than "
+                         f"the {MAX_LEVELS} cavchar handles")
     if p0.ndim != 1 or np.any(p0 < 0) or not np.isclose(p0.sum(), 1.0, atol=1e-9):
         raise InputError("the initial distribution must be probabilities summing to 1")
     return p0
@@ -161,6 +179,13 @@ def _population_counts(kappa, n_th, p0, delays, shots, n_levels, shape, rng) -> 
         raise InputError("populations are simulated for times after t0 only")
     if int(shots) != shots or shots < 1:
         raise InputError(f"shots must be a whole number >= 1, not {shots}")
+    from cavchar.dynamics import check_levels, truncation_levels
+
+    if n_levels is None:
+        n_levels = max(truncation_levels(n_th, p0.size - 1), p0.size)
+    n_levels = check_levels(max(int(n_levels), p0.size), n_th)
+    check_size(float(shape[0]) * delays.size * n_levels, "population counts", MAX_CELLS,
+               "reduce --points, --traces or --levels")
     p = populations(kappa, n_th, p0, delays, n_levels=n_levels)  # (m, N)
     p = np.clip(p, 0.0, None)
     p /= p.sum(axis=1, keepdims=True)
