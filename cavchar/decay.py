@@ -127,14 +127,21 @@ def initial_distribution(initial: int | float | ArrayLike) -> np.ndarray:
     A whole number ``n`` gives the Fock state ``|n>`` (``[0, ..., 0, 1]``); a
     sequence is taken as probabilities of ``0, 1, ...`` and must sum to 1.
     """
+    from cavchar.dynamics import MAX_LEVELS
+
     if np.ndim(initial) == 0 or np.size(initial) == 1:
         value = float(np.ravel(np.asarray(initial, dtype=float))[0])
-        if not value.is_integer() or value < 0:
+        if not (math.isfinite(value) and 0 <= value <= MAX_LEVELS):
+            raise InputError(f"the initial Fock number must lie in 0..{MAX_LEVELS}, not {value:g}")
+        if not value.is_integer():
             raise InputError(f"the initial Fock number must be a whole number >= 0, not {value:g}")
         p0 = np.zeros(int(value) + 1)
         p0[int(value)] = 1.0
         return p0
     p0 = np.asarray(initial, float)
+    if p0.size > MAX_LEVELS:
+        raise InputError(f"the initial distribution has {p0.size} photon numbers, more than "
+                         f"the {MAX_LEVELS} cavchar handles")
     if p0.ndim != 1 or np.any(p0 < 0) or not np.isclose(p0.sum(), 1.0, atol=1e-9):
         raise InputError("the initial distribution must be probabilities summing to 1")
     return p0

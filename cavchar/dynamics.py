@@ -45,6 +45,8 @@ __all__ = [
     "up_rate",
     "down_rate",
     "truncation_levels",
+    "MAX_LEVELS",
+    "check_levels",
     "rate_matrix",
     "stationary_distribution",
     "bose_einstein",
@@ -54,6 +56,12 @@ __all__ = [
     "populations",
     "mean_photon_number",
 ]
+
+#: largest truncation (number of photon-number levels) cavchar builds: a 400 x 400
+#: generator is 1.3 MB and its eigen-decomposition about 0.1 s, while a larger one
+#: means an n_th above about 14 or a Fock state above 400 photons, far outside a
+#: cavity at millikelvin (a unit slip or a record too short to bound n_th)
+MAX_LEVELS = 400
 
 #: accepted bound on the absolute rounding error of an eigen-route probability
 _EIGEN_TOLERANCE = 1e-11
@@ -113,6 +121,23 @@ def truncation_levels(n_th: float, n_max: int = 0, tail: float = 1e-12) -> int:
     r = n_th / (1.0 + n_th)
     extra = math.ceil(math.log(tail) / math.log(r))
     return int(n_max) + max(extra, 2)
+
+
+def check_levels(n_levels: int, n_th: float | None = None, limit: int = MAX_LEVELS) -> int:
+    """``n_levels`` if it is at most ``limit`` (default :data:`MAX_LEVELS`); else an
+    InputError that says what asked for so many levels (``n_th`` when given).
+
+    For entry points whose truncation follows from user input (simulators,
+    planners, the sampled-record fit), called before anything is allocated."""
+    if n_levels <= limit:
+        return int(n_levels)
+    from cavchar.errors import InputError
+
+    cause = "" if n_th is None else f" (n_th = {n_th:.3g})"
+    raise InputError(f"the photon number would need {n_levels:,} levels{cause}, more than "
+                     f"the {limit} cavchar handles",
+                     hint="check the thermal photon number, the initial photon number and "
+                     "their units; a cavity at millikelvin needs far fewer levels")
 
 
 def rate_matrix(kappa: float, n_th: float, n_levels: int) -> np.ndarray:

@@ -13,22 +13,80 @@ __all__ = ["quantity", "add_output_options", "add_sampler_options", "add_fit_con
 
 
 class HelpFormatter(argparse.ArgumentDefaultsHelpFormatter, argparse.RawDescriptionHelpFormatter):
-    """Shows defaults (so help cannot drift from the code) and keeps example layout."""
+    """Shows defaults (so help cannot drift from the code) and keeps example layout.
+
+    A default is shown once: not when the help text already speaks of it
+    ("default", "unset"), and never for an unset option (None), a flag (False)
+    or an empty list."""
+
+    def _get_help_string(self, action: argparse.Action) -> str:
+        text = action.help or ""
+        default = action.default
+        lowered = text.lower()
+        if (default is None or default is False or default == [] or default is argparse.SUPPRESS
+                or action.nargs == 0
+                or "default" in lowered or "unset" in lowered or "%(default)" in text
+                or action.option_strings == []):
+            return text
+        return text + " (default: %(default)s)"
 
 
-def quantity(dimension: str) -> Callable[[str], float]:
-    """An argparse ``type=`` that parses a number with an SI unit into SI (see cavchar.units)."""
+def quantity(dimension: str, *, minimum: float | None = 0.0, positive: bool = False,
+             maximum: float | None = None) -> Callable[[str], float]:
+    """An argparse ``type=`` that parses a number with an SI unit into SI (see cavchar.units).
+
+    A dimensioned quantity needs its unit (``--freq 7.412`` is refused and the
+    message shows ``7.412GHz``); the value must be finite and lie in the range:
+    ``minimum`` (default 0, None for signed quantities such as phases),
+    ``positive`` (strictly above ``minimum``) and ``maximum``.
+    """
 
     def parse(text: str) -> float:
         from cavchar.errors import InputError
 
         try:
-            return parse_quantity(text, dimension)
+            return parse_quantity(text, dimension, require_unit=True, minimum=minimum,
+                                  strict_minimum=positive, maximum=maximum)
         except InputError as exc:
             raise argparse.ArgumentTypeError(str(exc)) from None
 
     parse.__name__ = dimension
     return parse
+
+
+def whole(minimum: int = 0, maximum: int | None = None) -> Callable[[str], int]:
+    """An argparse ``type=`` for a whole number in ``[minimum, maximum]`` (``1e6`` allowed)."""
+
+    def parse(text: str) -> int:
+        from cavchar.units import _shorten
+
+        try:
+            value = float(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"{_shorten(text)} is not a whole number") from None
+        if not (value == value and abs(value) < 2**63 and value == round(value)):
+            raise argparse.ArgumentTypeError(f"{_shorten(text)} is not a whole number")
+        number = int(value)
+        if number < minimum or (maximum is not None and number > maximum):
+            upper = "" if maximum is None else f" and <= {maximum:,}"
+            raise argparse.ArgumentTypeError(
+                f"{_shorten(text)} is out of range; it must be >= {minimum}{upper}")
+        return number
+
+    parse.__name__ = "whole number"
+    return parse
+
+
+def real(minimum: float | None = None, maximum: float | None = None,
+         positive: bool = False) -> Callable[[str], float]:
+    """An argparse ``type=`` for a finite plain number in a range (no unit)."""
+    return quantity("dimensionless", minimum=minimum, maximum=maximum, positive=positive)
+
+
+#: limits of the sampler options (a larger run is a typo, not a plan)
+MAX_SEED = 2**63 - 1
+MAX_WALKERS = 2000
+MAX_STEPS = 1_000_000
 
 
 def add_output_options(parser: argparse.ArgumentParser) -> None:
@@ -41,9 +99,11 @@ def add_output_options(parser: argparse.ArgumentParser) -> None:
 
 def add_sampler_options(parser: argparse.ArgumentParser) -> None:
     """Seed and convergence options common to every fit."""
-    parser.add_argument("--seed", type=int, default=1, help="random seed (stored in the result)")
-    parser.add_argument("--walkers", type=int, default=32, help="number of ensemble walkers")
-    parser.add_argument("--max-steps", type=int, default=20000,
+    parser.add_argument("--seed", type=whole(0, MAX_SEED), default=1,
+                        help="random seed (stored in the result)")
+    parser.add_argument("--walkers", type=whole(4, MAX_WALKERS), default=32,
+                        help="number of ensemble walkers")
+    parser.add_argument("--max-steps", type=whole(100, MAX_STEPS), default=20000,
                         help="largest number of sampler steps per walker")
     parser.add_argument("--allow-unconverged", action="store_true",
                         help="keep an unconverged chain (exit 0 with a warning instead of 3)")
@@ -52,9 +112,10 @@ def add_sampler_options(parser: argparse.ArgumentParser) -> None:
 
 def add_fit_context_options(parser: argparse.ArgumentParser) -> None:
     """Mode frequency, stage temperature, logging and report options of every fit."""
-    parser.add_argument("--freq", type=quantity("frequency"), default=None,
+    parser.add_argument("--freq", type=quantity("frequency", positive=True), default=None,
                         help="mode frequency, e.g. 6.8GHz (for Q, linewidth, T_eff)")
-    parser.add_argument("--stage-temp", type=quantity("temperature"), default=None,
+    parser.add_argument("--stage-temp", type=quantity("temperature", positive=True),
+                        default=None,
                         help="stage (mixing-chamber) temperature, e.g. 20mK (Planck check)")
     parser.add_argument("--log", action="store_true",
                         help="add the result to the cooldown log (needs --cavity, --cooldown)")
@@ -62,6 +123,9 @@ def add_fit_context_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--cooldown", default=None, help="cooldown label for --log")
     parser.add_argument("--log-file", default=None, metavar="PATH",
                         help="cooldown log file (default: $CAVCHAR_LOG or ./cavchar.sqlite)")
+    parser.add_argument("--log-create", action="store_true",
+                        help="with --log: create the log file, the cavity and the cooldown "
+                        "when they are new (without it they must exist; checked before the fit)")
     parser.add_argument("--report", action="store_true",
                         help="also write a self-contained HTML report into the output folder")
 
@@ -109,6 +173,38 @@ def check_outputs(args: argparse.Namespace) -> None:
         from cavchar.errors import InputError
 
         raise InputError("--log needs --cavity NAME and --cooldown LABEL")
+    check_log_target(args)
+
+
+def check_log_target(args: argparse.Namespace) -> None:
+    """With ``--log``: fail before the fit when the log file, the cavity or the cooldown
+    is missing (``--log-create`` makes them instead, after the fit)."""
+    from cavchar.errors import InputError
+
+    if not getattr(args, "log", False):
+        for flag in ("cavity", "cooldown", "log_create"):
+            if getattr(args, flag, None):
+                raise InputError(f"--{flag.replace('_', '-')} is only used with --log",
+                                 hint="add --log to log the fit, or leave the option out")
+        return
+    if getattr(args, "log_create", False):
+        from cavchar.tracking.store import resolve_log_path
+
+        folder = resolve_log_path(args.log_file).absolute().parent
+        if not folder.is_dir():
+            raise InputError("the folder of the log does not exist", path=folder,
+                             hint="give --log-file in an existing folder")
+        return
+    from cavchar.tracking import open_log
+
+    create = "or add --log-create to make it with this fit"
+    try:
+        with open_log(args.log_file, create=False) as log:
+            log.cavity(args.cavity)
+            log.cooldown(args.cooldown)
+    except InputError as exc:
+        raise InputError(exc.message, path=exc.path, line=exc.line,
+                         hint=f"{exc.hint}; {create}" if exc.hint else create) from None
 
 
 def finish_fit_command(result, args: argparse.Namespace) -> int:
@@ -126,7 +222,8 @@ def finish_fit_command(result, args: argparse.Namespace) -> int:
             raise InputError("--log needs --cavity NAME and --cooldown LABEL")
         from cavchar.tracking import log_fit_result
 
-        log_fit_result(result, args.cavity, args.cooldown, path=args.log_file)
+        log_fit_result(result, args.cavity, args.cooldown, path=args.log_file,
+                       create=getattr(args, "log_create", False))
         print(f"logged as cavity {args.cavity!r}, cooldown {args.cooldown!r}")
     if args.report:
         from pathlib import Path

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from cavchar.cli.common import HelpFormatter
+from cavchar.cli.common import HelpFormatter, whole
 
 EXAMPLES = """examples:
   cavchar demo                      # writes ./cavchar-demo/ and prints where the report is
@@ -38,7 +38,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                         help="shorter records and fewer figures (for CI)")
     parser.add_argument("--force", action="store_true",
                         help="replace the files of an earlier demo run in DIR")
-    parser.add_argument("--seed", type=int, default=None,
+    parser.add_argument("--seed", type=whole(0, 2**63 - 1), default=None,
                         help="base seed of the simulations and fits (default: the demo's)")
     parser.set_defaults(func=handle)
 

@@ -43,7 +43,7 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
     parser.add_argument("record", help="record file (CSV/TSV, .gz, NPZ, Parquet)")
     parser.add_argument("--sampled", action="store_true",
                         help="photon numbers at probe times (not exact change points)")
-    parser.add_argument("--end-time", type=quantity("time"), default=None,
+    parser.add_argument("--end-time", type=quantity("time", minimum=None), default=None,
                         help="end of an exact record when the file does not give it, e.g. 2.5s")
     parser.add_argument("--prior-lifetime", default=None, metavar="PRIOR",
                         help="prior on T_c, e.g. loguniform:1us,1000s (the default), "

@@ -16,6 +16,7 @@ from cavchar.cli.common import (
     finish_fit_command,
     rate_priors_from_args,
     settings_from_args,
+    whole,
 )
 
 EXAMPLES = """examples:
@@ -32,6 +33,9 @@ folder gets trajectory.csv (posterior mean and most likely photon number per pro
 viterbi_jumps.csv (the most likely path as an exact jump record, for `cavchar fit jumps`).
 See docs/probe-records.md.
 """
+
+#: largest Fock number accepted by --initial-photons (the truncation grows with it)
+MAX_INITIAL_PHOTONS = 100
 
 _FRINGE_OPTIONS = (
     ("visibility", "--visibility", "dimensionless", "1",
@@ -80,10 +84,11 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
                       help="blocks of probes (bias measured and reported); neither flag: "
                       "coarse only for records of more than 300,000 probes")
     parser.set_defaults(mode="auto")
-    parser.add_argument("--block-probes", type=int, default=None, metavar="B",
+    parser.add_argument("--block-probes", type=whole(1), default=None, metavar="B",
                         help="probes per block in the coarse mode; unset: 1%% of the "
                         "typical dwell time")
-    parser.add_argument("--initial-photons", type=int, default=None, metavar="N",
+    parser.add_argument("--initial-photons", type=whole(0, MAX_INITIAL_PHOTONS), default=None,
+                        metavar="N",
                         help="segments start in Fock state N; unset: thermal equilibrium")
     add_fit_context_options(parser)
     add_sampler_options(parser)

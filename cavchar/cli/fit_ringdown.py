@@ -15,8 +15,12 @@ from cavchar.cli.common import (
     check_outputs,
     finish_fit_command,
     quantity,
+    real,
     settings_from_args,
 )
+
+#: largest initial mean photon number accepted by --n0 (a cavity state, not a drive)
+MAX_N0 = 1e6
 
 SIGNAL_CHOICES = ("power", "power2", "db", "amplitude", "iq", "mean-n", "populations")
 
@@ -53,7 +57,7 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
                         "T_c")
     parser.add_argument("--signal", choices=SIGNAL_CHOICES, default=None,
                         help="signal kind (default: from the column names)")
-    parser.add_argument("--start-time", type=quantity("time"), default=None,
+    parser.add_argument("--start-time", type=quantity("time", minimum=None), default=None,
                         help="drop samples before this time (switch-off transient), e.g. 20us; "
                         "also the reference time of the amplitudes")
     parser.add_argument("--time-unit", default="s",
@@ -61,7 +65,7 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
     parser.add_argument("--initial", default=None, metavar="STATE",
                         help="populations: prepared Fock number (e.g. 2) or distribution "
                         "(e.g. 0,0.3,0.7); default: most frequent number at the first delay")
-    parser.add_argument("--n0", type=float, default=None,
+    parser.add_argument("--n0", type=real(minimum=0.0, maximum=MAX_N0), default=None,
                         help="mean-n: fix the initial mean photon number instead of fitting it")
     parser.add_argument("--allow-negative", action="store_true",
                         help="accept negative linear power (background-subtracted traces)")
@@ -82,12 +86,21 @@ def _initial(text: str | None):
 
     if text is None:
         return None
+    import math
+
+    from cavchar.dynamics import MAX_LEVELS
+
+    hint = "a Fock number such as 2 or probabilities such as 0,0.3,0.7"
     try:
         parts = [float(x) for x in text.split(",")]
     except ValueError:
-        raise InputError(f"cannot read --initial {text!r}",
-                         hint="a Fock number such as 2 or probabilities such as 0,0.3,0.7") \
-            from None
+        raise InputError(f"cannot read --initial {text[:60]!r}", hint=hint) from None
+    if not all(math.isfinite(x) and x >= 0 for x in parts) or len(parts) > MAX_LEVELS:
+        raise InputError(f"--initial {text[:60]!r} is out of range: numbers must be finite "
+                         f"and >= 0, at most {MAX_LEVELS} of them", hint=hint)
+    if len(parts) == 1 and parts[0] > MAX_LEVELS:
+        raise InputError(f"--initial {text[:60]!r} is out of range: a Fock number must be at "
+                         f"most {MAX_LEVELS}", hint=hint)
     if len(parts) == 1:
         return int(parts[0]) if parts[0] == int(parts[0]) else parts
     return parts

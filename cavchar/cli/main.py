@@ -14,6 +14,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import importlib.util
+import re
 import sys
 import warnings
 from collections.abc import Sequence
@@ -29,9 +30,46 @@ COMMAND_MODULES = (
 )
 
 
+#: longest message printed as it is; longer ones are cut in the middle (an echoed cell)
+MAX_MESSAGE_CHARS = 600
+
+#: warnings of other libraries that valid input can raise and that say nothing to a user
+QUIET_WARNINGS = (
+    "No artists with labels found to put in legend",
+    "Tight layout not applied",
+)
+
+
+class CommandParser(argparse.ArgumentParser):
+    """argparse with cavchar's conventions: a usage error is one line on stderr naming
+    the option (exit 2), and a negative number with a unit (``-5mK``) is read as a
+    value, so that its range check can answer, not taken for an unknown option."""
+
+    def __init__(self, *args, **kwargs) -> None:
+        super().__init__(*args, **kwargs)
+        # argparse only treats "-5" and "-.5" as numbers; also "-5mK", "-1e3s"
+        self._negative_number_matcher = re.compile(r"^-(\d|\.\d)")
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        print(f"{self.prog}: error: {clean_text(message)} (see {self.prog} --help)",
+              file=sys.stderr)
+        sys.exit(2)
+
+
+def clean_text(text: str) -> str:
+    """User text made safe for one terminal line: control characters (escape codes,
+    newlines) shown escaped, and a very long text cut in the middle."""
+    text = "".join(c if c.isprintable() else repr(c)[1:-1] for c in str(text))
+    if len(text) > MAX_MESSAGE_CHARS:
+        cut = len(text) - MAX_MESSAGE_CHARS
+        text = (text[: MAX_MESSAGE_CHARS * 2 // 3] + f" ...[{cut:,} characters left out]... "
+                + text[-MAX_MESSAGE_CHARS // 3:])
+    return text
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The full argument parser with every installed sub-command."""
-    parser = argparse.ArgumentParser(
+    parser = CommandParser(
         prog="cavchar",
         description=(
             "Energy lifetime, thermal photon number and effective temperature of "
@@ -52,12 +90,13 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def _show_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    """Every warning as one line ``warning: ...`` without source paths (cavchar's own
+    warnings are diagnostics for the user; another library's is marked as such)."""
     stream = sys.stderr if file is None else file
-    if issubclass(category, CavcharWarning):
-        print(f"warning: {message}", file=stream)
-    else:
-        print(warnings.formatwarning(message, category, filename, lineno, line), end="",
-              file=stream)
+    text = clean_text(str(message))
+    if not issubclass(category, CavcharWarning):
+        text = f"{text} ({category.__name__} from a library cavchar uses)"
+    print(f"warning: {text}", file=stream)
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -72,11 +111,22 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 2
     with warnings.catch_warnings():
         warnings.showwarning = _show_warning
+        for text in QUIET_WARNINGS:
+            warnings.filterwarnings("ignore", message=re.escape(text))
         try:
             return int(args.func(args) or 0)
         except CavcharError as exc:
-            print(f"cavchar {args.command}: error: {exc}", file=sys.stderr)
+            print(f"{_prog(args)}: error: {clean_text(str(exc))}", file=sys.stderr)
             return exc.exit_code
+        except RecursionError:
+            print(f"{_prog(args)}: error: an input file is nested too deeply to read "
+                  "(a crafted or damaged file?)", file=sys.stderr)
+            return 2
+        except MemoryError:
+            print(f"{_prog(args)}: error: out of memory; the input or an option asks for "
+                  "more than this machine has (reduce the size or the duration)",
+                  file=sys.stderr)
+            return 2
         except KeyboardInterrupt:
             print("cavchar: interrupted", file=sys.stderr)
             return 130
@@ -87,6 +137,16 @@ def main(argv: Sequence[str] | None = None) -> int:
             print(f"cavchar: internal error ({type(exc).__name__}); please report it with the "
                   "traceback above", file=sys.stderr)
             return 1
+
+
+def _prog(args: argparse.Namespace) -> str:
+    """``cavchar fit jumps`` etc.: the command the user ran, for error lines."""
+    words = ["cavchar", args.command]
+    for key in ("fit_kind", "shape", "plan_kind", "log_action"):
+        value = getattr(args, key, None)
+        if isinstance(value, str):
+            words.append(value)
+    return " ".join(words)
 
 
 def run() -> None:

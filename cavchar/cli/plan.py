@@ -6,7 +6,7 @@ import argparse
 import math
 from pathlib import Path
 
-from cavchar.cli.common import HelpFormatter, add_output_options, quantity
+from cavchar.cli.common import HelpFormatter, add_output_options, quantity, real, whole
 from cavchar.errors import InputError
 from cavchar.units import format_quantity
 
@@ -19,6 +19,10 @@ EXAMPLES = """examples:
   cavchar plan ringdown --signal power --lifetime 1.2ms --noise 0.02 --span 6ms \\
       --points 2000 --target-lifetime 1%
 """
+
+#: largest assumed n_th a plan accepts: the probe and sampled forecasts truncate the
+#: photon number, which needs at most cavchar.dynamics.MAX_LEVELS levels up to here
+MAX_N_THERMAL = 10.0
 
 _DIMENSION = {"lifetime": "time", "n_thermal": "dimensionless",
               "quality_factor": "dimensionless", "effective_temperature": "temperature"}
@@ -51,12 +55,12 @@ def count(text: str) -> int:
 
 
 def _common(parser: argparse.ArgumentParser, n_thermal_required: bool = True) -> None:
-    parser.add_argument("--lifetime", type=quantity("time"), required=True,
+    parser.add_argument("--lifetime", type=quantity("time", positive=True), required=True,
                         help="assumed energy lifetime T_c, e.g. 1.2ms")
-    parser.add_argument("--n-thermal", type=quantity("dimensionless"),
+    parser.add_argument("--n-thermal", type=quantity("dimensionless", maximum=MAX_N_THERMAL),
                         required=n_thermal_required, default=None if n_thermal_required else 0.0,
                         help="assumed thermal photon number, e.g. 0.02")
-    parser.add_argument("--freq", type=quantity("frequency"), default=None,
+    parser.add_argument("--freq", type=quantity("frequency", positive=True), default=None,
                         help="mode frequency (adds Q and the effective temperature), e.g. 6.8GHz")
     parser.add_argument("--target-lifetime", type=fraction, default=None,
                         help="target relative sd of T_c, e.g. 3%%")
@@ -66,9 +70,10 @@ def _common(parser: argparse.ArgumentParser, n_thermal_required: bool = True) ->
                         help="target relative sd of the effective temperature (needs --freq)")
     parser.add_argument("--no-check", action="store_true",
                         help="skip the simulate-and-fit study that confirms the forecast")
-    parser.add_argument("--check-records", type=count, default=None,
+    parser.add_argument("--check-records", type=whole(1, 1000), default=None,
                         help="records simulated by the study (default 40; 20 for probes)")
-    parser.add_argument("--seed", type=int, default=1, help="random seed of the simulations")
+    parser.add_argument("--seed", type=whole(0, 2**63 - 1), default=1,
+                        help="random seed of the simulations")
     parser.add_argument("--format", choices=("png", "pdf"), default="png",
                         help="figure format written with -o")
     add_output_options(parser)
@@ -89,9 +94,9 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                              "points, or the photon number read every --sample-interval).",
                              epilog=EXAMPLES, formatter_class=HelpFormatter)
     _common(jumps)
-    jumps.add_argument("--record-length", type=quantity("time"), default=None,
+    jumps.add_argument("--record-length", type=quantity("time", positive=True), default=None,
                        help="forecast the precision of this total record length, e.g. 2min")
-    jumps.add_argument("--sample-interval", type=quantity("time"), default=None,
+    jumps.add_argument("--sample-interval", type=quantity("time", positive=True), default=None,
                        help="sampled record: time between photon-number readings, e.g. 50us")
     jumps.set_defaults(func=handle)
 
@@ -103,25 +108,28 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                               "reveals the photon number.",
                               epilog=EXAMPLES, formatter_class=HelpFormatter)
     _common(probes)
-    probes.add_argument("--probe-interval", type=quantity("time"), required=True,
+    probes.add_argument("--probe-interval", type=quantity("time", positive=True), required=True,
                         help="time between probes, e.g. 20us")
     probes.add_argument("--probes", type=count, default=None,
                         help="forecast the precision of this number of probes, e.g. 1e6")
-    probes.add_argument("--visibility", type=float, default=1.0, help="fringe visibility V")
-    probes.add_argument("--phase-per-photon", type=quantity("phase"), default=math.pi,
+    probes.add_argument("--visibility", type=real(0.0, 1.0), default=1.0,
+                        help="fringe visibility V")
+    probes.add_argument("--phase-per-photon", type=quantity("phase", minimum=None),
+                        default=math.pi,
                         help="fringe phase per photon (pi: parity probe), e.g. 3.1416rad")
-    probes.add_argument("--phase-offset", type=quantity("phase"), default=0.0,
+    probes.add_argument("--phase-offset", type=quantity("phase", minimum=None), default=0.0,
                         help="fringe phase offset, e.g. 0.2rad")
-    probes.add_argument("--readout-error-0", type=float, default=0.0,
+    probes.add_argument("--readout-error-0", type=real(0.0, 1.0), default=0.0,
                         help="P(read 1 | ideal 0)")
-    probes.add_argument("--readout-error-1", type=float, default=0.0,
+    probes.add_argument("--readout-error-1", type=real(0.0, 1.0), default=0.0,
                         help="P(read 0 | ideal 1)")
     probes.add_argument("--response-table", default=None, metavar="FILE",
                         help="calibrated response table (photons, p_one[, setting]) instead of "
                         "the fringe")
     probes.add_argument("--settings", default=None,
                         help="interleaved probe settings, comma separated, e.g. 0,1.57rad")
-    probes.add_argument("--loss", type=float, default=0.0, help="probability a probe is lost")
+    probes.add_argument("--loss", type=real(0.0, 0.99), default=0.0,
+                        help="probability a probe is lost")
     probes.set_defaults(func=handle)
 
     ring = kinds.add_parser("ringdown", help="ring-down traces",
@@ -133,17 +141,19 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     ring.add_argument("--signal", required=True,
                       choices=("power", "db", "amplitude", "iq", "mean_n", "populations"),
                       help="what the trace holds")
-    ring.add_argument("--noise", type=float, default=0.0,
+    ring.add_argument("--noise", type=real(0.0), default=0.0,
                       help="noise sd per point of one trace (value units)")
-    ring.add_argument("--span", type=quantity("time"), default=None,
+    ring.add_argument("--span", type=quantity("time", positive=True), default=None,
                       help="time span sampled after the decay starts (default 5 lifetimes)")
-    ring.add_argument("--points", type=count, default=1000, help="points per trace")
-    ring.add_argument("--amplitude", type=float, default=1.0, help="initial amplitude")
-    ring.add_argument("--floor", type=float, default=0.0, help="power floor (power, db)")
-    ring.add_argument("--initial", type=int, default=1,
+    ring.add_argument("--points", type=whole(2, 10_000_000), default=1000,
+                      help="points per trace")
+    ring.add_argument("--amplitude", type=real(0.0, positive=True), default=1.0,
+                      help="initial amplitude")
+    ring.add_argument("--floor", type=real(0.0), default=0.0, help="power floor (power, db)")
+    ring.add_argument("--initial", type=whole(0, 400), default=1,
                       help="prepared Fock number (mean_n, populations)")
     ring.add_argument("--shots", type=count, default=1000, help="shots per delay (populations)")
-    ring.add_argument("--detuning", type=quantity("frequency"), default=0.0,
+    ring.add_argument("--detuning", type=quantity("frequency", minimum=None), default=0.0,
                       help="IQ detuning, e.g. 2kHz")
     ring.add_argument("--fix", action="append", default=[], metavar="NUISANCE",
                       help="a nuisance the fit holds fixed (floor, amplitude, detuning, ...)")

@@ -44,9 +44,15 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument("--cavity", default=None, help="cavity whose trend to add (with a log)")
     parser.add_argument("--reference", default=None, metavar="COOLDOWN",
                         help="reference cooldown of the trend's drop probability")
-    parser.add_argument("--drop", type=float, default=0.1, metavar="FRACTION",
+    parser.add_argument("--drop", type=_fraction, default=0.1, metavar="FRACTION",
                         help="relative drop of the lifetime the trend asks about (0.1 = 10%%)")
     parser.set_defaults(func=handle)
+
+
+def _fraction(text: str) -> float:
+    from cavchar.cli.common import real
+
+    return real(0.0, 1.0, positive=True)(text)
 
 
 def handle(args: argparse.Namespace) -> int:

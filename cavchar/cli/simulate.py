@@ -8,7 +8,7 @@ from pathlib import Path
 
 import numpy as np
 
-from cavchar.cli.common import HelpFormatter, add_output_options, quantity
+from cavchar.cli.common import HelpFormatter, add_output_options, quantity, real, whole
 from cavchar.errors import InputError
 from cavchar.units import format_quantity, parse_quantity
 
@@ -77,16 +77,17 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 def _common(sub: argparse.ArgumentParser, shape: str) -> None:
     simulated = shape in ("jumps", "ringdown")  # sampled, probes may take --path instead
-    sub.add_argument("--lifetime", type=quantity("time"), required=simulated,
+    sub.add_argument("--lifetime", type=quantity("time", positive=True), required=simulated,
                      help="energy lifetime T_c = 1/kappa, e.g. 25ms")
     sub.add_argument("--n-thermal", type=quantity("dimensionless"),
                      required=shape == "jumps", default=0.0 if shape == "ringdown" else None,
                      help="mean thermal photon number n_th, e.g. 0.08")
-    sub.add_argument("--duration", type=quantity("time"), required=simulated,
+    sub.add_argument("--duration", type=quantity("time", positive=True), required=simulated,
                      help="length of each segment (trace), e.g. 60s")
-    sub.add_argument("--freq", type=quantity("frequency"), default=None,
+    sub.add_argument("--freq", type=quantity("frequency", positive=True), default=None,
                      help="mode frequency, only written to the file's metadata, e.g. 6.8GHz")
-    sub.add_argument("--seed", type=int, default=1, help="random seed (written to the file)")
+    sub.add_argument("--seed", type=whole(0, 2**63 - 1), default=1,
+                     help="random seed (written to the file)")
     sub.add_argument("--file", default=f"{shape}.csv",
                      help="output file name inside --out; its extension picks the format "
                      "(.csv, .tsv, .csv.gz, .tsv.gz, .npz, .parquet)")
@@ -94,14 +95,15 @@ def _common(sub: argparse.ArgumentParser, shape: str) -> None:
 
 
 def _record_options(sub: argparse.ArgumentParser, shape: str) -> None:
-    sub.add_argument("--segments", type=int, default=1, help="number of independent segments")
+    sub.add_argument("--segments", type=whole(1, 1_000_000), default=1,
+                     help="number of independent segments")
     sub.add_argument("--gap", type=quantity("time"), default=0.0,
                      help="time between segments, e.g. 1s")
-    sub.add_argument("--initial", type=int, default=None,
+    sub.add_argument("--initial", type=whole(0, 1000), default=None,
                      help="initial photon number of each segment (default: drawn from the "
                      "stationary Bose-Einstein law)")
     if shape != "jumps":
-        sub.add_argument("--interval", type=quantity("time"), required=True,
+        sub.add_argument("--interval", type=quantity("time", positive=True), required=True,
                          help="probe spacing (mean spacing for --spacing poisson), e.g. 2ms")
         sub.add_argument("--spacing", choices=("regular", "poisson"), default="regular",
                          help="regular probe times or a Poisson process")
@@ -109,28 +111,30 @@ def _record_options(sub: argparse.ArgumentParser, shape: str) -> None:
                          help="read the hidden photon number from this exact jump record "
                          "instead of simulating it (probes cover each of its segments; "
                          "--lifetime, --n-thermal, --duration, --segments are then unused)")
-        sub.add_argument("--path-end-time", type=quantity("time"), default=None,
+        sub.add_argument("--path-end-time", type=quantity("time", minimum=None), default=None,
                          help="end time of the --path record when the file does not give it")
 
 
 def _probe_options(sub: argparse.ArgumentParser) -> None:
     group = sub.add_argument_group("probe response (Ramsey fringe unless --response-table)")
-    group.add_argument("--visibility", type=quantity("dimensionless"), default=1.0,
+    group.add_argument("--visibility", type=real(0.0, 1.0), default=1.0,
                        help="fringe visibility V in [0, 1]")
-    group.add_argument("--phase-per-photon", type=quantity("phase"), default=math.pi,
+    group.add_argument("--phase-per-photon", type=quantity("phase", minimum=None),
+                       default=math.pi,
                        help="fringe phase per photon phi0 (rad, or e.g. 180deg = parity probe)")
-    group.add_argument("--phase-offset", type=quantity("phase"), default=0.0,
+    group.add_argument("--phase-offset", type=quantity("phase", minimum=None), default=0.0,
                        help="fringe phase offset phi_r (rad or deg)")
-    group.add_argument("--error0", type=quantity("dimensionless"), default=0.0,
+    group.add_argument("--error0", type=real(0.0, 1.0), default=0.0,
                        help="readout error e0 = P(read 1 | ideal 0)")
-    group.add_argument("--error1", type=quantity("dimensionless"), default=0.0,
+    group.add_argument("--error1", type=real(0.0, 1.0), default=0.0,
                        help="readout error e1 = P(read 0 | ideal 1)")
     group.add_argument("--response-table", default=None, metavar="FILE",
                        help="calibrated table with columns photons, p_one[, setting] instead "
                        "of the fringe")
-    group.add_argument("--setting", type=quantity("phase"), action="append", default=None,
+    group.add_argument("--setting", type=quantity("phase", minimum=None), action="append",
+                       default=None,
                        help="probe phase setting (repeat to interleave settings cyclically)")
-    group.add_argument("--loss", type=quantity("dimensionless"), default=0.0,
+    group.add_argument("--loss", type=real(0.0, 0.99), default=0.0,
                        help="probability that a probe is lost (empty outcome)")
     group.add_argument("--truth", action="store_true",
                        help="also write the hidden photon number as a sampled record "
@@ -141,10 +145,12 @@ def _ringdown_options(sub: argparse.ArgumentParser) -> None:
     sub.add_argument("--signal", required=True,
                      choices=("power", "db", "amplitude", "iq", "mean-n", "mean_n", "populations"),
                      help="signal kind")
-    sub.add_argument("--points", type=int, default=1000,
+    sub.add_argument("--points", type=whole(1, 20_000_000), default=1000,
                      help="number of points per trace, evenly spaced over --duration")
-    sub.add_argument("--start", type=quantity("time"), default=0.0, help="time of the first point")
-    sub.add_argument("--t0", type=quantity("time"), default=0.0, help="start of the decay")
+    sub.add_argument("--start", type=quantity("time", minimum=None), default=0.0,
+                     help="time of the first point")
+    sub.add_argument("--t0", type=quantity("time", minimum=None), default=0.0,
+                     help="start of the decay")
     sub.add_argument("--amplitude", default="1",
                      help="initial power A (power, db; e.g. 1nW) or field amplitude "
                      "(amplitude, iq)")
@@ -152,18 +158,20 @@ def _ringdown_options(sub: argparse.ArgumentParser) -> None:
     sub.add_argument("--noise", default="0",
                      help="noise standard deviation in the value's unit (dB for db; per "
                      "quadrature for amplitude and iq)")
-    sub.add_argument("--detuning", type=quantity("frequency"), default=0.0,
+    sub.add_argument("--detuning", type=quantity("frequency", minimum=None), default=0.0,
                      help="IQ detuning, e.g. 150Hz")
-    sub.add_argument("--phase", type=quantity("phase"), default=0.0,
+    sub.add_argument("--phase", type=quantity("phase", minimum=None), default=0.0,
                      help="field phase at t0 (amplitude, iq)")
-    sub.add_argument("--offset-real", type=float, default=0.0, help="IQ offset, real part")
-    sub.add_argument("--offset-imag", type=float, default=0.0, help="IQ offset, imaginary part")
-    sub.add_argument("--initial", type=int, default=1,
+    sub.add_argument("--offset-real", type=real(), default=0.0, help="IQ offset, real part")
+    sub.add_argument("--offset-imag", type=real(), default=0.0, help="IQ offset, imaginary part")
+    sub.add_argument("--initial", type=whole(0, 400), default=1,
                      help="initial Fock number (mean-n, populations)")
-    sub.add_argument("--shots", type=int, default=1000, help="shots per delay (populations)")
-    sub.add_argument("--levels", type=int, default=None,
+    sub.add_argument("--shots", type=whole(1, 10**9), default=1000,
+                     help="shots per delay (populations)")
+    sub.add_argument("--levels", type=whole(2, 400), default=None,
                      help="photon-number columns (populations; default: tail < 1e-12)")
-    sub.add_argument("--traces", type=int, default=1, help="number of independent traces")
+    sub.add_argument("--traces", type=whole(1, 100_000), default=1,
+                     help="number of independent traces")
     sub.add_argument("--known-sigma", action="store_true",
                      help="write the noise level as a sigma column (always for mean-n)")
 
@@ -288,14 +296,14 @@ def handle_probes(args: argparse.Namespace) -> int:
     return 0
 
 
-def _number(text: str, dimension: str, option: str) -> float:
+def _number(text: str, dimension: str, option: str, minimum: float | None = 0.0) -> float:
+    """A value in the trace's units; a bare number is allowed (invented data may be in
+    arbitrary units), but it must be finite and >= ``minimum``."""
     text = text.strip()
     if dimension == "db" and text.lower().endswith("db"):
         text, dimension = text[:-2], "dimensionless"
-    try:
-        return parse_quantity(text, "dimensionless" if dimension == "db" else dimension)
-    except InputError as exc:
-        raise InputError(f"{option}: {exc.message}", hint=exc.hint) from None
+    return parse_quantity(text, "dimensionless" if dimension == "db" else dimension,
+                          minimum=minimum, name=option)
 
 
 def handle_ringdown(args: argparse.Namespace) -> int:

@@ -26,7 +26,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         epilog=EXAMPLES,
         formatter_class=HelpFormatter,
     )
-    parser.add_argument("--freq", type=quantity("frequency"), required=True,
+    parser.add_argument("--freq", type=quantity("frequency", positive=True), required=True,
                         help="mode frequency, e.g. 6.8GHz")
     parser.add_argument("--temp", type=quantity("temperature"), action="append", default=None,
                         help="bath temperature, e.g. 40mK (repeat for several)")

@@ -22,7 +22,15 @@ from numpy.typing import ArrayLike
 
 from cavchar.errors import InputError
 from cavchar.records import JumpRecord, SampledRecord
-from cavchar.simulate._common import Seed, check_physics, rng_from, truth_metadata
+from cavchar.simulate._common import (
+    MAX_JUMPS,
+    MAX_ROWS,
+    Seed,
+    check_physics,
+    check_size,
+    rng_from,
+    truth_metadata,
+)
 
 __all__ = [
     "jump_path",
@@ -117,6 +125,7 @@ def jump_path(
     """
     a, b = kappa * n_th, kappa * (1.0 + n_th)
     expected = (t_end - t_start) * 2.0 * a * (1.0 + n_th) + 2.0 * n0
+    check_size(expected, "photon-number jumps", MAX_JUMPS, _JUMPS_HINT)
     block = int(min(max(1.1 * expected + 5.0 * math.sqrt(expected), 4096), 1 << 20))
     kernel = _kernel() if compiled else _gillespie_steps
     times, photons = [np.array([t_start], float)], [np.array([n0], np.int64)]
@@ -130,6 +139,10 @@ def jump_path(
         times.append(out_t[:k])
         photons.append(out_n[:k])
     return np.concatenate(times), np.concatenate(photons)
+
+
+_JUMPS_HINT = ("the expected number of jumps is 2 n_th (1 + n_th) duration / lifetime; "
+               "check the units of --duration, --lifetime and --n-thermal")
 
 
 def _initial(initial: int | None, n_th: float, rng: np.random.Generator) -> int:
@@ -177,6 +190,8 @@ def simulate_jump_record(
     kappa = check_physics(lifetime, n_th)
     if not (math.isfinite(duration) and duration > 0) or segments < 1 or gap < 0:
         raise InputError("duration must be > 0, segments >= 1 and gap >= 0")
+    check_size(segments * duration * 2.0 * kappa * n_th * (1.0 + n_th), "photon-number jumps",
+               MAX_JUMPS, _JUMPS_HINT)
     rng = rng_from(seed)
     times, photons, ids, ends = [], [], [], []
     for j in range(int(segments)):
@@ -213,6 +228,9 @@ def probe_times(
     """
     if not (duration > 0 and interval > 0) or segments < 1:
         raise InputError("duration and interval must be > 0 and segments >= 1")
+    check_size(segments * (duration / interval + 1), "probe times", MAX_ROWS,
+               "the number of probes is duration / interval per segment; check the units of "
+               "--duration and --interval")
     if spacing not in ("regular", "poisson"):
         raise InputError(f"unknown spacing {spacing!r}", hint="use regular or poisson")
     rng = rng_from(seed)

@@ -15,7 +15,15 @@ from numpy.typing import ArrayLike
 from cavchar.decay import initial_distribution, ringdown_mean
 from cavchar.errors import InputError
 from cavchar.records import RingdownTrace
-from cavchar.simulate._common import Seed, check_physics, rng_from, truth_metadata
+from cavchar.simulate._common import (
+    MAX_CELLS,
+    MAX_ROWS,
+    Seed,
+    check_physics,
+    check_size,
+    rng_from,
+    truth_metadata,
+)
 
 __all__ = ["simulate_ringdown"]
 
@@ -94,6 +102,8 @@ def simulate_ringdown(
     times = np.asarray(times, dtype=float)
     if times.ndim != 1 or times.size == 0 or traces < 1 or noise < 0:
         raise InputError("give at least one time, traces >= 1 and noise >= 0")
+    check_size(float(traces) * times.size, "trace points", MAX_ROWS,
+               "reduce --points or --traces")
     rng = rng_from(seed)
     m = times.size
     shape = (int(traces), m)
@@ -147,6 +157,13 @@ def _population_counts(kappa, n_th, p0, delays, shots, n_levels, shape, rng) -> 
         raise InputError("populations are simulated for times after t0 only")
     if int(shots) != shots or shots < 1:
         raise InputError(f"shots must be a whole number >= 1, not {shots}")
+    from cavchar.dynamics import check_levels, truncation_levels
+
+    if n_levels is None:
+        n_levels = max(truncation_levels(n_th, p0.size - 1), p0.size)
+    n_levels = check_levels(max(int(n_levels), p0.size), n_th)
+    check_size(float(shape[0]) * delays.size * n_levels, "population counts", MAX_CELLS,
+               "reduce --points, --traces or --levels")
     p = populations(kappa, n_th, p0, delays, n_levels=n_levels)  # (m, N)
     p = np.clip(p, 0.0, None)
     p /= p.sum(axis=1, keepdims=True)
