@@ -29,6 +29,7 @@ _PUBLIC = {
     "plan_jumps": "cavchar.plan",
     "plan_probes": "cavchar.plan",
     "plan_ringdown": "cavchar.plan",
+    "fit_many": "cavchar.batch.runner",
 }
 
 __all__ = ["__version__", *_PUBLIC]

@@ -26,7 +26,7 @@ from cavchar.errors import CavcharError, CavcharWarning
 #: sub-command modules, in the order ``--help`` lists them
 COMMAND_MODULES = (
     "demo", "fit", "simulate", "thermal", "plan", "report",
-    "log", "trend", "qualify", "budget",
+    "log", "trend", "qualify", "budget", "batch",
 )
 
 

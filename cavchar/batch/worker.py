@@ -1,0 +1,137 @@
+"""What a Dask worker runs for one batch entry: the fit and its output files, as data.
+
+The worker writes nothing the user keeps: it fits, renders the single-fit outputs
+(:func:`cavchar.fits.outputs.write_fit_outputs`) into a private temporary folder,
+reads them back as bytes and returns them with the result object.  The client
+writes them into the entry's folder and the log, so a cluster needs no shared
+output folder and the log has one writer.  Every failure of the fit becomes data
+(status, exit class, message), never an exception of the task, so one bad record
+cannot stop the others.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+import time
+import traceback
+import warnings
+from pathlib import Path
+from typing import Any
+
+__all__ = ["run_entry", "EVENT_TOPIC", "STATUS_OK", "STATUS_BAD_INPUT",
+           "STATUS_NOT_CONVERGED", "STATUS_ERROR"]
+
+#: topic of the worker events that count the attempts of each entry
+EVENT_TOPIC = "cavchar-batch-attempt"
+
+STATUS_OK = "fitted"
+STATUS_BAD_INPUT = "bad input"
+STATUS_NOT_CONVERGED = "not converged"
+STATUS_ERROR = "internal error"
+
+
+def _announce(label: str, run: str | None) -> str | None:
+    """Tell the scheduler this worker starts ``label`` (for the attempt count)."""
+    try:
+        from distributed import get_worker
+
+        worker = get_worker()
+    except (ImportError, ValueError):
+        return None
+    try:
+        worker.log_event(EVENT_TOPIC, {"label": label, "run": run,
+                                       "worker": worker.address})
+    except Exception:  # the count is information only; the fit goes on without it
+        pass
+    return worker.address
+
+
+def _one_thread() -> None:
+    """One numba thread per worker: the cluster already runs one worker per core."""
+    if os.environ.get("NUMBA_NUM_THREADS"):
+        return
+    try:
+        import numba
+
+        numba.set_num_threads(1)
+    except (ImportError, ValueError):
+        pass
+
+
+def _read_outputs(folder: Path) -> dict[str, bytes]:
+    return {p.name: p.read_bytes() for p in sorted(folder.iterdir()) if p.is_file()}
+
+
+def run_entry(task: dict[str, Any]) -> dict[str, Any]:
+    """Fit one entry and return its outcome (a plain dict).
+
+    Parameters
+    ----------
+    task
+        ``label``, ``kind``, ``argv`` (the ``cavchar fit`` arguments without the
+        seed), ``seed``, ``check_every``, ``outputs`` (render the output files),
+        ``figures`` (draw the figures among them), ``single_thread``.
+
+    Returns
+    -------
+    dict
+        ``label``, ``status`` (fitted / bad input / not converged / internal
+        error), ``exit_class`` (0, 2, 3 or 1 as the single-record command),
+        ``message``, ``result`` (FitResult or None), ``files`` (name -> bytes),
+        ``warnings`` (texts), ``wall_s`` (s), ``worker`` (address or None).
+    """
+    from cavchar.batch.options import fit_from_argv
+    from cavchar.errors import CavcharError, ConvergenceError, InputError
+
+    label = task["label"]
+    worker = _announce(label, task.get("run"))
+    if task.get("single_thread", worker is not None):
+        _one_thread()
+    start = time.perf_counter()
+    outcome: dict[str, Any] = {"label": label, "status": STATUS_OK, "exit_class": 0,
+                               "message": "", "result": None, "files": {}, "warnings": [],
+                               "wall_s": 0.0, "worker": worker}
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            result, trajectory = fit_from_argv(task["kind"], list(task["argv"]), task["seed"],
+                                               task.get("check_every"))
+            outcome["result"] = result
+            if task.get("outputs", True):
+                outcome["files"] = _render(result, trajectory, task.get("figures", True))
+        except InputError as exc:
+            outcome.update(status=STATUS_BAD_INPUT, exit_class=exc.exit_code, message=str(exc))
+        except ConvergenceError as exc:
+            outcome.update(status=STATUS_NOT_CONVERGED, exit_class=exc.exit_code,
+                           message=str(exc))
+        except CavcharError as exc:
+            outcome.update(status=STATUS_ERROR, exit_class=exc.exit_code, message=str(exc))
+        except Exception as exc:  # a bug: reported with its traceback, the batch goes on
+            outcome.update(status=STATUS_ERROR, exit_class=1,
+                           message=f"internal error ({type(exc).__name__}: {exc})",
+                           traceback=traceback.format_exc())
+    texts = []
+    for item in caught:
+        text = str(item.message)
+        if text not in texts:
+            texts.append(text)
+    outcome["warnings"] = texts
+    outcome["wall_s"] = time.perf_counter() - start
+    return outcome
+
+
+def _render(result, trajectory, figures: bool) -> dict[str, bytes]:
+    """The single-fit output files as bytes (written into a private temporary folder)."""
+    from cavchar.fits.outputs import write_fit_outputs
+
+    with tempfile.TemporaryDirectory(prefix="cavchar-batch-") as tmp:
+        folder = Path(tmp)
+        write_fit_outputs(result, folder, figures=figures)
+        if trajectory is not None:
+            from cavchar.fits.probe_trajectory import viterbi_jump_record, write_trajectory
+            from cavchar.io.writers import write_jump_record
+
+            write_trajectory(trajectory, folder / "trajectory.csv")
+            write_jump_record(viterbi_jump_record(trajectory), folder / "viterbi_jumps.csv")
+        return _read_outputs(folder)
