@@ -142,11 +142,11 @@ def test_cli_fit_writes_outputs_and_refuses_overwrite(tmp_path, run_cli):
 
 def test_cli_not_converged_exit_3(tmp_path, run_cli):
     path = _write_record(tmp_path)
-    code, _, stderr = run_cli("fit", "jumps", path, "--max-steps", "60", "--quiet")
+    code, _, stderr = run_cli("fit", "jumps", path, "--max-steps", "100", "--quiet")
     assert code == 3 and "Traceback" not in stderr
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        code, _, _ = run_cli("fit", "jumps", path, "--max-steps", "60", "--quiet",
+        code, _, _ = run_cli("fit", "jumps", path, "--max-steps", "100", "--quiet",
                              "--allow-unconverged")
     assert code == 0
 

@@ -1,9 +1,12 @@
 """The report opens cleanly in a real browser: headless Chromium renders it with the
 network blocked, and every figure decodes (non-zero natural width).
 
-The page's own script writes ``data-figures-total`` and ``data-figures-loaded`` on
-``<body>`` after the load event; ``--dump-dom`` prints the DOM after that.  Skipped,
-with the reason, when no Chromium is installed (``apt-get install chromium``).
+The report itself runs no script (its Content-Security-Policy forbids them), so the
+test renders a copy into which it puts a probe script and a policy that allows only
+that script: after the load event the probe writes ``data-figures-total`` and
+``data-figures-loaded`` on ``<body>``, and ``--dump-dom`` prints the DOM after that.
+A control renders the probe under the report's own policy and checks it never runs.
+Skipped, with the reason, when no Chromium is installed (``apt-get install chromium``).
 """
 
 from __future__ import annotations
@@ -44,7 +47,23 @@ def report_file(tmp_path_factory) -> Path:
     return write_report([result], folder / "report.html")
 
 
-def _render(browser: str, page: Path, profile: Path) -> tuple[str, int, int]:
+_PROBE = ("<script>addEventListener('load', () => {const images = [...document.images];"
+          "document.body.dataset.figuresTotal = images.length;"
+          "document.body.dataset.figuresLoaded = images.filter("
+          "i => i.complete && i.naturalWidth > 0).length;});</script>")
+
+
+def _with_probe(text: str, page: Path, *, keep_policy: bool = False) -> Path:
+    """A copy of the report with the probe script (and, unless kept, a policy allowing it)."""
+    if not keep_policy:  # the attribute's quotes may be written as &#39;
+        text, count = re.subn(r"script-src (&#39;|')none(&#39;|')",
+                              "script-src 'unsafe-inline'", text)
+        assert count == 1, "the report's policy should name script-src 'none' once"
+    page.write_text(text.replace("</body>", _PROBE + "</body>"), encoding="utf-8")
+    return page
+
+
+def _dump(browser: str, page: Path, profile: Path) -> str:
     command = [
         browser, "--headless", "--no-sandbox", "--disable-gpu",
         "--disable-background-networking", "--disable-component-update", "--no-first-run",
@@ -55,7 +74,11 @@ def _render(browser: str, page: Path, profile: Path) -> tuple[str, int, int]:
     ]
     done = subprocess.run(command, capture_output=True, text=True, timeout=180)
     assert done.returncode == 0, done.stderr[-2000:]
-    dom = done.stdout
+    return done.stdout
+
+
+def _render(browser: str, page: Path, profile: Path) -> tuple[str, int, int]:
+    dom = _dump(browser, page, profile)
     body = re.search(r"<body([^>]*)>", dom)
     assert body, "no <body> in the rendered page"
     total = re.search(r'data-figures-total="(\d+)"', body.group(1))
@@ -74,7 +97,8 @@ def _need_browser() -> str:
 
 def test_report_renders_in_headless_chromium(report_file, tmp_path):
     browser = _need_browser()
-    dom, total, loaded = _render(browser, report_file, tmp_path / "profile")
+    page = _with_probe(report_file.read_text(encoding="utf-8"), tmp_path / "probed.html")
+    dom, total, loaded = _render(browser, page, tmp_path / "profile")
     n_images = len(re.findall(r"<img\b", report_file.read_text(encoding="utf-8")))
     assert total == n_images >= 4
     assert loaded == n_images, "some figure did not load"
@@ -87,7 +111,16 @@ def test_a_broken_figure_is_noticed(report_file, tmp_path):
     text = report_file.read_text(encoding="utf-8")
     spoiled = re.sub(r'src="data:image/png;base64,[^"]*"', 'src="data:image/png;base64,AAAA"',
                      text, count=1)
-    page = tmp_path / "spoiled.html"
-    page.write_text(spoiled, encoding="utf-8")
+    page = _with_probe(spoiled, tmp_path / "spoiled.html")
     _, total, loaded = _render(browser, page, tmp_path / "profile")
     assert loaded == total - 1
+
+
+def test_the_report_policy_stops_scripts(report_file, tmp_path):
+    """Control: under the report's own Content-Security-Policy the probe never runs."""
+    browser = _need_browser()
+    page = _with_probe(report_file.read_text(encoding="utf-8"), tmp_path / "kept.html",
+                       keep_policy=True)
+    dom = _dump(browser, page, tmp_path / "profile")
+    body = re.search(r"<body([^>]*)>", dom)
+    assert body and "data-figures-total" not in body.group(1)
