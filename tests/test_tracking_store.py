@@ -383,3 +383,11 @@ def test_fit_log_options(tmp_path, capsys):
     assert "logged as fit 1 (cavity A, cooldown cd1)" in capsys.readouterr().out
     with open_log(tmp_path / "l.sqlite", create=False) as log:
         assert log.fit(fit_id).cavity == "A"
+
+
+def test_every_public_tracking_name_imports():
+    """The lazy name map of cavchar.tracking points at modules that define each name."""
+    import cavchar.tracking as tracking
+
+    for name in tracking.__all__:
+        assert getattr(tracking, name) is not None
