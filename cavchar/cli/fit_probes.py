@@ -165,6 +165,24 @@ def response_lines(description: dict) -> list[str]:
     return lines
 
 
+def check_lines(check: dict | None) -> list[str]:
+    """The posterior predictive check of a probe fit in words."""
+    if not check:
+        return []
+    head = (f"model check (posterior predictive, {check['replicates']} replicated records, "
+            f"{len(check['statistics'])} statistics, false-alarm rate "
+            f"{check['family_alpha']:g}): ")
+    if not check["misfit"]:
+        worst = min(check["statistics"], key=lambda row: row["normal_tail_p_value"])
+        return [head + f"no misfit (most extreme: {worst['statistic']}, z = "
+                f"{worst['z'] if worst['z'] is not None else float('nan'):+.1f})"]
+    lines = [head + "MISFIT - the record does not look like the fitted model"]
+    lines += [f"  {flag}" for flag in check["flags"]]
+    lines.append("  check the probe response (visibility, readout errors, phases): state only "
+                 "what is calibrated and let the fit find the rest")
+    return lines
+
+
 def handle(args: argparse.Namespace) -> int:
     from pathlib import Path
 
@@ -200,6 +218,8 @@ def handle(args: argparse.Namespace) -> int:
     if bias:
         print(f"coarse mode: blocks of {bias['block_probes']} probes; bias bound "
               f"{bias['bias_bound_sd']:.3f} posterior sd (checked on {bias['n_checked']} draws)")
+    for line in check_lines(result.checks.get("posterior_predictive")):
+        print(line)
     code = finish_fit_command(result, args)
     if args.out:
         out = Path(args.out)

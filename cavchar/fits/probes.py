@@ -6,7 +6,13 @@ samples the posterior of ``(T_c, n_th, fitted response parameters)`` with the
 common emcee driver and returns a :class:`cavchar.result.FitResult` with the
 derived quantities, the Planck check, the truncation used and the
 reconstructed trajectory (an excerpt in the result; the whole of it through
-:func:`cavchar.fits.probe_trajectory.reconstruct_trajectory`).
+:func:`cavchar.fits.probe_trajectory.reconstruct_trajectory`) and a posterior
+predictive check of the outcomes (:mod:`cavchar.fits.probe_check`, under
+``checks["posterior_predictive"]``; a misfit warns).
+
+A visibility or readout error the response does not state is fitted with its
+default prior (:data:`cavchar.models.response.DEFAULT_FIT_PRIORS`): a perfect
+probe is never assumed unless stated.
 
 Modes: ``"exact"`` (forward algorithm over every probe), ``"coarse"`` (blocks
 of probes, :mod:`cavchar.models.probe_blocks`, with its bias measured against
@@ -27,6 +33,7 @@ import numpy as np
 
 from cavchar.errors import CavcharWarning, InputError, PriorDominatedWarning
 from cavchar.fits.common import FitContext, finish_fit, sampler_settings
+from cavchar.fits.probe_check import probe_predictive_check
 from cavchar.fits.probe_trajectory import reconstruct_trajectory
 from cavchar.inference import SamplerSettings, sample_posterior
 from cavchar.models.probe_blocks import (
@@ -309,6 +316,9 @@ def _fit(record, *, response=None, freq_hz=None, stage_temp_k=None, priors=None,
                           f"sd exceeds {BIAS_LIMIT_SD}; refit with mode='exact' (--exact) or "
                           "smaller blocks", CavcharWarning, stacklevel=2)
     _warn_prior_dominated(run, specs)
+    rng = np.random.default_rng(np.random.SeedSequence(run.settings.seed).spawn(6)[5])
+    checks["posterior_predictive"] = probe_predictive_check(record, response, run.draws, rng,
+                                                            initial=initial)
     traj = reconstruct_trajectory(exact, run.draws, TRAJECTORY_DRAWS)
     n = min(EXCERPT_PROBES, traj.time.size)
     extras["trajectory_excerpt"] = {
