@@ -173,3 +173,41 @@ def test_predictive_check_false_alarm_rate_over_many_records():
         alarms += quiet_fit(rec, TRUE_RESPONSE, seed=seed).checks["posterior_predictive"][
             "misfit"]
     assert alarms <= 1, alarms
+
+
+def test_check_statistics_equal_their_definitions_written_as_loops():
+    """The vectorized statistics against plain loops over the probes (the definitions in
+    cavchar.fits.probe_check), on a record with lost probes, three segments and two
+    interleaved settings."""
+    from cavchar.fits.probe_check import probe_record_statistics
+
+    rec, _ = simulate_probe_record(LIFETIME, N_TH, 1e-3 * np.arange(3000), TRUE_RESPONSE,
+                                   seed=3, loss=0.1, segment=np.repeat([0, 1, 2], 1000),
+                                   settings=[0.0, 0.5])
+    stats = probe_record_statistics(rec)
+    y, seg, s = rec.outcome, rec.segment, rec.setting
+    kept = np.flatnonzero(~np.isnan(y))
+    means = {v: float(np.nanmean(y[s == v])) for v in (0.0, 0.5)}
+    assert stats["fraction_of_ones[0]"] == pytest.approx(means[0.0], rel=1e-12)
+    assert stats["fraction_of_ones[1]"] == pytest.approx(means[0.5], rel=1e-12)
+    centred = {i: y[i] - means[s[i]] for i in kept}
+    var = sum(c * c for c in centred.values()) / len(centred)
+    for lag in (1, 2, 5, 10, 20, 50, 100):
+        prods = [centred[i] * centred[i + lag] for i in kept
+                 if i + lag in centred and seg[i] == seg[i + lag]]
+        assert stats[f"autocorrelation_lag_{lag}"] == pytest.approx(
+            sum(prods) / len(prods) / var, rel=1e-9)
+    runs, switches, current = [], [], 1
+    for a, b in zip(kept[:-1], kept[1:], strict=True):
+        if seg[a] == seg[b]:
+            switches.append(y[a] != y[b])
+        if y[a] == y[b] and seg[a] == seg[b]:
+            current += 1
+        else:
+            runs.append(current)
+            current = 1
+    runs.append(current)
+    assert stats["switch_fraction"] == pytest.approx(np.mean(switches), rel=1e-12)
+    assert stats["single_probe_runs"] == pytest.approx(np.mean(np.array(runs) == 1), rel=1e-12)
+    blocks = [np.mean([centred[i] for i in part]) for part in np.array_split(kept, 10)]
+    assert stats["block_spread"] == pytest.approx(np.std(blocks), rel=0.01)

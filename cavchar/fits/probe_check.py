@@ -78,15 +78,15 @@ class _Layout:
         self.n_settings = int(setting_index.max()) + 1
         self.block = np.minimum(np.arange(self.keep.size) * BLOCKS // self.keep.size,
                                 BLOCKS - 1)
+        self.block_starts = np.searchsorted(self.block, np.arange(BLOCKS))
+        self.block_counts = np.bincount(self.block, minlength=BLOCKS)
         self.lags = [lag for lag in LAGS if lag < m / 20]
-        self.lag_pairs = []
+        self.m = m
+        # pair (i, i + lag) of probe indices counts when both are kept and in one segment
+        self.lag_weights = []
         for lag in self.lags:
-            a = np.arange(m - lag)
-            ok = keep[a] & keep[a + lag] & (seg[a] == seg[a + lag])
-            # positions in the kept sequence
-            pos = np.full(m, -1, dtype=np.int32)
-            pos[self.keep] = np.arange(self.keep.size, dtype=np.int32)
-            self.lag_pairs.append((pos[a[ok]], pos[a[ok] + lag]))
+            ok = keep[:-lag] & keep[lag:] & (seg[:-lag] == seg[lag:])
+            self.lag_weights.append(ok.astype(float))
 
     def names(self) -> list[str]:
         out = [f"fraction_of_ones[{s}]" for s in range(self.n_settings)]
@@ -105,9 +105,7 @@ def _statistics(y: np.ndarray, lay: _Layout) -> np.ndarray:
         mean = y[:, mask].mean(axis=1) if mask.any() else np.full(r, np.nan)
         cols.append(mean)
         centred[:, mask] = y[:, mask] - mean[:, None]
-    counts = np.bincount(lay.block, minlength=BLOCKS)
-    block_means = np.stack([np.bincount(lay.block, weights=row, minlength=BLOCKS) / counts
-                            for row in centred])
+    block_means = np.add.reduceat(centred, lay.block_starts, axis=1) / lay.block_counts
     cols.append(block_means.std(axis=1))
     differ = y[:, 1:] != y[:, :-1]
     pairs = max(int(lay.same.sum()), 1)
@@ -120,9 +118,13 @@ def _statistics(y: np.ndarray, lay: _Layout) -> np.ndarray:
     nxt[:, :-1] = start[:, 1:]
     cols.append((start & nxt).sum(axis=1) / start.sum(axis=1))
     var = (centred * centred).mean(axis=1)
-    for a, b in lay.lag_pairs:
-        if a.size:
-            cov = (centred[:, a] * centred[:, b]).mean(axis=1)
+    full = np.zeros((r, lay.m))  # centred outcomes at every probe, 0 where lost
+    full[:, lay.keep] = centred
+    for weight in lay.lag_weights:
+        lag = lay.m - weight.size
+        pairs = weight.sum()
+        if pairs > 0:
+            cov = (full[:, :-lag] * full[:, lag:]) @ weight / pairs
             cols.append(np.where(var > 0, cov / np.where(var > 0, var, 1.0), 0.0))
         else:
             cols.append(np.full(r, np.nan))
