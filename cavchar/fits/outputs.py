@@ -96,12 +96,7 @@ def fit_figures(result: FitResult) -> dict:
     figures = {}
     module_name = FIGURE_MODULES.get(result.kind.split("-")[0])
     if module_name is not None:
-        try:
-            module = importlib.import_module(module_name)
-        except ModuleNotFoundError:
-            module = None
-        if module is not None and hasattr(module, "figures"):
-            figures.update(module.figures(result))
+        figures.update(importlib.import_module(module_name).figures(result))
     figures["corner"] = corner_plot(result)
     figures["traces"] = trace_plot(result)
     return figures

@@ -7,7 +7,6 @@ with a table and, where :mod:`cavchar.plots.trend` offers one, a figure.
 
 from __future__ import annotations
 
-import importlib.util
 from collections.abc import Callable
 from typing import Any
 
@@ -18,14 +17,6 @@ from cavchar.report.text import esc, format_interval_row, format_quantity_text, 
 __all__ = ["section_for", "trend_section", "qualification_section", "budget_section"]
 
 FigureHtml = Callable[[Figure], str]
-
-
-def _trend_plots():
-    if importlib.util.find_spec("cavchar.plots.trend") is None:
-        return None
-    import cavchar.plots.trend as module
-
-    return module
 
 
 def _styled(plot, obj):
@@ -74,13 +65,13 @@ def trend_section(trend: Any, figure_html: FigureHtml) -> Section:
              "draws with the reference's (± its Monte Carlo error).</p>",
              table_html(header, rows, css_class="grid summary")]
     parts += [f'<p class="note">{esc(n)}</p>' for n in trend.notes]
-    plots = _trend_plots()
-    if plots is not None and hasattr(plots, "plot_trend"):
-        parts.append(figure_html(Figure(
-            f"Trend of cavity {trend.cavity} across cooldowns",
-            "Median with 68% (thick) and 95% (thin) intervals per cooldown; the lifetime points "
-            "carry the probability that the lifetime fell against the reference.",
-            _styled(plots.plot_trend, trend))))
+    from cavchar.plots.trend import plot_trend
+
+    parts.append(figure_html(Figure(
+        f"Trend of cavity {trend.cavity} across cooldowns",
+        "Median with 68% (thick) and 95% (thin) intervals per cooldown; the lifetime points "
+        "carry the probability that the lifetime fell against the reference.",
+        _styled(plot_trend, trend))))
     return Section(f"Trend across cooldowns: {trend.cavity}", "".join(parts), "trend")
 
 
@@ -146,12 +137,12 @@ def budget_section(budget: Any, figure_html: FigureHtml) -> Section:
              table_html(["budget parameter", "median [95%]", "converged"], params,
                         css_class="grid")]
     parts += [f'<p class="note">{esc(n)}</p>' for n in budget.notes]
-    plots = _trend_plots()
-    if plots is not None and hasattr(plots, "plot_budget"):
-        parts.append(figure_html(Figure(
-            "Thermal photons against stage temperature",
-            "Measured n_th (68% and 95% intervals), the Planck occupation of the stage and the "
-            "stated budget model (median and 95% band).", _styled(plots.plot_budget, budget))))
+    from cavchar.plots.trend import plot_budget
+
+    parts.append(figure_html(Figure(
+        "Thermal photons against stage temperature",
+        "Measured n_th (68% and 95% intervals), the Planck occupation of the stage and the "
+        "stated budget model (median and 95% band).", _styled(plot_budget, budget))))
     return Section("Thermal budget", "".join(parts), "budget")
 
 
