@@ -4,7 +4,6 @@ and through the command line exit code 2 with no traceback."""
 from __future__ import annotations
 
 import gzip
-import importlib.util
 
 import numpy as np
 import pytest
