@@ -25,7 +25,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from cavchar.derived import COLUMN_INFO, CREDIBLE_68, add_derived_quantities, planck_check
+from cavchar.derived import COLUMN_INFO, QUANTILES_68, add_derived_quantities, planck_check
 from cavchar.errors import InputError
 from cavchar.parameters import ParameterSpec
 
@@ -42,7 +42,7 @@ _SCHEMA_NAME, _KNOWN_MAJORS = "cavchar-fit-result", (1,)
 BOOKKEEPING = ("log_posterior", "log_likelihood")
 
 _SUMMARY_COLUMNS = ["unit", "median", "mean", "sd", "lo68", "hi68", "lo95", "hi95", "map"]
-_Q68 = ((1 - CREDIBLE_68) / 2, (1 + CREDIBLE_68) / 2)
+_Q68 = QUANTILES_68
 
 
 def to_plain_json(value: Any) -> Any:

@@ -31,6 +31,7 @@ from typing import Any
 import numpy as np
 
 from cavchar.errors import CavcharError, CavcharWarning
+from cavchar.quantities import QUANTILES_68
 
 __all__ = ["Figure", "kind_family", "load_input_record", "data_figures", "sampler_figures",
            "comparison_figure"]
@@ -282,7 +283,7 @@ def comparison_figure(results: Sequence[Any], labels: Sequence[str]):
                 if values is None:
                     continue
                 lo95, lo68, med, hi68, hi95 = np.quantile(
-                    values * factor, [0.025, 0.15865, 0.5, 0.84135, 0.975])
+                    values * factor, [0.025, QUANTILES_68[0], 0.5, QUANTILES_68[1], 0.975])
                 style = series(i, line=False)
                 ax.plot([i, i], [lo95, hi95], color=style["color"], lw=1.0, linestyle="-",
                         solid_capstyle="butt")
