@@ -28,6 +28,7 @@ import pandas as pd
 from cavchar.derived import COLUMN_INFO, QUANTILES_68, add_derived_quantities, planck_check
 from cavchar.errors import InputError
 from cavchar.parameters import ParameterSpec
+from cavchar.units import decimals_for
 
 if TYPE_CHECKING:
     from cavchar.inference.sampler import PosteriorRun
@@ -466,19 +467,6 @@ def _dump(data: dict[str, Any]) -> str:
     return "{\n" + ",\n".join(parts) + "\n}\n"
 
 
-def _pdg_decimals(error: float) -> int:
-    """Decimals that round ``error`` per the Particle Data Group rule (see one_line)."""
-    exponent = math.floor(math.log10(error))
-    lead = int(error / 10 ** (exponent - 2))  # three leading digits, 100..999
-    if lead >= 950:
-        exponent, sig = exponent + 1, 2
-    elif lead >= 355:
-        sig = 1
-    else:
-        sig = 2
-    return sig - 1 - exponent
-
-
 def _scaled(median: float, plus: float, minus: float, dimension: str
             ) -> tuple[str, str, str, str]:
     """Median and errors as strings in one display unit (prefix or power of ten)."""
@@ -499,7 +487,7 @@ def _scaled(median: float, plus: float, minus: float, dimension: str
         suffix = f" {unit}" if unit else ""
     med, p, m = median / factor, plus / factor, minus / factor
     smaller = min(p, m)
-    decimals = _pdg_decimals(smaller) if smaller > 0 and math.isfinite(smaller) else 3
+    decimals = decimals_for(smaller)
     if decimals < 0:  # errors of tens or more in this unit: round to that place
         step = 10.0**-decimals
         med, p, m = (round(v / step) * step for v in (med, p, m))
