@@ -9,7 +9,7 @@ from cavchar.units import parse_quantity
 
 __all__ = ["quantity", "add_output_options", "add_sampler_options", "add_fit_context_options",
            "settings_from_args", "rate_priors_from_args", "check_outputs", "finish_fit_command",
-           "HelpFormatter"]
+           "HelpFormatter", "add_layout_options", "laid_out"]
 
 
 class HelpFormatter(argparse.ArgumentDefaultsHelpFormatter, argparse.RawDescriptionHelpFormatter):
@@ -128,6 +128,48 @@ def add_fit_context_options(parser: argparse.ArgumentParser) -> None:
                         "when they are new (without it they must exist; checked before the fit)")
     parser.add_argument("--report", action="store_true",
                         help="also write a self-contained HTML report into the output folder")
+
+
+def add_layout_options(parser: argparse.ArgumentParser, *, trace: bool = False,
+                       exact_rows: bool = False) -> None:
+    """How to read an instrument's file: ``--column``, ``--skip-rows``, ``--delimiter``,
+    ``--decimal`` (and ``--trace`` for ring-downs, ``--rows-are-changes`` for exact
+    jump records); see :class:`cavchar.io.tables.layout.FileLayout`."""
+    group = parser.add_argument_group(
+        "file layout", "what cannot be detected in an instrument's file (by default the "
+        "header row, delimiter and decimal mark are found by themselves)")
+    group.add_argument("--column", action="append", default=[], metavar="NAME=HEADER",
+                       help='read the file\'s column HEADER as cavchar\'s column NAME, e.g. '
+                       '--column time="Time (s)" (repeatable; other columns are then ignored)')
+    group.add_argument("--skip-rows", type=whole(0, 10**6), default=None, metavar="N",
+                       help="lines above the header to skip (an instrument's preamble); "
+                       "unset: the header row is found")
+    group.add_argument("--delimiter", default=None, metavar="SEP",
+                       help="comma, semicolon, tab or whitespace; unset: detected")
+    group.add_argument("--decimal", default=None, metavar="MARK",
+                       help="decimal mark: point or comma; unset: detected")
+    if trace:
+        group.add_argument("--trace", default=None, metavar="ID|HEADER",
+                           help="fit one trace of a file with several: an id of the trace "
+                           "column or the header of a value column")
+    if exact_rows:
+        group.add_argument("--rows-are-changes", action="store_true",
+                           help="the rows are exact change points even though they are evenly "
+                           "spaced and repeat photon numbers")
+
+
+def laid_out(path: str, args: argparse.Namespace):
+    """``path`` with the layout the options give (:class:`LaidOutPath`), or ``path``
+    itself when no layout option is given."""
+    from cavchar.io.tables.layout import FileLayout, LaidOutPath, parse_column_option
+
+    columns = dict(parse_column_option(text) for text in getattr(args, "column", []) or [])
+    layout = FileLayout(columns=columns, skip_rows=getattr(args, "skip_rows", None),
+                        delimiter=getattr(args, "delimiter", None),
+                        decimal=getattr(args, "decimal", None),
+                        trace=getattr(args, "trace", None),
+                        exact_rows=bool(getattr(args, "rows_are_changes", False)))
+    return LaidOutPath(path, layout) if layout.given else path
 
 
 def settings_from_args(args: argparse.Namespace):

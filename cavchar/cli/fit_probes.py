@@ -10,10 +10,12 @@ import sys
 from cavchar.cli.common import (
     HelpFormatter,
     add_fit_context_options,
+    add_layout_options,
     add_output_options,
     add_sampler_options,
     check_outputs,
     finish_fit_command,
+    laid_out,
     rate_priors_from_args,
     settings_from_args,
     whole,
@@ -90,6 +92,7 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
     parser.add_argument("--initial-photons", type=whole(0, MAX_INITIAL_PHOTONS), default=None,
                         metavar="N",
                         help="segments start in Fock state N; unset: thermal equilibrium")
+    add_layout_options(parser)
     add_fit_context_options(parser)
     add_sampler_options(parser)
     add_output_options(parser)
@@ -149,7 +152,7 @@ def handle(args: argparse.Namespace) -> int:
     if args.block_probes is not None and args.block_probes < 1:
         raise InputError("--block-probes must be at least 1")
     result, trajectory = fit_probes_with_trajectory(
-        args.record,
+        laid_out(args.record, args),
         response=response,
         freq_hz=args.freq,
         stage_temp_k=args.stage_temp,

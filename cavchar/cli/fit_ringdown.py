@@ -10,10 +10,12 @@ import sys
 from cavchar.cli.common import (
     HelpFormatter,
     add_fit_context_options,
+    add_layout_options,
     add_output_options,
     add_sampler_options,
     check_outputs,
     finish_fit_command,
+    laid_out,
     quantity,
     real,
     settings_from_args,
@@ -75,6 +77,7 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
                         help="prior of a parameter, e.g. lifetime=loguniform:10us,1s or "
                         "n_thermal=uniform:0,0.5 (repeatable; others default to wide "
                         "log-uniform ranges)")
+    add_layout_options(parser, trace=True)
     add_fit_context_options(parser)
     add_sampler_options(parser)
     add_output_options(parser)
@@ -131,7 +134,7 @@ def handle(args: argparse.Namespace) -> int:
     settings = dataclasses.replace(settings_from_args(args), chunk=DEFAULT_SETTINGS.chunk,
                                    target_ess=DEFAULT_SETTINGS.target_ess)
     result = fit_ringdown(
-        list(args.traces),
+        [laid_out(path, args) for path in args.traces],
         signal=args.signal,
         freq_hz=args.freq,
         stage_temp_k=args.stage_temp,
