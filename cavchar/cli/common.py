@@ -9,7 +9,7 @@ from cavchar.units import parse_quantity
 
 __all__ = ["quantity", "add_output_options", "add_sampler_options", "add_fit_context_options",
            "settings_from_args", "rate_priors_from_args", "check_outputs", "finish_fit_command",
-           "HelpFormatter", "add_layout_options", "laid_out"]
+           "HelpFormatter", "add_layout_options", "laid_out", "for_option"]
 
 
 class HelpFormatter(argparse.ArgumentDefaultsHelpFormatter, argparse.RawDescriptionHelpFormatter):
@@ -172,6 +172,19 @@ def laid_out(path: str, args: argparse.Namespace):
     return LaidOutPath(path, layout) if layout.given else path
 
 
+def for_option(flag: str, function: Callable, *args, **kwargs):
+    """``function(*args, **kwargs)``; an :class:`InputError` it raises names ``flag``
+    (``--prior-lifetime: cannot read prior ...``), so the user knows which option to fix."""
+    from cavchar.errors import InputError
+
+    try:
+        return function(*args, **kwargs)
+    except InputError as exc:
+        if exc.path is not None or exc.message.startswith(flag):
+            raise
+        raise InputError(f"{flag}: {exc.message}", line=exc.line, hint=exc.hint) from None
+
+
 def settings_from_args(args: argparse.Namespace):
     """:class:`cavchar.inference.SamplerSettings` from the sampler options."""
     from cavchar.inference import SamplerSettings
@@ -190,19 +203,24 @@ def rate_priors_from_args(args: argparse.Namespace, priors_class):
     priors = priors_class()
     lifetime, n_thermal = priors.lifetime, priors.n_thermal
     if args.prior_lifetime:
-        lifetime = parse_prior(args.prior_lifetime, "time")
+        lifetime = for_option("--prior-lifetime", parse_prior, args.prior_lifetime, "time")
     if args.prior_n_thermal:
         if args.prior_n_thermal.strip().lower() == "stage":
             if args.freq is None or args.stage_temp is None:
                 raise InputError("--prior-n-thermal stage needs --freq and --stage-temp")
             n_thermal = stage_occupation_prior(args.freq, args.stage_temp)
         else:
-            n_thermal = parse_prior(args.prior_n_thermal, "dimensionless", freq_hz=args.freq)
+            n_thermal = for_option("--prior-n-thermal", parse_prior, args.prior_n_thermal,
+                                   "dimensionless", freq_hz=args.freq)
     return priors_class(lifetime=lifetime, n_thermal=n_thermal)
 
 
 def check_outputs(args: argparse.Namespace) -> None:
     """Fail before a long fit when its main output exists and --force is not given."""
+    if getattr(args, "report", False) and not args.out:
+        from cavchar.errors import InputError
+
+        raise InputError("--report needs -o/--out DIR for the report file")
     if args.out:
         from pathlib import Path
 

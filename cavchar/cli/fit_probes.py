@@ -15,6 +15,7 @@ from cavchar.cli.common import (
     add_sampler_options,
     check_outputs,
     finish_fit_command,
+    for_option,
     laid_out,
     rate_priors_from_args,
     settings_from_args,
@@ -109,7 +110,7 @@ def _fringe_value(text: str, dimension: str, name: str):
     if text.lower() in ("pi", "+pi"):
         return math.pi
     if ":" in text:
-        return parse_prior(text, dimension)
+        return for_option(f"--{name.replace('_', '-')}", parse_prior, text, dimension)
     try:
         return parse_quantity(text, dimension)
     except InputError as exc:
@@ -131,7 +132,14 @@ def build_response(args: argparse.Namespace):
         raise InputError("--response-table cannot be combined with --response fringe")
     values = {name: _fringe_value(getattr(args, name), dim, name)
               for name, _, dim, _, _ in _FRINGE_OPTIONS}
-    return FringeResponse(**values)
+    try:
+        return FringeResponse(**values)
+    except InputError as exc:
+        for name, flag, _, _, _ in _FRINGE_OPTIONS:
+            if exc.message.startswith(name + " ") or exc.message.startswith(
+                    name.replace("_", " ") + " "):
+                raise InputError(f"{flag}: {exc.message}", hint=exc.hint) from None
+        raise
 
 
 def handle(args: argparse.Namespace) -> int:

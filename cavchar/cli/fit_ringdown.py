@@ -15,6 +15,7 @@ from cavchar.cli.common import (
     add_sampler_options,
     check_outputs,
     finish_fit_command,
+    for_option,
     laid_out,
     quantity,
     real,
@@ -122,15 +123,17 @@ def _priors(items: list[str], freq_hz: float | None) -> dict:
             raise InputError(f"cannot read --prior {item!r}",
                              hint="NAME=PRIOR, e.g. lifetime=loguniform:10us,1s")
         name = name.strip()
-        out[name] = parse_prior(text.strip(), dimensions.get(name, "dimensionless"),
-                                freq_hz=freq_hz)
+        out[name] = for_option(f"--prior {name}", parse_prior, text.strip(),
+                               dimensions.get(name, "dimensionless"), freq_hz=freq_hz)
     return out
 
 
 def handle(args: argparse.Namespace) -> int:
     from cavchar.fits.ringdown import DEFAULT_SETTINGS, fit_ringdown
+    from cavchar.fits.ringdown_data import time_factor
 
     check_outputs(args)
+    for_option("--time-unit", time_factor, args.time_unit)
     settings = dataclasses.replace(settings_from_args(args), chunk=DEFAULT_SETTINGS.chunk,
                                    target_ess=DEFAULT_SETTINGS.target_ess)
     result = fit_ringdown(

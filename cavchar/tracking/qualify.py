@@ -123,6 +123,9 @@ def parse_spec(text: str, path: str | os.PathLike | None = None) -> Spec:
     where = None if path is None else str(path)
     try:
         data = tomllib.loads(text)
+    except RecursionError:
+        raise InputError("the spec file is nested too deeply to read", path=where,
+                         hint="a spec holds one table per quantity with plain values") from None
     except tomllib.TOMLDecodeError as exc:
         match = re.search(r"line (\d+)", str(exc))
         raise InputError(f"not valid TOML ({exc})", path=where,
