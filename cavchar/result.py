@@ -255,8 +255,10 @@ class FitResult:
         for name in self.quantity_names():
             x = self.column(name)
             lo68, med, hi68, lo95, hi95 = np.quantile(x, [_Q68[0], 0.5, _Q68[1], 0.025, 0.975])
+            with np.errstate(over="ignore", invalid="ignore"):  # draws near 1e308: sd inf
+                mean, sd = float(np.mean(x)), float(np.std(x, ddof=1))
             rows[name] = {"unit": self.column_info(name)[0], "median": med,
-                          "mean": float(np.mean(x)), "sd": float(np.std(x, ddof=1)),
+                          "mean": mean, "sd": sd,
                           "lo68": lo68, "hi68": hi68, "lo95": lo95, "hi95": hi95,
                           "map": float(self.map_values.get(name, math.nan))}
         table = pd.DataFrame.from_dict(rows, orient="index", columns=_SUMMARY_COLUMNS)

@@ -171,6 +171,9 @@ def read_batch_file(path: str | os.PathLike, *, seed: int | None = None) -> Batc
             from None
     try:
         data = tomllib.loads(text)
+    except RecursionError:
+        raise InputError("the batch file is nested too deeply to read", path=file,
+                         hint="see docs/batch.md for the format") from None
     except tomllib.TOMLDecodeError as exc:
         match = re.search(r"line (\d+)", str(exc))
         raise InputError(f"not a valid TOML file: {exc}", path=file,

@@ -219,7 +219,16 @@ def _add(args: argparse.Namespace) -> int:
 
     entries = [read_result_file(path) for path in args.results]  # read all before writing
     on_duplicate = "keep" if args.keep_duplicate else "error"
-    with open_log(args.log_file) as log:
+    if not args.create:
+        from cavchar.errors import InputError
+        from cavchar.tracking.store import resolve_log_path
+
+        file = resolve_log_path(args.log_file)
+        if not file.exists():
+            raise InputError("there is no cooldown log here", path=file,
+                             hint="add --create to start a new log with these fits, or give "
+                             "--log-file")
+    with open_log(args.log_file, create=args.create) as log:
         with log.transaction() as con:  # all files or none
             ids = [log._add_fit_locked(con, entry, args.cavity, args.cooldown,
                                        stage_temp_k=args.stage_temp, create=args.create,

@@ -61,9 +61,15 @@ def planck_statement(planck: dict) -> str:
     probability 0.998; effective temperature 61 (+4/-3) mK"."""
     from cavchar.units import format_quantity
 
+    needed = ("stage_temperature_k", "prob_hotter_than_stage", "verdict")
+    if any(planck.get(key) is None for key in needed) or (
+            planck.get("effective_temperature_k") is None
+            and planck.get("effective_temperature_upper95_k") is None):
+        return "Planck check: incomplete in this result (fit again with --stage-temp)"
     stage = format_quantity(planck["stage_temperature_k"], "temperature")
     p_hot = planck["prob_hotter_than_stage"]
-    if planck.get("piles_up_at_zero") and "effective_temperature_upper95_k" in planck:
+    if (planck.get("piles_up_at_zero") and planck.get("effective_temperature_upper95_k")
+            is not None) or planck.get("effective_temperature_k") is None:
         limit = format_quantity(planck["effective_temperature_upper95_k"], "temperature")
         temp = f"effective temperature below {limit} (95% upper limit)"
     else:

@@ -522,6 +522,14 @@ def read_response_table(path: str | os.PathLike) -> ResponseTable:
         row = int(np.argmax(bad))
         raise table.error(f"p_one {p_one[row]} is not a probability", row,
                           hint="p_one must lie in [0, 1]")
+    from cavchar.dynamics import MAX_LEVELS
+
+    big = photons >= MAX_LEVELS
+    if big.any():
+        row = int(np.argmax(big))
+        raise table.error(f"photon number {photons[row]:g} is beyond the largest the models "
+                          f"follow ({MAX_LEVELS - 1})", row,
+                          hint="give the response up to the photon numbers that occur")
     setting = table["setting"] if "setting" in table else np.zeros_like(photons)
     n = photons.astype(np.int64)
     settings = np.unique(setting)
