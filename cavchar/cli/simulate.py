@@ -142,8 +142,8 @@ def _probe_options(sub: argparse.ArgumentParser) -> None:
 
 
 def _ringdown_options(sub: argparse.ArgumentParser) -> None:
-    sub.add_argument("--signal", required=True,
-                     choices=("power", "db", "amplitude", "iq", "mean-n", "mean_n", "populations"),
+    sub.add_argument("--signal", required=True, type=lambda s: s.strip().lower().replace("_", "-"),
+                     choices=("power", "db", "amplitude", "iq", "mean-n", "populations"),
                      help="signal kind")
     sub.add_argument("--points", type=whole(1, 20_000_000), default=1000,
                      help="number of points per trace, evenly spaced over --duration")
