@@ -11,6 +11,7 @@ from cavchar.cli.common import (
     add_fit_context_options,
     add_output_options,
     add_sampler_options,
+    check_input_files,
     check_outputs,
     finish_fit_command,
     quantity,
@@ -61,6 +62,7 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
 
 
 def handle(args: argparse.Namespace) -> int:
+    check_input_files([args.record])
     from cavchar.fits.jumps import JumpPriors, fit_jumps
 
     check_outputs(args)

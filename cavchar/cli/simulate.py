@@ -6,8 +6,6 @@ import argparse
 import math
 from pathlib import Path
 
-import numpy as np
-
 from cavchar.cli.common import HelpFormatter, add_output_options, quantity, real, whole
 from cavchar.errors import InputError
 from cavchar.units import format_quantity, parse_quantity
@@ -204,6 +202,8 @@ def _summary(args: argparse.Namespace, path=None) -> str:
 
 def _times(args: argparse.Namespace, path=None):
     """Probe times (and segment ids): simulated segments, or the segments of ``path``."""
+    import numpy as np
+
     from cavchar.simulate import probe_times
 
     rng = np.random.default_rng([args.seed, 1])
@@ -307,6 +307,8 @@ def _number(text: str, dimension: str, option: str, minimum: float | None = 0.0)
 
 
 def handle_ringdown(args: argparse.Namespace) -> int:
+    import numpy as np
+
     from cavchar.io.writers import write_ringdown
     from cavchar.simulate import simulate_ringdown
 
