@@ -8,8 +8,8 @@ from collections.abc import Callable
 from cavchar.units import parse_quantity
 
 __all__ = ["quantity", "add_output_options", "add_sampler_options", "add_fit_context_options",
-           "settings_from_args", "rate_priors_from_args", "check_outputs", "finish_fit_command",
-           "HelpFormatter", "add_layout_options", "laid_out", "for_option"]
+           "settings_from_args", "rate_priors_from_args", "check_input_files", "check_outputs",
+           "finish_fit_command", "HelpFormatter", "add_layout_options", "laid_out", "for_option"]
 
 
 class HelpFormatter(argparse.ArgumentDefaultsHelpFormatter, argparse.RawDescriptionHelpFormatter):
@@ -17,13 +17,14 @@ class HelpFormatter(argparse.ArgumentDefaultsHelpFormatter, argparse.RawDescript
 
     A default is shown once: not when the help text already speaks of it
     ("default", "unset"), and never for an unset option (None), a flag (False)
-    or an empty list."""
+    or an empty list or text."""
 
     def _get_help_string(self, action: argparse.Action) -> str:
         text = action.help or ""
         default = action.default
         lowered = text.lower()
-        if (default is None or default is False or default == [] or default is argparse.SUPPRESS
+        if (default is None or default is False or default == [] or default == ""
+                or default is argparse.SUPPRESS
                 or action.nargs == 0
                 or "default" in lowered or "unset" in lowered or "%(default)" in text
                 or action.option_strings == []):
@@ -128,6 +129,10 @@ def add_fit_context_options(parser: argparse.ArgumentParser) -> None:
                         "when they are new (without it they must exist; checked before the fit)")
     parser.add_argument("--report", action="store_true",
                         help="also write a self-contained HTML report into the output folder")
+    parser.add_argument("--figure-format", choices=("png", "pdf", "png+pdf"), default="png",
+                        help="file format of the figures written with -o")
+    parser.add_argument("--no-figures", action="store_true",
+                        help="write no figures with -o (the result and the draws only)")
 
 
 def add_layout_options(parser: argparse.ArgumentParser, *, trace: bool = False,
@@ -215,6 +220,18 @@ def rate_priors_from_args(args: argparse.Namespace, priors_class):
     return priors_class(lifetime=lifetime, n_thermal=n_thermal)
 
 
+def check_input_files(paths) -> None:
+    """Fail at once when an input file is missing: called by each fit command before it
+    imports the fit modules, so a mistyped path answers in a fraction of a second."""
+    from pathlib import Path
+
+    from cavchar.errors import InputError
+
+    for name in paths:
+        if not Path(name).exists():
+            raise InputError("file not found", path=name, hint="check the path")
+
+
 def check_outputs(args: argparse.Namespace) -> None:
     """Fail before a long fit when its main output exists and --force is not given."""
     if getattr(args, "report", False) and not args.out:
@@ -273,7 +290,10 @@ def finish_fit_command(result, args: argparse.Namespace) -> int:
 
     print_summary(result)
     if args.out:
-        written = write_fit_outputs(result, args.out, force=args.force)
+        written = write_fit_outputs(
+            result, args.out, force=args.force, figures=not getattr(args, "no_figures", False),
+            figure_formats=tuple(getattr(args, "figure_format", "png").split("+")),
+            progress=True)
         print(f"wrote {len(written)} files to {args.out}")
     if args.log:
         from cavchar.errors import InputError

@@ -12,6 +12,7 @@ from cavchar.cli.common import (
     add_layout_options,
     add_output_options,
     add_sampler_options,
+    check_input_files,
     check_outputs,
     finish_fit_command,
     laid_out,
@@ -64,6 +65,7 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
 
 
 def handle(args: argparse.Namespace) -> int:
+    check_input_files([args.record])
     from cavchar.fits.jumps import JumpPriors, fit_jumps
 
     check_outputs(args)

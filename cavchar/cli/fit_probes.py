@@ -13,6 +13,7 @@ from cavchar.cli.common import (
     add_layout_options,
     add_output_options,
     add_sampler_options,
+    check_input_files,
     check_outputs,
     finish_fit_command,
     for_option,
@@ -143,6 +144,7 @@ def build_response(args: argparse.Namespace):
 
 
 def handle(args: argparse.Namespace) -> int:
+    check_input_files([args.record])
     from pathlib import Path
 
     from cavchar.errors import InputError

@@ -13,6 +13,7 @@ from cavchar.cli.common import (
     add_layout_options,
     add_output_options,
     add_sampler_options,
+    check_input_files,
     check_outputs,
     finish_fit_command,
     for_option,
@@ -129,6 +130,7 @@ def _priors(items: list[str], freq_hz: float | None) -> dict:
 
 
 def handle(args: argparse.Namespace) -> int:
+    check_input_files(args.traces)
     from cavchar.fits.ringdown import DEFAULT_SETTINGS, fit_ringdown
     from cavchar.fits.ringdown_data import time_factor
 

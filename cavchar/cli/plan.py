@@ -34,6 +34,11 @@ _LABEL = {"lifetime": "lifetime T_c", "n_thermal": "thermal photons n_th",
           "quality_factor": "quality factor Q", "effective_temperature": "temperature T_eff"}
 
 
+def _signal_word(text: str) -> str:
+    """``mean_n`` and ``Mean-N`` read as ``mean-n``, the word of every command."""
+    return text.strip().lower().replace("_", "-")
+
+
 def fraction(text: str) -> float:
     """A relative precision: ``3%`` or ``0.03``."""
     raw = text.strip()
@@ -142,8 +147,8 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                             "quadrature for iq and amplitude).",
                             epilog=EXAMPLES, formatter_class=HelpFormatter)
     _common(ring, n_thermal_required=False)
-    ring.add_argument("--signal", required=True,
-                      choices=("power", "db", "amplitude", "iq", "mean_n", "populations"),
+    ring.add_argument("--signal", required=True, type=_signal_word,
+                      choices=("power", "db", "amplitude", "iq", "mean-n", "populations"),
                       help="what the trace holds")
     ring.add_argument("--noise", type=real(0.0), default=0.0,
                       help="noise sd per point of one trace (value units)")

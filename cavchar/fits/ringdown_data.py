@@ -181,7 +181,7 @@ def _check_time_units(records, factor: float, time_unit) -> None:
             raise InputError(f"the header already gives the time unit ({unit}) and the times "
                              f"were converted to s; --time-unit {time_unit} would convert "
                              "them again", path=rec.source,
-                             hint="leave --time-unit out (time_unit=None in Python)")
+                             hint="leave --time-unit out")
 
 
 def noise_level(values: np.ndarray, sigma: np.ndarray | None) -> np.ndarray | float:

@@ -239,7 +239,7 @@ def corner_plot(
     data = np.column_stack(data)
     k = data.shape[1]
     truth_list = None
-    if truths and k >= 2:  # corner 2.3 fails on one column with truths (CHECKS.md)
+    if truths and k >= 2:  # corner 2.3.0 fails on one column with truths
         truth_list = [None if truths.get(n) is None else truths[n] * s
                       for n, s in zip(names, scales, strict=True)]
     with apply_style({"axes.grid": False, "axes.titlelocation": "center",
