@@ -63,7 +63,7 @@ def test_recovery_with_visibility_fitted():
     true = FringeResponse(visibility=vis, phase_per_photon=math.pi, readout_error_0=0.02)
     rec, _ = simulate_probe_record(lifetime, n_th, 1e-3 * np.arange(10000), true, seed=22)
     fitted = FringeResponse(visibility=Uniform(0.3, 1.0), phase_per_photon=math.pi,
-                            readout_error_0=0.02)
+                            readout_error_0=0.02, readout_error_1=0.0)
     result = fit_probes(rec, response=fitted, seed=2, settings=QUICK)
     assert result.parameter_names == ["lifetime", "n_thermal", "visibility"]
     for name, value in (("lifetime", lifetime), ("n_thermal", n_th), ("visibility", vis)):
@@ -110,15 +110,17 @@ def test_useless_response_returns_the_prior():
                                    seed=5)
     priors = ProbePriors(lifetime=LogUniform(0.01, 0.1), n_thermal=LogUniform(0.05, 0.5))
     with pytest.warns(PriorDominatedWarning):
-        result = fit_probes(rec, response=FringeResponse(visibility=0.0), priors=priors,
-                            seed=4, settings=QUICK, mode="exact")
+        result = fit_probes(rec, response=FringeResponse(visibility=0.0, readout_error_0=0.0,
+                                                         readout_error_1=0.0),
+                            priors=priors, seed=4, settings=QUICK, mode="exact")
     for name, (lo, hi) in (("lifetime", (0.01, 0.1)), ("n_thermal", (0.05, 0.5))):
         u = (np.log(result.samples[name]) - math.log(lo)) / math.log(hi / lo)
         np.testing.assert_allclose(np.quantile(u, [0.1, 0.5, 0.9]), [0.1, 0.5, 0.9], atol=0.06)
     # the same seed gives the same draws
     with pytest.warns(PriorDominatedWarning):
-        again = fit_probes(rec, response=FringeResponse(visibility=0.0), priors=priors,
-                           seed=4, settings=QUICK, mode="exact")
+        again = fit_probes(rec, response=FringeResponse(visibility=0.0, readout_error_0=0.0,
+                                                        readout_error_1=0.0),
+                           priors=priors, seed=4, settings=QUICK, mode="exact")
     np.testing.assert_array_equal(again.samples["lifetime"], result.samples["lifetime"])
 
 
@@ -222,7 +224,7 @@ def test_coverage_over_many_records():
     (binomial: at least 34 of 40 has probability 0.97 when the coverage is 95%)."""
     true = FringeResponse(visibility=0.75, phase_per_photon=math.pi, readout_error_0=0.02)
     fitted = FringeResponse(visibility=Uniform(0.3, 1.0), phase_per_photon=math.pi,
-                            readout_error_0=0.02)
+                            readout_error_0=0.02, readout_error_1=0.0)
     truth = {"lifetime": 0.04, "n_thermal": 0.3, "visibility": 0.75}
     hits = dict.fromkeys(truth, 0)
     with warnings.catch_warnings():

@@ -224,6 +224,9 @@ def prior_text(prior: Mapping[str, Any] | None, dimension: str) -> str:
         return text
     if family in ("lognormal", "log-normal"):
         return f"log-normal, median {q('median')}, width {prior.get('sigma_log', '?')} in ln"
+    if family == "beta":
+        shapes = f"{prior.get('a', '?'):g}, {prior.get('b', '?'):g}"
+        return f"beta({shapes}) on [{q('low')}, {q('high')}]"
     return family
 
 
