@@ -52,6 +52,7 @@ class BatchFileError(InputError):
         self.problems = list(problems)
         count = len(self.problems)
         head = f"{count} problem{'s' if count != 1 else ''} in the batch file; nothing was fitted"
+        self.head = head
         super().__init__(head + ":\n" + "\n".join("  " + str(p) for p in self.problems))
 
     def __str__(self) -> str:
