@@ -282,8 +282,11 @@ _DIAGNOSTICS: dict[str, Callable[[Any, str], None]] = {
     "converged": _flag,
     "moves": lambda v, w: _text(v, w, null=True),
     "failed_checks": lambda v, w: [_text(x, f"{w}[{i}]") for i, x in enumerate(_list(v, w))],
-    **{k: _number_map for k in ("tau", "tau_relative_change", "chain_length_in_tau", "ess",
-                                "ess_bulk", "ess_tail", "rhat", "acceptance_fraction")},
+    # null where the sampler stopped before it could measure them (e.g. the change of
+    # tau after a single measurement of it)
+    **{k: (lambda v, w: None if v is None else _number_map(v, w))
+       for k in ("tau", "tau_relative_change", "chain_length_in_tau", "ess", "ess_bulk",
+                 "ess_tail", "rhat", "acceptance_fraction")},
     "map": _obj,
     "tau_history": _list,
 }

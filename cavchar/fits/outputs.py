@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import importlib
-import math
 import os
 import sys
 from collections.abc import Sequence
@@ -29,24 +28,32 @@ PRINTED = ("lifetime", "n_thermal", "effective_temperature", "quality_factor", "
 
 def summary_text(result: FitResult) -> str:
     """A table with units: median, 68% and 95% intervals of the main quantities."""
+    from cavchar.result import interval_texts
     from cavchar.units import format_quantity
 
     table = result.summary()
     lines = [f"{result.kind} fit ({'converged' if result.converged else 'NOT converged'}; "
              f"{len(result.samples)} draws, seed {result.seed})",
-             f"  {'quantity':<34}{'median':>12}{'68% interval':>28}{'95% interval':>28}"]
+             f"  {'quantity':<34}{'median':>14}{'68% interval':>30}{'95% interval':>30}"]
     names = [n for n in PRINTED if n in table.index]
     names += [n for n in result.parameter_names if n not in names]
     for name in names:
         unit, dimension, label = result.column_info(name)
         row = table.loc[name]
-
-        def fmt(x: float, dimension: str = dimension) -> str:
-            return format_quantity(float(x), dimension, 4) if math.isfinite(x) else "nan"
-
-        lines.append(f"  {label:<34}{fmt(row['median']):>12}"
-                     f"{'[' + fmt(row['lo68']) + ', ' + fmt(row['hi68']) + ']':>28}"
-                     f"{'[' + fmt(row['lo95']) + ', ' + fmt(row['hi95']) + ']':>28}")
+        limit = result.prior_limit(name)
+        if limit is not None:  # against a prior bound: a one-sided limit, not a measurement
+            sign = {"lower": ">", "upper": "<"}.get(limit["kind"])
+            value = (f"{sign} {format_quantity(limit['limit'], dimension, 3)}" if sign
+                     else "not constrained")
+            lines.append(f"  {label:<34}{value:>14}{'one-sided 95% limit':>30}"
+                         f"{'posterior at a prior bound':>30}")
+            continue
+        # digits follow the interval: the unit and decimals of the one-line form
+        t = interval_texts(*(float(row[k]) for k in ("median", "lo68", "hi68", "lo95",
+                                                     "hi95")), dimension)
+        lines.append(f"  {label:<34}{t['median']:>14}"
+                     f"{'[' + t['lo68'] + ', ' + t['hi68'] + ']':>30}"
+                     f"{'[' + t['lo95'] + ', ' + t['hi95'] + ']':>30}")
     planck = result.checks.get("planck")
     if planck:
         lines.append("  " + planck_statement(planck))
