@@ -197,13 +197,13 @@ class Normal(Prior):
         low, high = float(self.low), float(self.high)
         if math.isnan(low) or math.isnan(high) or not low < high:
             raise InputError(f"normal prior needs low < high, got low={low:g}, high={high:g}")
-        a, b = (low - mean) / sd, (high - mean) / sd
-        if a > 0:  # both bounds above the mean: use the upper tail, where digits live
-            a, b = -b, -a
-        # now a <= 0 side carries the mass: Z = Phi(b) - Phi(a) with a < b, a <= 0
-        log_b = special.log_ndtr(b)
-        log_a = special.log_ndtr(a)
-        with np.errstate(divide="ignore"):
+        with np.errstate(divide="ignore", over="ignore", invalid="ignore"):  # extreme
+            a, b = (low - mean) / sd, (high - mean) / sd                      # values: NaN
+            if a > 0:  # both bounds above the mean: use the upper tail, where digits live
+                a, b = -b, -a
+            # now a <= 0 side carries the mass: Z = Phi(b) - Phi(a) with a < b, a <= 0
+            log_b = special.log_ndtr(b)
+            log_a = special.log_ndtr(a)
             log_z = float(log_b + np.log1p(-np.exp(log_a - log_b)))
         if not log_z > -700.0:  # mass below ~1e-304: nothing left to sample from
             raise InputError(f"normal prior N({mean:g}, {sd:g}) has almost no mass in "

@@ -25,14 +25,16 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from cavchar.derived import COLUMN_INFO, CREDIBLE_68, add_derived_quantities, planck_check
+from cavchar.derived import COLUMN_INFO, QUANTILES_68, add_derived_quantities, planck_check
 from cavchar.errors import InputError
 from cavchar.parameters import ParameterSpec
+from cavchar.units import decimals_for
 
 if TYPE_CHECKING:
     from cavchar.inference.sampler import PosteriorRun
 
-__all__ = ["FitResult", "SCHEMA_VERSION", "to_plain_json", "default_draws_name"]
+__all__ = ["FitResult", "SCHEMA_VERSION", "to_plain_json", "default_draws_name",
+           "interval_texts"]
 
 #: schema of the result JSON: "<name>/<major>"; readers accept every major they know
 SCHEMA_VERSION = "cavchar-fit-result/1"
@@ -42,7 +44,7 @@ _SCHEMA_NAME, _KNOWN_MAJORS = "cavchar-fit-result", (1,)
 BOOKKEEPING = ("log_posterior", "log_likelihood")
 
 _SUMMARY_COLUMNS = ["unit", "median", "mean", "sd", "lo68", "hi68", "lo95", "hi95", "map"]
-_Q68 = ((1 - CREDIBLE_68) / 2, (1 + CREDIBLE_68) / 2)
+_Q68 = QUANTILES_68
 
 
 def to_plain_json(value: Any) -> Any:
@@ -241,6 +243,45 @@ class FitResult:
             raise KeyError(f"no column {name!r} in the posterior draws")
         return "", "dimensionless", name
 
+    def prior_limit(self, name: str) -> dict | None:
+        """How ``name`` must be quoted when its posterior (or that of the parameter it is
+        derived from) reaches a bound of the prior (``checks["prior_bounds"]``, see
+        :mod:`cavchar.inference.prior_bounds`); None when it is a measurement.
+
+        Returns ``{"kind": "lower" | "upper" | "none", "limit": value in SI units
+        (the 5 % quantile of a lower limit, the 95 % quantile of an upper one; NaN
+        for "none"), "parameter": the flagged parameter, "text": e.g.
+        "T_c > 956 s (95% one-sided lower limit: the posterior reaches the prior's
+        upper bound 1 ks)"}``.  Derived quantities follow their parameter: Q and the
+        amplitude decay time rise with T_c, the linewidth falls; T_eff and the
+        excess photon number rise with n_th.
+        """
+        from cavchar.units import format_quantity
+
+        flagged = (self.checks.get("prior_bounds") or {}).get("parameters") or {}
+        source, direction = _DERIVED_FROM.get(name, (name, 1))
+        entry = flagged.get(source)
+        if not isinstance(entry, dict) or name not in self._columns:
+            return None
+        _, dimension, label = self.column_info(name)
+        _, source_dim, source_label = self.column_info(source)
+        side = entry.get("side")
+        bounds = entry.get("bounds") or [math.nan, math.nan]
+        x = self.column(name)
+        if side == "both":
+            return {"kind": "none", "limit": math.nan, "parameter": source,
+                    "text": f"{label}: not constrained by the data (the posterior of "
+                            f"{source_label} fills its prior range)"}
+        bound = bounds[1] if side == "upper" else bounds[0]
+        kind = "lower" if (side == "upper") == (direction > 0) else "upper"
+        limit = float(np.quantile(x, 0.05 if kind == "lower" else 0.95))
+        which = "upper" if side == "upper" else "lower"
+        sign = ">" if kind == "lower" else "<"
+        return {"kind": kind, "limit": limit, "parameter": source,
+                "text": f"{label} {sign} {format_quantity(limit, dimension, 3)} (95% one-sided "
+                        f"{kind} limit: the posterior of {source_label} reaches the prior's "
+                        f"{which} bound {format_quantity(float(bound), source_dim, 3)})"}
+
     def quantity_names(self) -> list[str]:
         """Summarised columns: the parameters first, then the derived quantities."""
         rest = [c for c in self._columns
@@ -254,8 +295,10 @@ class FitResult:
         for name in self.quantity_names():
             x = self.column(name)
             lo68, med, hi68, lo95, hi95 = np.quantile(x, [_Q68[0], 0.5, _Q68[1], 0.025, 0.975])
+            with np.errstate(over="ignore", invalid="ignore"):  # draws near 1e308: sd inf
+                mean, sd = float(np.mean(x)), float(np.std(x, ddof=1))
             rows[name] = {"unit": self.column_info(name)[0], "median": med,
-                          "mean": float(np.mean(x)), "sd": float(np.std(x, ddof=1)),
+                          "mean": mean, "sd": sd,
                           "lo68": lo68, "hi68": hi68, "lo95": lo95, "hi95": hi95,
                           "map": float(self.map_values.get(name, math.nan))}
         table = pd.DataFrame.from_dict(rows, orient="index", columns=_SUMMARY_COLUMNS)
@@ -277,6 +320,9 @@ class FitResult:
 
         unit, dimension, label = self.column_info(name)
         x = self.column(name)
+        limit = self.prior_limit(name)
+        if limit is not None:
+            return limit["text"]
         if upper_limit is None:
             upper_limit = (name in ("n_thermal", "effective_temperature")
                            and bool(self.checks.get("planck", {}).get("piles_up_at_zero")))
@@ -466,17 +512,76 @@ def _dump(data: dict[str, Any]) -> str:
     return "{\n" + ",\n".join(parts) + "\n}\n"
 
 
-def _pdg_decimals(error: float) -> int:
-    """Decimals that round ``error`` per the Particle Data Group rule (see one_line)."""
-    exponent = math.floor(math.log10(error))
-    lead = int(error / 10 ** (exponent - 2))  # three leading digits, 100..999
-    if lead >= 950:
-        exponent, sig = exponent + 1, 2
-    elif lead >= 355:
-        sig = 1
-    else:
-        sig = 2
-    return sig - 1 - exponent
+#: derived column -> (parameter it is computed from, +1 rising / -1 falling with it)
+_DERIVED_FROM = {"quality_factor": ("lifetime", 1), "amplitude_decay_time": ("lifetime", 1),
+                 "linewidth": ("lifetime", -1), "effective_temperature": ("n_thermal", 1),
+                 "excess_photons": ("n_thermal", 1)}
+
+
+def _display_unit(median: float, plus: float, minus: float, dimension: str
+                  ) -> tuple[float, str]:
+    """(factor, suffix): the display unit of a median (SI prefix or power of ten)."""
+    from cavchar.units import format_quantity, parse_quantity
+
+    if dimension in ("dimensionless", "phase"):
+        magnitude = abs(median) if median != 0 else max(plus, minus)
+        exponent = 0
+        if magnitude > 0 and math.isfinite(magnitude) and not 1e-3 <= magnitude < 1e4:
+            exponent = math.floor(math.log10(magnitude))
+        return 10.0**exponent, ((f"e{exponent}" if exponent else "")
+                                + (" rad" if dimension == "phase" else ""))
+    text = format_quantity(median, dimension)
+    unit = text.split(" ", 1)[1] if " " in text and math.isfinite(median) else ""
+    return (parse_quantity("1" + unit, dimension) if unit else 1.0), (f" {unit}" if unit
+                                                                       else "")
+
+
+def interval_texts(median: float, lo68: float, hi68: float, lo95: float, hi95: float,
+                   dimension: str) -> dict[str, str]:
+    """Median and interval bounds as text in the display unit of :meth:`FitResult.one_line`,
+    with as many decimals as the interval needs.
+
+    The unit (SI prefix, or a power of ten for dimensionless numbers) is chosen
+    from the median; the decimals follow the PDG rule applied to the smaller
+    half-width of the 68 % interval (as ``one_line``), so an interval narrower
+    than the median's third digit keeps its digits: ``1.85001 kHz [1.84991 kHz,
+    1.85012 kHz]``, never ``1.85 kHz [1.85 kHz, 1.85 kHz]``.  A bound that would
+    show fewer than two significant digits (the far end of a wide, skewed
+    interval) gets two.
+
+    Returns
+    -------
+    dict
+        ``median``, ``lo68``, ``hi68``, ``lo95``, ``hi95`` (numbers with the unit
+        suffix, e.g. ``"1.21 ms"``) and ``unit`` (the suffix alone).
+    """
+    values = {"median": median, "lo68": lo68, "hi68": hi68, "lo95": lo95, "hi95": hi95}
+    if not all(math.isfinite(v) for v in values.values()):
+        return {**{k: ("nan" if not math.isfinite(v) else f"{v:.4g}") for k, v in
+                   values.items()}, "unit": ""}
+    plus, minus = hi68 - median, median - lo68
+    factor, suffix = _display_unit(median, plus, minus, dimension)
+    smaller = min(plus, minus) / factor
+    if not smaller > 0:
+        smaller = max(plus, minus) / factor
+    decimals = decimals_for(smaller)
+    if median != 0:  # never more than 7 significant digits (float32 draws hold no more)
+        decimals = min(decimals, 6 - math.floor(math.log10(abs(median / factor))))
+    out = {}
+    for key, value in values.items():
+        v = value / factor
+        d = decimals
+        if key != "median" and v != 0:
+            lead = math.floor(math.log10(abs(v)))
+            if lead + 1 + d < 2:
+                d = 1 - lead
+        if d < 0:
+            step = 10.0**-d
+            out[key] = f"{round(v / step) * step:.0f}{suffix}"
+        else:
+            out[key] = f"{v:.{d}f}{suffix}"
+    out["unit"] = suffix.strip()
+    return out
 
 
 def _scaled(median: float, plus: float, minus: float, dimension: str
@@ -499,7 +604,7 @@ def _scaled(median: float, plus: float, minus: float, dimension: str
         suffix = f" {unit}" if unit else ""
     med, p, m = median / factor, plus / factor, minus / factor
     smaller = min(p, m)
-    decimals = _pdg_decimals(smaller) if smaller > 0 and math.isfinite(smaller) else 3
+    decimals = decimals_for(smaller)
     if decimals < 0:  # errors of tens or more in this unit: round to that place
         step = 10.0**-decimals
         med, p, m = (round(v / step) * step for v in (med, p, m))

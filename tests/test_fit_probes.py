@@ -2,7 +2,8 @@
 
 Outside references named at each check: records simulated from known rates
 (cavchar's Gillespie simulator, and QuTiP's quantum-jump Monte Carlo solver
-``mcsolve`` for the hidden path, see CHECKS.md); a useless probe must return
+``mcsolve`` for the hidden path: QuTiP documentation, "Monte Carlo solver";
+Johansson, Nation, Nori, Comput. Phys. Commun. 184, 1234 (2013)); a useless probe must return
 the prior; the coarse mode's bias is compared with the exact fit.
 
 Single-record coverage: each recovery test fits one seeded record; a 95%
@@ -73,7 +74,7 @@ def test_recovery_with_visibility_fitted():
 
 
 def mcsolve_path(lifetime, n_th, duration, seed, n_levels=12):
-    """Hidden path from QuTiP's quantum-jump Monte Carlo solver (CHECKS.md): collapse
+    """Hidden path from QuTiP's quantum-jump Monte Carlo solver (QuTiP ``mcsolve``): collapse
     operators sqrt(kappa (1+n_th)) a (index 0, n -> n-1) and sqrt(kappa n_th) a^dag
     (index 1, n -> n+1), H = 0, start in the vacuum; each recorded collapse is a jump."""
     qutip = pytest.importorskip("qutip")

@@ -10,10 +10,14 @@ import sys
 from cavchar.cli.common import (
     HelpFormatter,
     add_fit_context_options,
+    add_layout_options,
     add_output_options,
     add_sampler_options,
+    check_input_files,
     check_outputs,
     finish_fit_command,
+    for_option,
+    laid_out,
     rate_priors_from_args,
     settings_from_args,
     whole,
@@ -96,6 +100,7 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
     parser.add_argument("--initial-photons", type=whole(0, MAX_INITIAL_PHOTONS), default=None,
                         metavar="N",
                         help="segments start in Fock state N; unset: thermal equilibrium")
+    add_layout_options(parser)
     add_fit_context_options(parser)
     add_sampler_options(parser)
     add_output_options(parser)
@@ -112,7 +117,7 @@ def _fringe_value(text: str, dimension: str, name: str):
     if text.lower() in ("pi", "+pi"):
         return math.pi
     if ":" in text:
-        return parse_prior(text, dimension)
+        return for_option(f"--{name.replace('_', '-')}", parse_prior, text, dimension)
     try:
         return parse_quantity(text, dimension)
     except InputError as exc:
@@ -134,7 +139,14 @@ def build_response(args: argparse.Namespace):
         raise InputError("--response-table cannot be combined with --response fringe")
     values = {name: _fringe_value(getattr(args, name), dim, name)
               for name, _, dim, _ in _FRINGE_OPTIONS if getattr(args, name) is not None}
-    return FringeResponse(**values)
+    try:
+        return FringeResponse(**values)
+    except InputError as exc:
+        for name, flag, _, _ in _FRINGE_OPTIONS:
+            if exc.message.startswith(name + " ") or exc.message.startswith(
+                    name.replace("_", " ") + " "):
+                raise InputError(f"{flag}: {exc.message}", hint=exc.hint) from None
+        raise
 
 
 def response_lines(description: dict) -> list[str]:
@@ -184,6 +196,7 @@ def check_lines(check: dict | None) -> list[str]:
 
 
 def handle(args: argparse.Namespace) -> int:
+    check_input_files([args.record])
     from pathlib import Path
 
     from cavchar.errors import InputError
@@ -203,7 +216,7 @@ def handle(args: argparse.Namespace) -> int:
     if args.block_probes is not None and args.block_probes < 1:
         raise InputError("--block-probes must be at least 1")
     result, trajectory = fit_probes_with_trajectory(
-        args.record,
+        laid_out(args.record, args),
         response=response,
         freq_hz=args.freq,
         stage_temp_k=args.stage_temp,

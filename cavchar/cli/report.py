@@ -11,6 +11,7 @@ EXAMPLES = """examples:
   cavchar report cd1/result.json cd2/result.json -o compare.html --title "Mirror set B"
   cavchar report cd2/result.json -o report.html --force \\
       --log-file lab.sqlite --cavity "cavity A" --reference cd1
+  cavchar report cd2/result.json -o two.html --log-file lab.sqlite --cavity A --cavity B
 
 The page holds everything (figures embedded as PNG, styles inline) and needs no
 network to open.  Numbers are shown in readable units (ms, mK, kHz); intervals
@@ -41,7 +42,9 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                         "(without it: fit kind and input file name)")
     parser.add_argument("--log-file", default=None, metavar="PATH",
                         help="cooldown log: with --cavity adds the trend across cooldowns")
-    parser.add_argument("--cavity", default=None, help="cavity whose trend to add (with a log)")
+    parser.add_argument("--cavity", default=None, action="append",
+                        help="cavity whose trend to add (with a log); repeat to show several "
+                        "side by side with P(T_c of the first > T_c of each other)")
     parser.add_argument("--reference", default=None, metavar="COOLDOWN",
                         help="reference cooldown of the trend's drop probability")
     parser.add_argument("--drop", type=_fraction, default=0.1, metavar="FRACTION",
@@ -67,10 +70,12 @@ def handle(args: argparse.Namespace) -> int:
     sections = []
     if args.cavity is not None:
         from cavchar.tracking import cooldown_trend, open_log
+        from cavchar.tracking.trend import compare_cavities
 
-        with open_log(args.log_file, create=False) as log:
-            sections.append(cooldown_trend(log, args.cavity, reference=args.reference,
-                                           fraction=args.drop))
+        with open_log(args.log_file, readonly=True) as log:
+            trends = [cooldown_trend(log, cavity, reference=args.reference, fraction=args.drop)
+                      for cavity in dict.fromkeys(args.cavity)]
+        sections.append(trends[0] if len(trends) == 1 else compare_cavities(trends))
     elif args.reference is not None:
         raise InputError("--reference needs --cavity (and a log)")
     path = write_report(args.results, args.out, force=args.force, title=args.title,

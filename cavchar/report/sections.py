@@ -88,11 +88,24 @@ def summary_table_html(result: Any, index: int, truths: Mapping[str, float] | No
     header = ["quantity", "median", "68% interval", "95% interval", "unit"]
     if truths:
         header.append("true value")
-    rows, flagged = [], False
+    rows, flagged, at_bound = [], False, False
     for name in summary_names(result):
         unit, dimension, label = result.column_info(name)
         text = format_interval_row(table.loc[name], dimension)
         what = SUMMARY_ORDER.get(name, f"{label} ({name})")
+        limit = result.prior_limit(name)
+        if limit is not None:  # not a measurement: the one-sided limit only
+            at_bound = True
+            sign = {"lower": ">", "upper": "<"}.get(limit["kind"])
+            value = (f"{sign} {format_quantity_text(limit['limit'], dimension, 3)}" if sign
+                     else "not constrained")
+            row = [what + " ‡", value, "one-sided 95% limit", "posterior at a prior bound", ""]
+            if truths:
+                true = truths.get(name)
+                row.append("–" if true is None else format_quantity_text(float(true),
+                                                                         dimension, 4))
+            rows.append(row)
+            continue
         if _upper_limit(result, name):
             what += " †"
             flagged = True
@@ -105,6 +118,12 @@ def summary_table_html(result: Any, index: int, truths: Mapping[str, float] | No
         header, rows, css_class="grid summary",
         caption="posterior median and equal-tailed credible intervals "
                 "(68%: 15.9th–84.1st percentile; 95%: 2.5th–97.5th)"))]
+    if at_bound:
+        flags = (result.checks.get("prior_bounds") or {}).get("flags") or []
+        out.append(html('<p class="note">‡ The posterior reaches a bound of its prior: the '
+                        "data do not constrain the quantity beyond the limit given; it is a "
+                        "one-sided limit, not a measurement. {}</p>", " ".join(
+                            f"{m[0].upper()}{m[1:]}." for m in flags)))
     if flagged:
         out.append(Markup('<p class="note">† n_th piles up against zero (its 95% interval '
                           "spans more than two decades): quote the one-sided 95% upper limit "

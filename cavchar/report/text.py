@@ -25,8 +25,10 @@ from typing import Any
 
 from markupsafe import Markup, escape
 
+from cavchar.units import decimals_for
+
 __all__ = ["esc", "html", "Markup", "number_text", "display_scale", "decimals_for",
-           "format_number", "format_interval_row",
+           "format_number", "bound_decimals", "format_interval_row",
            "format_quantity_text", "planck_sentences", "probability_text", "table_html",
            "prior_text"]
 
@@ -92,19 +94,14 @@ def display_scale(median: float, dimension: str) -> tuple[float, str]:
     return factor, unit
 
 
-def decimals_for(error: float) -> int:
-    """Decimal places that show ``error`` (> 0) by the PDG rule (may be negative)."""
-    if not (math.isfinite(error) and error > 0):
-        return 3
-    exponent = math.floor(math.log10(error))
-    lead = int(round(error / 10 ** (exponent - 2), 6))
-    if lead >= 950:
-        exponent, sig = exponent + 1, 2
-    elif lead >= 355:
-        sig = 1
-    else:
-        sig = 2
-    return sig - 1 - exponent
+def bound_decimals(value: float, decimals: int) -> int:
+    """Decimals for an interval bound: ``decimals``, or more when the bound would show
+    fewer than two significant digits (a wide, skewed interval whose lower end is far
+    below the median: ``7 [0.20 – 251] K``, never ``7 [0 – 251] K``)."""
+    if not (value is not None and math.isfinite(value) and value != 0):
+        return decimals
+    lead = math.floor(math.log10(abs(value)))
+    return max(decimals, 1 - lead) if lead + 1 + decimals < 2 else decimals
 
 
 def format_number(value: float, decimals: int) -> str:
@@ -142,10 +139,14 @@ def format_interval_row(row: Mapping[str, float], dimension: str) -> dict[str, s
     if m != 0 and math.isfinite(m):  # never more than 6 significant digits
         d = min(d, 5 - math.floor(math.log10(abs(m))))
     f = format_number
+
+    def bound(v: float) -> str:
+        return format_number(v, bound_decimals(v, d))
+
     return {
         "median": f(m, d),
-        "interval68": f"{f(lo68, d)} – {f(hi68, d)}",
-        "interval95": f"{f(lo95, d)} – {f(hi95, d)}",
+        "interval68": f"{bound(lo68)} – {bound(hi68)}",
+        "interval95": f"{bound(lo95)} – {bound(hi95)}",
         "errors": f"+{f(plus, d)}/−{f(minus, d)}",
         "unit": unit,
     }

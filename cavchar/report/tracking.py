@@ -1,13 +1,15 @@
 """Report sections for the cooldown log's outputs: trend, qualification, thermal budget.
 
 Each takes the object returned by :mod:`cavchar.tracking` (``Trend``,
-``Qualification``, ``Budget``) and gives a :class:`~cavchar.report.sections.Section`
-with a table and, where :mod:`cavchar.plots.trend` offers one, a figure.
+``CavityComparison``, ``Qualification``, ``Budget``) and gives a
+:class:`~cavchar.report.sections.Section` with a table and, where
+:mod:`cavchar.plots.trend` offers one, a figure.  A trend's table names the fits
+of each row and the stage temperature of each point (per quantity when the
+lifetime and n_th come from fits at different stages).
 """
 
 from __future__ import annotations
 
-import importlib.util
 from collections.abc import Callable
 from typing import Any
 
@@ -15,17 +17,10 @@ from cavchar.report.figures import Figure
 from cavchar.report.sections import Section
 from cavchar.report.text import esc, format_interval_row, format_quantity_text, table_html
 
-__all__ = ["section_for", "trend_section", "qualification_section", "budget_section"]
+__all__ = ["section_for", "trend_section", "comparison_section", "qualification_section",
+           "budget_section"]
 
 FigureHtml = Callable[[Figure], str]
-
-
-def _trend_plots():
-    if importlib.util.find_spec("cavchar.plots.trend") is None:
-        return None
-    import cavchar.plots.trend as module
-
-    return module
 
 
 def _styled(plot, obj):
@@ -49,39 +44,106 @@ def _interval_cell(stats: Any, dimension: str) -> str:
     return f"{text['median']} [{text['interval95']}]{unit}"
 
 
-def trend_section(trend: Any, figure_html: FigureHtml) -> Section:
-    """Lifetime, n_th and effective temperature per cooldown, with drop probabilities."""
+_SHORT = {"lifetime": "T_c", "n_thermal": "n_th"}
+
+
+def _by_quantity(row: Any, text) -> str:
+    """One value per row when T_c and n_th come from fits alike in ``text``, else
+    ``"T_c <a>; n_th <b>"``."""
+    values = {q: text(c) for q, c in row.sources.items() if q in _SHORT}
+    if not values:
+        return text(None)
+    if len(set(values.values())) == 1:
+        return next(iter(values.values()))
+    return "; ".join(f"{_SHORT[q]} {v}" for q, v in values.items())
+
+
+def _stage_text(choice: Any) -> str:
+    t = None if choice is None else choice.stage_temp_k
+    return "–" if t is None else format_quantity_text(t, "temperature")
+
+
+def _trend_table(trend: Any) -> list[str]:
+    """The table of one trend, the fits each row uses and why, and the trend's notes."""
     ref = trend.reference
     drop = f"P(T_c fell by > {100 * trend.fraction:g}% vs {ref})" if ref else "drop probability"
-    header = ["cooldown", "date", "fit kind", "stage temperature", "T_c [95%]", "n_th [95%]",
-              "T_eff [95%]", drop]
+    header = ["cooldown", "date", "fits", "fit kind", "stage temperature", "T_c [95%]",
+              "n_th [95%]", "T_eff [95%]", drop]
     rows = []
     for row in trend.rows:
         p = row.drop_probability
         p_text = "reference" if row.fit_id == trend.reference_fit else (
             "–" if p is None else f"{p:.3f} ± {row.drop_mc_error:.3f}")
-        rows.append([row.cooldown, row.start_date or "–", row.kind,
-                     format_quantity_text(row.stage_temp_k, "temperature")
-                     if row.stage_temp_k else "–",
+        rows.append([row.cooldown, row.start_date or "–",
+                     ", ".join(str(i) for i in row.fit_ids),
+                     _by_quantity(row, lambda c: "–" if c is None else c.kind),
+                     _by_quantity(row, _stage_text),
                      _interval_cell(row.stats.get("lifetime"), "time"),
                      _interval_cell(row.stats.get("n_thermal"), "dimensionless"),
                      _interval_cell(row.stats.get("effective_temperature"), "temperature"),
                      p_text])
     freq = format_quantity_text(trend.freq_hz, "frequency", 5) if trend.freq_hz else "unknown"
+    used = []
+    for row in trend.rows:
+        for q, c in row.sources.items():
+            if q in _SHORT:
+                name = "T_c" if q == "lifetime" else "n_th and T_eff"
+                used.append(f"<li>{esc(row.cooldown)}: {name} from fit {c.fit_id} "
+                            f"({esc(c.kind)}, stage {esc(_stage_text(c))}): "
+                            f"{esc(c.reason)}</li>")
+        used += [f"<li>{esc(row.cooldown)}: note: {esc(n)}</li>" for n in row.notes]
     parts = [f"<p>Cavity <b>{esc(trend.cavity)}</b> (mode frequency {esc(freq)}), "
-             f"{esc(trend.selection)}. Intervals are equal-tailed 95% credible intervals of the "
-             "draws stored in the log; the drop probability compares each cooldown's lifetime "
-             "draws with the reference's (± its Monte Carlo error).</p>",
-             table_html(header, rows, css_class="grid summary")]
+             f"{esc(trend.selection)}. Medians and equal-tailed 95% credible intervals are "
+             "each fit's own (the numbers of its result); the drop probability compares each "
+             "cooldown's lifetime draws with the reference's (± its Monte Carlo error).</p>",
+             table_html(header, rows, css_class="grid summary"),
+             "<details><summary>fits used and why</summary><ul>" + "".join(used)
+             + "</ul></details>"]
     parts += [f'<p class="note">{esc(n)}</p>' for n in trend.notes]
-    plots = _trend_plots()
-    if plots is not None and hasattr(plots, "plot_trend"):
-        parts.append(figure_html(Figure(
-            f"Trend of cavity {trend.cavity} across cooldowns",
-            "Median with 68% (thick) and 95% (thin) intervals per cooldown; the lifetime points "
-            "carry the probability that the lifetime fell against the reference.",
-            _styled(plots.plot_trend, trend))))
+    return parts
+
+
+def trend_section(trend: Any, figure_html: FigureHtml) -> Section:
+    """Lifetime, n_th and effective temperature per cooldown, with drop probabilities, the
+    fit ids of each row and the stage temperature of each point."""
+    from cavchar.plots.trend import plot_trend
+
+    parts = _trend_table(trend)
+    parts.append(figure_html(Figure(
+        f"Trend of cavity {trend.cavity} across cooldowns",
+        "Median with 68% (thick) and 95% (thin) intervals per cooldown; the lifetime points "
+        "carry the probability that the lifetime fell against the reference.",
+        _styled(plot_trend, trend))))
     return Section(f"Trend across cooldowns: {trend.cavity}", "".join(parts), "trend")
+
+
+def comparison_section(comparison: Any, figure_html: FigureHtml) -> Section:
+    """Several cavities' trends side by side and P(T_c of the first > T_c of each other)."""
+    parts = []
+    for trend in comparison.trends:
+        parts.append(f"<h3>{esc(trend.cavity)}</h3>")
+        parts += _trend_table(trend)
+    rows = [[f"P(T_c {r.cavity_a} > T_c {r.cavity_b})",
+             f"{r.cooldown_a} (fit {r.fit_a})", f"{r.cooldown_b} (fit {r.fit_b})",
+             f"{r.probability:.3f} ± {r.mc_error:.3f}", r.basis] for r in comparison.rows]
+    parts.append("<h3>Lifetime comparison</h3>")
+    if rows:
+        parts.append("<p>Independent posteriors of different records: the probability is "
+                     "taken over all pairs of the two fits' stored draws (± its Monte Carlo "
+                     "error).</p>")
+        parts.append(table_html(["probability", "cooldown of the first", "cooldown of the "
+                                 "other", "value", "pair"], rows, css_class="grid"))
+    else:
+        parts.append("<p>No cooldown of these cavities has lifetimes to compare.</p>")
+    from cavchar.plots.trend import plot_trend
+
+    names = ", ".join(t.cavity for t in comparison.trends)
+    parts.append(figure_html(Figure(
+        f"Trends of cavities {names} across cooldowns",
+        "The cavities side by side on the same axes: median with 68% (thick) and 95% "
+        "(thin) intervals per cooldown.", _styled(plot_trend, comparison))))
+    title = " and ".join(t.cavity for t in comparison.trends)
+    return Section(f"Trend across cooldowns: {title}", "".join(parts), "trend")
 
 
 _BADGE = {"PASS": "pass", "FAIL": "fail", "UNDECIDED": "undecided"}
@@ -146,12 +208,12 @@ def budget_section(budget: Any, figure_html: FigureHtml) -> Section:
              table_html(["budget parameter", "median [95%]", "converged"], params,
                         css_class="grid")]
     parts += [f'<p class="note">{esc(n)}</p>' for n in budget.notes]
-    plots = _trend_plots()
-    if plots is not None and hasattr(plots, "plot_budget"):
-        parts.append(figure_html(Figure(
-            "Thermal photons against stage temperature",
-            "Measured n_th (68% and 95% intervals), the Planck occupation of the stage and the "
-            "stated budget model (median and 95% band).", _styled(plots.plot_budget, budget))))
+    from cavchar.plots.trend import plot_budget
+
+    parts.append(figure_html(Figure(
+        "Thermal photons against stage temperature",
+        "Measured n_th (68% and 95% intervals), the Planck occupation of the stage and the "
+        "stated budget model (median and 95% band).", _styled(plot_budget, budget))))
     return Section("Thermal budget", "".join(parts), "budget")
 
 
@@ -169,6 +231,8 @@ def section_for(obj: Any, figure_html: FigureHtml) -> Section:
     name = type(obj).__name__
     if name == "Trend":
         return trend_section(obj, figure_html)
+    if name == "CavityComparison":
+        return comparison_section(obj, figure_html)
     if name == "Qualification":
         return qualification_section(obj, figure_html)
     if name == "Budget":

@@ -5,7 +5,9 @@ The rule (per cavity and cooldown; tolerances in :mod:`cavchar.tracking.rules`):
 1. Fits marked **excluded** (``cavchar log exclude``) are never used; fits
    outside the chosen kind or stage-temperature range are not candidates.
 2. The cooldown's **base stage temperature** is the lowest stage temperature
-   of the cavity's fits in it (excluded fits left out).  A fit is *at base
+   of the cavity's fits in it (excluded fits left out; with a stage-temperature
+   range, the lowest inside the range, so that ``--min-stage-temp 100mK`` shows
+   each cooldown's lowest sweep step at or above 100 mK).  A fit is *at base
    temperature* when ``T <= 1.2 T_base + 1 mK``.  Fits above are sweep points:
    they never stand for the cooldown (the thermal budget uses them).  When no
    fit of the cooldown has a stage temperature, all count as at base (and a
@@ -136,8 +138,18 @@ def select_cooldown(fits: Sequence[FitRecord], draws: Mapping[int, Mapping[str, 
                                                           if f.mark_reason else "")))
         else:
             usable.append(f)
-    known = [f.stage_temp_k for f in usable if f.stage_temp_k is not None]
+
+    def in_window(t: float | None) -> bool:
+        return (min_stage_k is None and max_stage_k is None) or (
+            t is not None and (min_stage_k is None or t >= min_stage_k)
+            and (max_stage_k is None or t <= max_stage_k))
+
+    known = [f.stage_temp_k for f in usable
+             if f.stage_temp_k is not None and in_window(f.stage_temp_k)]
     base = min(known) if known else None
+    windowed = min_stage_k is not None or max_stage_k is not None
+    base_name = ("the lowest stage temperature in the selected range" if windowed
+                 else "base temperature")
     limit = None if base is None else base_limit(base)
     if usable and base is None:
         notes.append("no fit of this cooldown has a stage temperature: all are taken as at "
@@ -148,9 +160,7 @@ def select_cooldown(fits: Sequence[FitRecord], draws: Mapping[int, Mapping[str, 
             aside.append((f.id, f"kind {f.kind} not selected (kind {kind})"))
             continue
         t = f.stage_temp_k
-        if (min_stage_k is not None or max_stage_k is not None) and (
-                t is None or (min_stage_k is not None and t < min_stage_k)
-                or (max_stage_k is not None and t > max_stage_k)):
+        if not in_window(t):
             aside.append((f.id, f"stage temperature {_t(t)} outside the selected range"))
             continue
         candidates.append(f)
@@ -195,10 +205,10 @@ def select_cooldown(fits: Sequence[FitRecord], draws: Mapping[int, Mapping[str, 
                 notes.append(f"preferred fit {best.id} is at {_t(best.stage_temp_k)}, not at "
                              f"the base temperature {_t(base)}")
         elif others:
-            reason = (f"the most precise of {len(pool)} fits at base temperature "
+            reason = (f"the most precise of {len(pool)} fits at {base_name} "
                       f"{_t(base)} (fits {', '.join(str(f.id) for f in pool)})")
         else:
-            reason = ("the only fit at base temperature " + _t(base) if base is not None
+            reason = (f"the only fit at {base_name} {_t(base)}" if base is not None
                       else "the only fit")
         choices[quantity] = Choice(quantity, best.id, best.kind, best.stage_temp_k, reason)
         w_best = measure(best, deciding)
