@@ -105,6 +105,14 @@ def test_default_fit_of_an_imperfect_record_recovers_the_truth(default_fit):
     assert roles["visibility"] == roles["readout_error_0"] == "default prior"
 
 
+def test_result_with_the_check_round_trips_through_json(default_fit, tmp_path):
+    from cavchar.result import FitResult
+
+    back = FitResult.from_json(default_fit.to_json(tmp_path / "result.json"))
+    assert back.checks["posterior_predictive"] == default_fit.checks["posterior_predictive"]
+    assert back.settings["fit"]["response"]["roles"]["phase_offset"] == "default"
+
+
 def test_cli_names_fitted_and_stated_response_parameters(tmp_path, run_cli):
     """The command prints which response parameters were stated, which fitted (with the
     prior) and which left at a default value."""
@@ -211,3 +219,18 @@ def test_check_statistics_equal_their_definitions_written_as_loops():
     assert stats["single_probe_runs"] == pytest.approx(np.mean(np.array(runs) == 1), rel=1e-12)
     blocks = [np.mean([centred[i] for i in part]) for part in np.array_split(kept, 10)]
     assert stats["block_spread"] == pytest.approx(np.std(blocks), rel=0.01)
+
+
+def test_check_runs_with_a_calibrated_table_that_replicated_paths_outgrow():
+    """A response table that stops at 3 photons: replicated paths at n_th = 0.5 climb
+    higher now and then; the check uses the last row there instead of failing, and a record
+    made by the same response is not flagged."""
+    from cavchar.fits.probe_check import probe_predictive_check
+    from cavchar.models.response import TableResponse
+
+    table = TableResponse(TRUE_RESPONSE.prob_one(None, 4)[0][0, 0])
+    rec, _ = simulate_probe_record(LIFETIME, 0.5, 1e-3 * np.arange(3000), TRUE_RESPONSE,
+                                   seed=2)
+    draws = np.tile([LIFETIME, 0.5], (50, 1))
+    check = probe_predictive_check(rec, table, draws, np.random.default_rng(0), replicates=50)
+    assert check["replicates"] == 50 and not check["misfit"]

@@ -151,7 +151,7 @@ def build_response(args: argparse.Namespace):
 
 def response_lines(description: dict) -> list[str]:
     """The probe response of a fit in words: which parameters were stated, which fitted
-    (with their priors) and which left at a default value (``settings["response"]``)."""
+    (with their priors) and which left at a default value (``settings["fit"]["response"]``)."""
     from cavchar.models.response import ROLE_TEXT
     from cavchar.report.text import prior_text
 

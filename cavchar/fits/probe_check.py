@@ -141,6 +141,22 @@ def probe_record_statistics(record) -> dict[str, float]:
     return dict(zip(lay.names(), values.tolist(), strict=True))
 
 
+def _table_model(table):
+    """A calibrated table as a callable ``(photons, settings) -> P(1)``; a replicated path
+    that climbs above the table's last row (rare: the fit's truncation rule keeps the
+    record's expected visits there below 0.01) uses that row."""
+    columns = {}
+
+    def p_one(photons: np.ndarray, settings: np.ndarray) -> np.ndarray:
+        uniq, index = np.unique(settings, return_inverse=True)
+        key = tuple(uniq.tolist())
+        if key not in columns:
+            columns[key] = table.prob_one(None, table.max_photons + 1, uniq)[0][0]  # (S, N)
+        return columns[key][index.reshape(-1), np.minimum(photons, table.max_photons)]
+
+    return p_one
+
+
 def _replicate_count(m: int, replicates: int | None) -> int:
     if replicates is not None:
         return int(replicates)
@@ -210,7 +226,7 @@ def probe_predictive_check(
         for j, i in enumerate(pick[lo:lo + chunk]):
             theta = draws[i]
             model = (response.with_values(dict(zip(free, theta[2:], strict=True)))
-                     if hasattr(response, "with_values") else response)
+                     if hasattr(response, "with_values") else _table_model(response))
             rep, _ = simulate_probe_record(float(theta[0]), float(theta[1]), times, model,
                                            settings=record.setting, segment=record.segment,
                                            initial=start, seed=rng)

@@ -209,7 +209,7 @@ def fit_probes(
         not state is fitted with its default prior
         (:data:`~cavchar.models.response.DEFAULT_FIT_PRIORS`); None: a parity
         fringe (``phi0 = pi``, ``phi_r = 0``) with V, e0 and e1 all fitted.  The
-        role of each parameter is stored under ``settings["response"]["roles"]``.
+        role of each parameter is stored under ``settings["fit"]["response"]["roles"]``.
     freq_hz, stage_temp_k
         Mode frequency (Hz) and stage temperature (K) for Q, T_eff and the Planck check.
     priors
