@@ -32,7 +32,8 @@ from cavchar.quantities import (
     quality_factor,
 )
 
-__all__ = ["add_derived_quantities", "planck_check", "format_probability", "COLUMN_INFO",
+__all__ = ["add_derived_quantities", "planck_check", "format_probability",
+           "format_probability_error", "COLUMN_INFO",
            "CREDIBLE_68", "QUANTILES_68", "PILE_UP_RATIO"]
 
 
@@ -177,6 +178,16 @@ def planck_check(samples: pd.DataFrame, freq_hz: float, stage_temp_k: float) -> 
         # T_eff increases with n, so the limit maps through exactly
         out["effective_temperature_upper95_k"] = float(effective_temperature(freq_hz, n_upper))
     return out
+
+
+def format_probability_error(p: float, mc_error: float, decimals: int = 3) -> str:
+    """A probability with its Monte Carlo error, ``"0.973 ± 0.004"``; a value within
+    the display resolution of 1 or 0 is written as a bound, ``"> 0.999 (± 0.000)"``,
+    never as ``"1.000"`` (see :func:`format_probability`)."""
+    text = format_probability(p, None, decimals)
+    if text.startswith((">", "<")):
+        return f"{text} (± {mc_error:.{decimals}f})"
+    return f"{text} ± {mc_error:.{decimals}f}"
 
 
 def format_probability(p: float | None, n_draws: int | None = None, decimals: int = 3) -> str:

@@ -116,3 +116,21 @@ def test_planck_check_upper_limit_when_piled_up_at_zero():
 def test_planck_check_needs_n_thermal():
     with pytest.raises(InputError):
         planck_check(pd.DataFrame({"lifetime": [1.0]}), 5e9, 0.05)
+
+
+@pytest.mark.parametrize(("p", "n_draws", "text"), [
+    (1.0, 4000, "> 0.999"),
+    (0.0, None, "< 0.001"),
+    (0.9996, None, "> 0.999"),   # would round to 1.000 at three places
+    (0.97312, None, "0.973"),
+])
+def test_a_probability_is_never_shown_as_one_or_zero(p, n_draws, text):
+    """A fraction of n Monte Carlo draws resolves no closer than 1/n to 0 or 1 (binomial
+    resolution, common practice), so such values are written as bounds."""
+    from cavchar.derived import format_probability, format_probability_error
+
+    assert format_probability(p, n_draws).startswith(text)
+    with_error = format_probability_error(p, 0.0004)
+    assert with_error.startswith(text) and "0.000" in with_error
+    shown = with_error.split("±")[0]
+    assert "1.000" not in shown and not shown.startswith("0.000")

@@ -13,6 +13,7 @@ from __future__ import annotations
 from collections.abc import Callable
 from typing import Any
 
+from cavchar.derived import format_probability_error
 from cavchar.report.figures import Figure
 from cavchar.report.sections import Section
 from cavchar.report.text import esc, format_interval_row, format_quantity_text, table_html
@@ -73,7 +74,7 @@ def _trend_table(trend: Any) -> list[str]:
     for row in trend.rows:
         p = row.drop_probability
         p_text = "reference" if row.fit_id == trend.reference_fit else (
-            "–" if p is None else f"{p:.3f} ± {row.drop_mc_error:.3f}")
+            "–" if p is None else format_probability_error(p, row.drop_mc_error))
         rows.append([row.cooldown, row.start_date or "–",
                      ", ".join(str(i) for i in row.fit_ids),
                      _by_quantity(row, lambda c: "–" if c is None else c.kind),
@@ -125,7 +126,7 @@ def comparison_section(comparison: Any, figure_html: FigureHtml) -> Section:
         parts += _trend_table(trend)
     rows = [[f"P(T_c {r.cavity_a} > T_c {r.cavity_b})",
              f"{r.cooldown_a} (fit {r.fit_a})", f"{r.cooldown_b} (fit {r.fit_b})",
-             f"{r.probability:.3f} ± {r.mc_error:.3f}", r.basis] for r in comparison.rows]
+             format_probability_error(r.probability, r.mc_error), r.basis] for r in comparison.rows]
     parts.append("<h3>Lifetime comparison</h3>")
     if rows:
         parts.append("<p>Independent posteriors of different records: the probability is "
@@ -166,7 +167,7 @@ def qualification_section(qualification: Any, figure_html: FigureHtml) -> Sectio
             estimate = (f"{format_quantity_text(v.median, dim, 3)} "
                         f"[{format_quantity_text(v.low_95, dim, 3)} – "
                         f"{format_quantity_text(v.high_95, dim, 3)}]")
-        p = "–" if v.probability is None else f"{v.probability:.3f} ± {v.mc_error:.3f}"
+        p = "–" if v.probability is None else format_probability_error(v.probability, v.mc_error)
         evidence = v.evidence.description if v.evidence is not None else "none"
         rows.append([esc(v.requirement.describe()), _badge(v.status), esc(p), esc(estimate),
                      esc(evidence), esc(v.hint or "")])
