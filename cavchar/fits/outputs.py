@@ -7,6 +7,7 @@ import math
 import os
 from pathlib import Path
 
+from cavchar.errors import InputError
 from cavchar.io.atomic import check_can_write
 from cavchar.result import FitResult
 
@@ -113,31 +114,79 @@ def fit_figures(result: FitResult) -> dict:
     return figures
 
 
+#: file in an output folder while a set is being moved into place; lists the set's files
+INCOMPLETE_MARKER = ".cavchar-incomplete"
+
+
+def unfinished_set(out: Path) -> set[str]:
+    """Files of an output set whose writing was cut short (a kill, a full disk): a rerun
+    may replace them without ``--force``.  Empty when the folder holds no such set."""
+    try:
+        text = (out / INCOMPLETE_MARKER).read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError):
+        return set()
+    return {line.strip() for line in text.splitlines()
+            if line.strip() and "/" not in line and line.strip() not in (".", "..")}
+
+
 def write_fit_outputs(result: FitResult, out_dir: str | os.PathLike, *, force: bool = False,
                       figures: bool = True) -> list[Path]:
     """Write ``result.json``, ``draws.csv`` (Parquet when pyarrow is there) and the figures
-    (PNG and PDF) into ``out_dir``.  Every target is checked first, so an existing file
-    without ``force`` stops the whole set before anything is written."""
+    (PNG and PDF) into ``out_dir``, as a set.
+
+    Every target is checked first, so an existing file without ``force`` stops the
+    whole set before anything is written.  The files are made in a hidden temporary
+    folder inside ``out_dir``, then moved into place one by one with ``result.json``
+    last, while a marker file (:data:`INCOMPLETE_MARKER`) lists the set: a
+    ``result.json`` therefore always comes with its draws and figures, and after a
+    kill or a full disk a rerun replaces the unfinished set without ``--force``.
+    Temporaries of earlier crashed runs are removed
+    (:func:`cavchar.io.atomic.clean_stale_temporaries`).
+    """
+    import shutil
+
     import matplotlib.pyplot as plt
 
+    from cavchar.io.atomic import clean_stale_temporaries, temporary_name
     from cavchar.plots.common import save_figure
     from cavchar.result import default_draws_name
 
     out = Path(out_dir)
-    out.mkdir(parents=True, exist_ok=True)
-    draws_name = default_draws_name()
     check_can_write(out / "result.json", force)
-    check_can_write(out / draws_name, force)
-    made = fit_figures(result) if figures else {}
     try:
-        for name in made:
-            for fmt in ("png", "pdf"):
-                check_can_write(out / f"{name}.{fmt}", force)
-        written = [result.to_json(out / "result.json", force=force),
-                   result.write_draws(out / draws_name, force=force)]
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"cannot create the output folder: {exc.strerror or exc}",
+                         path=out) from None
+    clean_stale_temporaries(out)
+    unfinished = unfinished_set(out)
+    draws_name = default_draws_name()
+    made = fit_figures(result) if figures else {}
+    names = [draws_name] + [f"{n}.{fmt}" for n in made for fmt in ("png", "pdf")] + \
+        ["result.json"]
+    staging = out / temporary_name("outputs")
+    try:
+        for name in names:
+            check_can_write(out / name, force or name in unfinished)
+        staging.mkdir()
+        result.write_draws(staging / draws_name)
         for name, fig in made.items():
-            written += save_figure(fig, out / name, force=force)
+            save_figure(fig, staging / name)
+        result.to_json(staging / "result.json")
+        from cavchar.io.atomic import write_text_atomic
+
+        write_text_atomic(out / INCOMPLETE_MARKER, "\n".join(names) + "\n", force=True)
+        written = []
+        for name in names:  # result.json last: its presence means the set is complete
+            os.replace(staging / name, out / name)
+            written.append(out / name)
+        (out / INCOMPLETE_MARKER).unlink()
+    except OSError as exc:
+        raise InputError(f"cannot write the outputs: {exc.strerror or exc}", path=out,
+                         hint="check the free space and permissions; a rerun finishes the "
+                         "set") from None
     finally:
         for fig in made.values():
             plt.close(fig)
+        shutil.rmtree(staging, ignore_errors=True)
     return written
