@@ -19,9 +19,14 @@ from typing import Any
 
 from cavchar.errors import InputError
 
-__all__ = ["sha256_of_file", "library_versions", "collect_provenance"]
+__all__ = ["sha256_of_file", "library_versions", "collect_provenance", "RUN_SPECIFIC_FIELDS"]
 
 _LIBRARIES = ("numpy", "scipy", "emcee", "pandas")
+
+
+#: the fields of a result file that differ between two runs with the same input, settings
+#: and seed (on the same platform and versions); everything else is the same bit for bit
+RUN_SPECIFIC_FIELDS = ("provenance.created_at", "diagnostics.elapsed_s")
 
 
 def sha256_of_file(path: str | os.PathLike, chunk_bytes: int = 1 << 20) -> str:

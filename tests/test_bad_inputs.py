@@ -127,7 +127,14 @@ CASES: list[tuple[str, dict, list[str], list[str]]] = [
      ["fit", "jumps", "x.csv", "--sampled"], ["x.csv", "exact"]),
     ("binary-junk", {"junk.csv": bytes(range(256)) * 4}, ["fit", "jumps", "junk.csv"],
      ["junk.csv"]),
+    ("escape-codes-in-a-cell", {"esc.csv": "time,photons\n0,0\n1,\x1b[2J\x1b[31mred\n2,\n"},
+     ["fit", "jumps", "esc.csv"], ["esc.csv", "line 3"]),
+    ("two-megabyte-cell", {"big.csv": "time,photons\n0,0\n1," + "x" * 2_000_000 + "\n2,\n"},
+     ["fit", "jumps", "big.csv"], ["big.csv", "line 3", "xxx..."]),
     # ---------------------------------------------------------------- binary readers
+    ("text-named-npz", {"t.npz": JUMPS}, ["fit", "jumps", "t.npz"], ["t.npz", "text table"]),
+    ("text-named-parquet", {"t.parquet": JUMPS}, ["fit", "jumps", "t.parquet"],
+     ["t.parquet", "text table"]),
     ("npz-text-member", {"t.npz": _npz_with_text_member()}, ["fit", "jumps", "t.npz"],
      ["t.npz"]),
     ("npz-string-array", {"s.npz": _npz(time=np.array(["0", "1"]), photons=np.array([0, 1]))},
@@ -378,6 +385,8 @@ def test_bad_input_is_refused_in_one_line(case, tmp_path, run_cli, monkeypatch):
     for word in words:
         assert word in lines[0], (word, lines[0])
     assert len(lines[0]) <= 1000
+    assert lines[0].isprintable()  # no terminal escape code or control character printed
+    assert "pickle" not in lines[0].lower()  # never advise pickle
     assert after == before, "files were written"
 
 

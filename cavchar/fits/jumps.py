@@ -40,6 +40,10 @@ DEFAULT_N_THERMAL_PRIOR = LogUniform(1e-6, 1e2)
 #: largest accepted change of the sampled-record log-likelihood from more levels
 TRUNCATION_LOGLIKE_TOL = 1e-9
 _EXTRA_LEVELS = 4
+#: most photon-number levels a sampled fit uses (the work of one likelihood call grows as
+#: levels^3 per walker): a posterior that needs more reaches an n_th the record does not
+#: constrain, and the fit is refused with the prior or record length to change
+MAX_SAMPLED_LEVELS = 150
 
 
 @dataclass(frozen=True)
@@ -239,14 +243,34 @@ def _levels_for(trans, points: np.ndarray, initial: str, start: int) -> tuple[in
     (a path must climb from the observed numbers to the top level within one step)."""
     n_levels = max(int(start), trans.n_max + 2)
     while True:
+        if n_levels + _EXTRA_LEVELS > MAX_SAMPLED_LEVELS:
+            raise _too_many_levels(trans, points)
         base = sampled_log_likelihood(trans, points[:, 0], points[:, 1], n_levels, initial)
         more = sampled_log_likelihood(trans, points[:, 0], points[:, 1],
                                       n_levels + _EXTRA_LEVELS, initial)
         finite = np.isfinite(base) & np.isfinite(more)
         change = float(np.max(np.abs(base - more)[finite], initial=0.0))
-        if change < TRUNCATION_LOGLIKE_TOL or n_levels > 400:
+        if change < TRUNCATION_LOGLIKE_TOL:
             return n_levels, change
-        n_levels += _EXTRA_LEVELS
+        if n_levels >= MAX_SAMPLED_LEVELS - _EXTRA_LEVELS:
+            raise _too_many_levels(trans, points)
+        # +4 levels at a time where levels are cheap, then a quarter more each time
+        grown = max(n_levels + _EXTRA_LEVELS, int(n_levels * 1.25)) if n_levels >= 60 \
+            else n_levels + _EXTRA_LEVELS
+        n_levels = min(grown, MAX_SAMPLED_LEVELS - _EXTRA_LEVELS)
+
+
+def _too_many_levels(trans, points: np.ndarray) -> InputError:
+    """The refusal of a sampled fit whose posterior reaches an n_th beyond the truncation."""
+    from cavchar.units import format_quantity
+
+    worst = points[int(np.argmax(points[:, 1]))]
+    return InputError(
+        f"the posterior reaches n_th = {worst[1]:.3g} (T_c = "
+        f"{format_quantity(float(worst[0]), 'time')}), where the photon-number truncation "
+        f"would need more than {MAX_SAMPLED_LEVELS} levels: the record "
+        f"({trans.n_transitions} transitions between samples) does not constrain n_th",
+        hint="give a narrower --prior-n-thermal (e.g. loguniform:1e-6,3), or a longer record")
 
 
 def _fit_sampled(record, specs, settings, initial, context):

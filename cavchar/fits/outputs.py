@@ -8,6 +8,7 @@ import sys
 from collections.abc import Sequence
 from pathlib import Path
 
+from cavchar.errors import InputError
 from cavchar.io.atomic import check_can_write
 from cavchar.result import FitResult
 
@@ -117,19 +118,45 @@ def fit_figures(result: FitResult) -> dict:
     return figures
 
 
+#: file in an output folder while a set is being moved into place; lists the set's files
+INCOMPLETE_MARKER = ".cavchar-incomplete"
+
+
+def unfinished_set(out: Path) -> set[str]:
+    """Files of an output set whose writing was cut short (a kill, a full disk): a rerun
+    may replace them without ``--force``.  Empty when the folder holds no such set."""
+    try:
+        text = (out / INCOMPLETE_MARKER).read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError):
+        return set()
+    return {line.strip() for line in text.splitlines()
+            if line.strip() and "/" not in line and line.strip() not in (".", "..")}
+
+
 def write_fit_outputs(result: FitResult, out_dir: str | os.PathLike, *, force: bool = False,
                       figures: bool = True, figure_formats: Sequence[str] = ("png",),
                       progress: bool = False) -> list[Path]:
     """Write ``result.json``, ``draws.csv`` (Parquet when pyarrow is there) and the figures
-    into ``out_dir``.  Every target is checked first, so an existing file without
-    ``force`` stops the whole set before anything is written.
+    into ``out_dir``, as a set.
+
+    Every target is checked first, so an existing file without ``force`` stops the
+    whole set before anything is written.  The files are made in a hidden temporary
+    folder inside ``out_dir``, then moved into place one by one with ``result.json``
+    last, while a marker file (:data:`INCOMPLETE_MARKER`) lists the set: a
+    ``result.json`` therefore always comes with its draws and figures, and after a
+    kill or a full disk a rerun replaces the unfinished set without ``--force``.
+    Temporaries of earlier crashed runs are removed
+    (:func:`cavchar.io.atomic.clean_stale_temporaries`).
 
     ``figures=False`` writes the result and the draws only (matplotlib is then not
     imported); ``figure_formats`` is any of ``"png"``, ``"pdf"``, ``"svg"`` (PNG by
     default: a fifth of the time of PNG and PDF); ``progress`` prints one line on
-    stderr while the figures are drawn and written, finished with the time taken."""
+    stderr while the figures are drawn and written, finished with the time taken.
+    """
+    import shutil
     import time
 
+    from cavchar.io.atomic import clean_stale_temporaries, temporary_name, write_text_atomic
     from cavchar.result import default_draws_name
 
     out = Path(out_dir)
@@ -139,38 +166,55 @@ def write_fit_outputs(result: FitResult, out_dir: str | os.PathLike, *, force: b
 
         unknown = [f for f in formats if f not in FIGURE_FORMATS]
         if unknown or not formats:
-            from cavchar.errors import InputError
-
             raise InputError(f"unknown figure format {(unknown or [''])[0]!r}",
                              hint="use png, pdf or svg")
-    out.mkdir(parents=True, exist_ok=True)
-    draws_name = default_draws_name()
     check_can_write(out / "result.json", force)
-    check_can_write(out / draws_name, force)
-    if not figures:
-        return [result.to_json(out / "result.json", force=force),
-                result.write_draws(out / draws_name, force=force)]
-    start = time.perf_counter()
-    if progress:
-        print(f"writing figures ({'+'.join(formats)}) to {out} ...", end="", file=sys.stderr,
-              flush=True)
-    import matplotlib.pyplot as plt
-
-    from cavchar.plots.common import save_figure
-
-    made = fit_figures(result)
     try:
-        for name in made:
-            for fmt in formats:
-                check_can_write(out / f"{name}.{fmt}", force)
-        written = [result.to_json(out / "result.json", force=force),
-                   result.write_draws(out / draws_name, force=force)]
-        for name, fig in made.items():
-            written += save_figure(fig, out / name, formats=formats, force=force)
-    finally:
-        for fig in made.values():
-            plt.close(fig)
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"cannot create the output folder: {exc.strerror or exc}",
+                         path=out) from None
+    clean_stale_temporaries(out)
+    unfinished = unfinished_set(out)
+    draws_name = default_draws_name()
+    start = time.perf_counter()
+    made: dict = {}
+    if figures:
         if progress:
+            print(f"writing figures ({'+'.join(formats)}) to {out} ...", end="",
+                  file=sys.stderr, flush=True)
+        made = fit_figures(result)
+    names = [draws_name] + [f"{n}.{fmt}" for n in made for fmt in formats] + ["result.json"]
+    staging = out / temporary_name("outputs")
+    try:
+        for name in names:
+            check_can_write(out / name, force or name in unfinished)
+        staging.mkdir()
+        result.write_draws(staging / draws_name)
+        if made:
+            from cavchar.plots.common import save_figure
+
+            for name, fig in made.items():
+                save_figure(fig, staging / name, formats=formats)
+        result.to_json(staging / "result.json")
+        write_text_atomic(out / INCOMPLETE_MARKER, "\n".join(names) + "\n", force=True)
+        written = []
+        for name in names:  # result.json last: its presence means the set is complete
+            os.replace(staging / name, out / name)
+            written.append(out / name)
+        (out / INCOMPLETE_MARKER).unlink()
+    except OSError as exc:
+        raise InputError(f"cannot write the outputs: {exc.strerror or exc}", path=out,
+                         hint="check the free space and permissions; a rerun finishes the "
+                         "set") from None
+    finally:
+        if made:
+            import matplotlib.pyplot as plt
+
+            for fig in made.values():
+                plt.close(fig)
+        shutil.rmtree(staging, ignore_errors=True)
+        if progress and figures:
             print(f" {len(made)} figures in {time.perf_counter() - start:.1f} s",
                   file=sys.stderr, flush=True)
     return written

@@ -376,6 +376,13 @@ def sample_posterior(
     cov, scale_method = local_covariance(logpost, u_map, lp_map, space)
     walkers0 = initial_ball(logpost, u_map, cov, settings.n_walkers, settings.init_scale,
                             np.random.default_rng(seeds[1]))
+    flat = ~np.all(np.isfinite(walkers0), axis=0) | (np.ptp(walkers0, axis=0) == 0)
+    if flat.any():  # an ensemble cannot move along a direction without spread
+        names = ", ".join(spec.name for spec, bad in zip(specs, flat, strict=True) if bad)
+        raise InputError(f"the posterior of {names} is narrower than the floating-point "
+                         "resolution around its best value: the data follow the model "
+                         "exactly (noise-free, e.g. a computed curve rather than a "
+                         "measurement)", hint="fit measured data, or simulate with noise")
 
     sampler = emcee.EnsembleSampler(settings.n_walkers, ndim, logpost, vectorize=True,
                                     moves=_make_moves(settings.moves))
@@ -390,7 +397,10 @@ def sample_posterior(
     history: list[dict[str, Any]] = []
     while n_steps < settings.max_steps:
         n_chunk = min(settings.chunk, settings.max_steps - n_steps)
-        for current in sampler.sample(state, iterations=n_chunk, store=True):
+        # the walkers have a spread (checked above); emcee's extra check refuses strongly
+        # correlated but valid ensembles, which its affine-invariant moves handle
+        for current in sampler.sample(state, iterations=n_chunk, store=True,
+                                      skip_initial_state_check=True):
             n_steps += 1
             progress.update(n_steps)
         state = current

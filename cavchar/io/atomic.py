@@ -12,12 +12,66 @@ process creates the file in the meantime.
 from __future__ import annotations
 
 import os
+import re
 import secrets
 from pathlib import Path
 
 from cavchar.errors import InputError
 
-__all__ = ["check_can_write", "write_bytes_atomic", "write_text_atomic"]
+__all__ = ["check_can_write", "write_bytes_atomic", "write_text_atomic", "temporary_name",
+           "clean_stale_temporaries", "STALE_AFTER_S"]
+
+#: a temporary file or folder whose writer is gone, or older than this (s), is stale
+STALE_AFTER_S = 24 * 3600.0
+_TEMP = re.compile(r"^\.(?:.+)\.(\d+)-[0-9a-f]{12}\.tmp$")
+
+
+def temporary_name(name: str) -> str:
+    """Hidden temporary name next to ``name``: ``.{name}.{pid}-{12 hex}.tmp`` (the writer's
+    process id lets a later run tell a crashed writer's leftovers from a live one's)."""
+    return f".{name}.{os.getpid()}-{secrets.token_hex(6)}.tmp"
+
+
+def _writer_gone(pid: int) -> bool:
+    if pid == os.getpid():
+        return False
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return True
+    except (PermissionError, OSError):  # alive under another user, or cannot tell
+        return False
+    return False
+
+
+def clean_stale_temporaries(folder: str | os.PathLike) -> list[Path]:
+    """Remove cavchar's temporary files and folders in ``folder`` left by writers that
+    crashed: their process is gone, or they are older than :data:`STALE_AFTER_S`.
+    Returns what was removed; anything that cannot be removed is left alone."""
+    import shutil
+    import time
+
+    removed = []
+    base = Path(folder)
+    if not base.is_dir():
+        return removed
+    now = time.time()
+    for item in base.iterdir():
+        match = _TEMP.match(item.name)
+        if match is None:
+            continue
+        try:
+            old = now - item.lstat().st_mtime > STALE_AFTER_S
+            if not (old or _writer_gone(int(match.group(1)))):
+                continue
+            if item.is_dir() and not item.is_symlink():
+                shutil.rmtree(item)
+            else:
+                item.unlink()
+            removed.append(item)
+        except OSError:
+            continue
+    return removed
 
 
 def check_can_write(path: str | os.PathLike, force: bool = False) -> Path:
@@ -93,7 +147,7 @@ def write_bytes_atomic(path: str | os.PathLike, data: bytes, force: bool = False
     except OSError as exc:
         raise InputError(f"cannot create the folder {folder}: {exc.strerror}", path=target,
                          hint="check the path and its permissions") from None
-    temp = folder / f".{target.name}.{secrets.token_hex(6)}.tmp"
+    temp = folder / temporary_name(target.name)
     try:
         # os.open with mode 0o666 respects the user's umask, unlike mkstemp's 0o600
         fd = os.open(temp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)

@@ -52,6 +52,17 @@ def _read_bytes(path: Path) -> bytes:
                          hint="check that it exists and is readable") from None
 
 
+def _looks_like_text(raw: bytes) -> bool:
+    head = raw[:4096]
+    try:
+        text = head.decode("utf-8")
+    except UnicodeDecodeError as exc:  # a character cut at the end of the sample is fine
+        if exc.start < len(head) - 4:
+            return False
+        text = head[: exc.start].decode("utf-8")
+    return all(c.isprintable() or c in "\r\n\t" for c in text)
+
+
 def read_table(
     path: str | os.PathLike,
     *,
@@ -122,6 +133,13 @@ def read_table(
                                       or layout.decimal):
         raise InputError(f"--skip-rows, --delimiter and --decimal are for text files, not "
                          f"{fmt.upper()}", path=path, hint="leave these options out")
+    if fmt in ("npz", "parquet") and not raw.startswith((_ZIP_MAGIC, _PARQUET_MAGIC,
+                                                          b"\x93NUMPY")):
+        kind = "a text table" if _looks_like_text(raw) else "neither"
+        raise InputError(f"the file is named .{path.suffix.lstrip('.').lower()} but is not "
+                         f"an NPZ or Parquet file (it is {kind})", path=path,
+                         hint="name a text table .csv or .tsv" if kind == "a text table"
+                         else "give a numpy .npz archive, a Parquet file or a text table")
     if fmt == "npz":
         table = read_npz(path, raw)
     elif fmt == "parquet":
