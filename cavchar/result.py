@@ -53,8 +53,19 @@ def to_plain_json(value: Any) -> Any:
     if isinstance(value, Mapping):
         return {str(k): to_plain_json(v) for k, v in value.items()}
     if isinstance(value, list | tuple):
+        if value and all(type(v) is float for v in value):  # a long list of numbers: fast path
+            return to_plain_json(np.asarray(value, dtype=float))
         return [to_plain_json(v) for v in value]
     if isinstance(value, np.ndarray):
+        if value.dtype.kind in "biu":
+            return value.tolist()  # plain bools and ints, any shape
+        if value.dtype.kind == "f":
+            finite = np.isfinite(value)
+            if finite.all():
+                return value.tolist()  # plain floats, any shape
+            cells = value.astype(object)
+            cells[~finite] = None
+            return cells.tolist()
         return to_plain_json(value.tolist())
     if isinstance(value, bool | np.bool_):
         return bool(value)

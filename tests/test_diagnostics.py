@@ -94,3 +94,16 @@ def test_constant_chain_gives_nan_not_error():
     x = np.ones((4, 100))
     assert np.isnan(diag.integrated_time(x.T)[0])
     assert np.isnan(diag.effective_sample_size(x))
+
+
+def test_average_ranks_match_scipy_rankdata():
+    # outside reference: scipy.stats.rankdata(method="average"), with many ties
+    from scipy import stats
+
+    from cavchar.inference.diagnostics import average_ranks
+
+    rng = np.random.default_rng(5)
+    for values in (rng.normal(size=(4, 250)), rng.integers(0, 7, size=(3, 101)).astype(float),
+                   np.zeros((2, 5)), np.array([[3.0, 1.0, 2.0, 1.0]])):
+        expected = stats.rankdata(values, method="average").reshape(values.shape)
+        np.testing.assert_array_equal(average_ranks(values), expected)

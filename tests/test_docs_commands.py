@@ -29,6 +29,7 @@ parses the commands without running them
 from __future__ import annotations
 
 import argparse
+import functools
 import os
 import re
 import shlex
@@ -44,7 +45,9 @@ DOCUMENTS = [REPO / "README.md", *sorted((REPO / "docs").glob("*.md"))]
 DIRECTIVE = re.compile(r"^\s*<!--\s*docs-test:(.*?)-->\s*$")
 INLINE = re.compile(r"`(cavchar [^`]*)`")
 #: placeholders and synopsis marks: FILE, SPEC.toml, RESULT.json, [--json], a / b, ...
-PLACEHOLDER = re.compile(r"^[A-Z][A-Z0-9_]+(\.[a-z]+)?$|^\[|\]$|^\.\.\.$|^/$|\||^<")
+PLACEHOLDER_WORDS = ("FILE|NAME|DIR|KIND|LABEL|N|SPEC|RESULT|TRACE|T|T0|F|UNIT|STATE|S|W|C|L|"
+                     "PRIOR|SHAPE|CAVITY|COOLDOWN|PATH|TEMP")
+PLACEHOLDER = re.compile(rf"(^|=)({PLACEHOLDER_WORDS})(\.[a-z]+)?$|^\[|\]$|^\.\.\.$|^/$|\||^<")
 
 
 @dataclass
@@ -61,6 +64,7 @@ class Command:
     line: int
     words: list[str]
     directive: Directive
+    inline: bool = False
 
     @property
     def synopsis(self) -> bool:
@@ -139,7 +143,7 @@ def extract(path: Path) -> list[Command]:
         if spans:
             for span in spans:
                 commands.append(Command(name, number, shlex.split(span)[1:],
-                                        pending or Directive()))
+                                        pending or Directive(), inline=True))
             pending = None
     return commands
 
@@ -162,11 +166,16 @@ def _subcommands(parser: argparse.ArgumentParser) -> dict[str, argparse.Argument
     return {}
 
 
-def _walk(words: list[str]) -> tuple[argparse.ArgumentParser, list[str], list[str]]:
-    """(parser of the deepest sub-command named by ``words``, its path, the words left)."""
+@functools.lru_cache(maxsize=1)
+def _parser() -> argparse.ArgumentParser:
     from cavchar.cli.main import build_parser
 
-    parser, path, rest = build_parser(), [], list(words)
+    return build_parser()
+
+
+def _walk(words: list[str]) -> tuple[argparse.ArgumentParser, list[str], list[str]]:
+    """(parser of the deepest sub-command named by ``words``, its path, the words left)."""
+    parser, path, rest = _parser(), [], list(words)
     while rest and rest[0] in _subcommands(parser):
         path.append(rest[0])
         parser = _subcommands(parser)[rest.pop(0)]
@@ -200,18 +209,21 @@ def check_synopsis(command: Command) -> None:
 
 @pytest.mark.parametrize("command", ALL_COMMANDS, ids=lambda c: c.label)
 def test_documented_command_parses(command: Command, capsys):
-    if (command.synopsis or _walk(command.words)[2] == []
+    if (command.synopsis or _names_only(command)
             or {"-h", "--help"} & set(command.words)):
         check_synopsis(command)  # a synopsis, or a bare sub-command named in the text
         return
-    from cavchar.cli.main import build_parser
-
     try:
-        build_parser().parse_args(command.words)
+        _parser().parse_args(command.words)
     except SystemExit as exc:
         err = capsys.readouterr().err
         pytest.fail(f"{command.label}: `cavchar {shlex.join(command.words)}` does not parse: "
                     f"{err} (exit {exc.code})")
+
+
+def _names_only(command: Command) -> bool:
+    """An inline mention of a sub-command (``cavchar log``), not a command to run."""
+    return command.inline and _walk(command.words)[2] == []
 
 
 def _run(words: list[str], cwd: Path) -> subprocess.CompletedProcess:
@@ -226,9 +238,10 @@ def _run(words: list[str], cwd: Path) -> subprocess.CompletedProcess:
 @pytest.mark.parametrize("document", [d.relative_to(REPO).as_posix() for d in DOCUMENTS])
 def test_documented_commands_run(document: str, tmp_path: Path):
     commands = [c for c in ALL_COMMANDS if c.document == document and not c.synopsis
-                and _walk(c.words)[2]]
+                and not _names_only(c)]
     done: set[int] = set()
-    failures = []
+    failures: list[str] = []
+    log: list[str] = []  # printed when the test fails (pytest shows captured output)
     files = list(FILES.get(document, []))
     for command in commands:
         while files and files[0][0] < command.line:
@@ -245,10 +258,13 @@ def test_documented_commands_run(document: str, tmp_path: Path):
                     f"{command.label}: setup `cavchar {shlex.join(words)}` failed:\n"
                     f"{result.stderr[-2000:]}")
         result = _run(command.words, tmp_path)
+        log.append(f"$ cavchar {shlex.join(command.words)}  -> {result.returncode}\n"
+                   f"{result.stdout[-600:]}")
         if result.returncode != command.directive.exit_code:
             failures.append(f"{command.label}: `cavchar {shlex.join(command.words)}` exit "
                             f"{result.returncode}, documented {command.directive.exit_code}:\n"
-                            f"{result.stderr[-1500:]}")
+                            f"{result.stdout[-1500:]}\n{result.stderr[-1500:]}")
         if "Traceback" in result.stderr:
             failures.append(f"{command.label}: traceback\n{result.stderr[-1500:]}")
+    print("\n".join(log))
     assert not failures, "\n".join(failures)

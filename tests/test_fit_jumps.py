@@ -162,3 +162,19 @@ def test_cli_bad_inputs_exit_2(tmp_path, run_cli):
     assert code == 2 and "Traceback" not in stderr
     code, _, stderr = run_cli("fit", "jumps", bad, "--prior-lifetime", "loguniform:1s,1ms")
     assert code == 2 and "Traceback" not in stderr
+
+
+def test_cli_figure_options(tmp_path, run_cli):
+    path = _write_record(tmp_path)
+    code, _, stderr = run_cli("fit", "jumps", path, "-o", tmp_path / "bare", "--no-figures",
+                              "--quiet")
+    assert code == 0, stderr
+    assert sorted(p.suffix for p in (tmp_path / "bare").iterdir()) in (
+        [".json", ".parquet"], [".csv", ".json"])  # result and draws, no figure
+    assert "writing figures" not in stderr
+    code, _, stderr = run_cli("fit", "jumps", path, "-o", tmp_path / "both", "--quiet",
+                              "--figure-format", "png+pdf")
+    assert code == 0, stderr
+    names = {p.name for p in (tmp_path / "both").iterdir()}
+    assert {"corner.png", "corner.pdf", "dwell_check.png", "dwell_check.pdf"} <= names
+    assert stderr.count("writing figures (png+pdf)") == 1  # one progress line

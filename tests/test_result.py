@@ -226,3 +226,26 @@ def test_sha256_of_file_known_vector(tmp_path):
     assert set(prov["versions"]) >= {"cavchar", "numpy", "scipy", "emcee"}
     with pytest.raises(InputError):
         sha256_of_file(tmp_path / "missing.csv")
+
+
+def test_plain_json_fast_paths_match_the_element_by_element_form():
+    # outside reference: the standard library's strict JSON encoder (allow_nan=False)
+    # accepts the result, and every cell equals the element-by-element conversion
+    import json as std_json
+    import math
+
+    from cavchar.result import to_plain_json
+
+    rng = np.random.default_rng(3)
+    values = rng.normal(size=(3, 50))
+    values[0, 3], values[1, 7], values[2, 9] = np.nan, np.inf, -np.inf
+    cases = [values, values.astype(np.float32), list(values[0]), np.arange(6).reshape(2, 3),
+             np.array([True, False]), [1.0, 2, 3.5]]
+    for case in cases:
+        plain = to_plain_json(case)
+        std_json.dumps(plain, allow_nan=False)
+        flat = np.asarray(case, dtype=float).ravel()
+        cells = np.asarray(plain, dtype=object).ravel()
+        for a, b in zip(flat, cells, strict=True):
+            assert (b is None) if not math.isfinite(a) else (b == a and type(b) in (int, float,
+                                                                                    bool))

@@ -186,16 +186,34 @@ def literal_figure(fig):
     Returns the figure.
     """
     from matplotlib import cbook
-    from matplotlib.mathtext import MathTextParser
     from matplotlib.text import Text
 
-    parser = MathTextParser("path")
     for item in fig.findobj(Text):
         text = item.get_text()
         if not text or not cbook.is_math_text(text):
             continue
-        try:
-            parser.parse(text, dpi=72, prop=item.get_fontproperties())
-        except (ValueError, RuntimeError):
+        if not _parses(text, item.get_fontproperties()):
             item.set_parse_math(False)
     return fig
+
+
+#: (text, hash of the font properties) -> whether mathtext parses it
+_PARSES: dict[tuple[str, int], bool] = {}
+
+
+def _parses(text: str, prop) -> bool:
+    """Whether matplotlib's mathtext parser accepts ``text`` with the font ``prop``;
+    remembered, since the same tick labels recur in every figure and format (the
+    parse was a tenth of the time of writing a fit's figures)."""
+    key = (text, hash(prop))
+    if key not in _PARSES:
+        from matplotlib.mathtext import MathTextParser
+
+        try:
+            MathTextParser("path").parse(text, dpi=72, prop=prop)
+            _PARSES[key] = True
+        except (ValueError, RuntimeError):
+            _PARSES[key] = False
+        if len(_PARSES) > 4096:
+            _PARSES.clear()
+    return _PARSES[key]
