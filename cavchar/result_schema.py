@@ -199,6 +199,11 @@ def _number_map(value: Any, where: str, *, null: bool = True) -> None:
         _number(v, f"{where}.{k}", null=null)
 
 
+def _number_map_or_null(value: Any, where: str) -> None:
+    if value is not None:
+        _number_map(value, where)
+
+
 def _optional(block: Mapping, where: str, rules: Mapping[str, Callable[[Any, str], None]]
               ) -> None:
     for key, rule in rules.items():
@@ -270,8 +275,10 @@ _DIAGNOSTICS: dict[str, Callable[[Any, str], None]] = {
     "converged": _flag,
     "moves": lambda v, w: _text(v, w, null=True),
     "failed_checks": lambda v, w: [_text(x, f"{w}[{i}]") for i, x in enumerate(_list(v, w))],
-    **{k: _number_map for k in ("tau", "tau_relative_change", "chain_length_in_tau", "ess",
-                                "ess_bulk", "ess_tail", "rhat", "acceptance_fraction")},
+    # null: not measured (e.g. the change of tau after a single measurement of it)
+    **{k: _number_map_or_null for k in ("tau", "tau_relative_change", "chain_length_in_tau",
+                                        "ess", "ess_bulk", "ess_tail", "rhat",
+                                        "acceptance_fraction")},
     "map": _obj,
     "tau_history": _list,
 }
