@@ -24,7 +24,8 @@ def summary_row(entry, status: str, exit_class: int, result: Any = None, *,
                 message: str = "") -> dict[str, Any]:
     """The summary row of one entry (NaN where the entry has no result)."""
     row: dict[str, Any] = {
-        "label": entry.label, "line": entry.line, "kind": entry.kind, "status": status, "exit_class": exit_class,
+        "label": entry.label, "line": entry.line, "kind": entry.kind, "status": status,
+        "exit_class": exit_class,
         "cavity": entry.cavity or "", "cooldown": entry.cooldown or "",
         "converged": None, "rhat_max": math.nan, "wall_s": wall_s, "attempts": attempts,
         "seed": entry.seed, "file": " ".join(entry.files), "folder": folder or "",
