@@ -199,6 +199,11 @@ def _number_map(value: Any, where: str, *, null: bool = True) -> None:
         _number(v, f"{where}.{k}", null=null)
 
 
+def _number_map_or_null(value: Any, where: str) -> None:
+    if value is not None:
+        _number_map(value, where)
+
+
 def _optional(block: Mapping, where: str, rules: Mapping[str, Callable[[Any, str], None]]
               ) -> None:
     for key, rule in rules.items():
@@ -284,9 +289,9 @@ _DIAGNOSTICS: dict[str, Callable[[Any, str], None]] = {
     "failed_checks": lambda v, w: [_text(x, f"{w}[{i}]") for i, x in enumerate(_list(v, w))],
     # null where the sampler stopped before it could measure them (e.g. the change of
     # tau after a single measurement of it)
-    **{k: (lambda v, w: None if v is None else _number_map(v, w))
-       for k in ("tau", "tau_relative_change", "chain_length_in_tau", "ess", "ess_bulk",
-                 "ess_tail", "rhat", "acceptance_fraction")},
+    **{k: _number_map_or_null for k in ("tau", "tau_relative_change", "chain_length_in_tau",
+                                        "ess", "ess_bulk", "ess_tail", "rhat",
+                                        "acceptance_fraction")},
     "map": _obj,
     "tau_history": _list,
 }

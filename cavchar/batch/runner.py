@@ -371,8 +371,10 @@ def fit_many(
 
         run.summary_csv = write_text_atomic(out_dir / SUMMARY_NAME,
                                             table.to_csv(index=False), force=True)
-        if report:
+        if report and results:
             run.report = _write_report(jobs, table, out_dir, plan)
+        elif report:
+            tell("no report.html: no entry has a result (summary.csv lists why)")
     run.elapsed_s = time.perf_counter() - start
     return run
 

@@ -380,7 +380,7 @@ def _entry(label: str, kind: str, files: list[str], fields: dict, options: dict,
 def _key_in(message: str, options: Mapping) -> str | None:
     """The option a message is about (for its line), if it names one."""
     for key in options:
-        for form in (key, "--" + key.replace("_", "-")):
+        for form in (key, key.replace("_", "-")):
             if re.search(rf"(^|[^A-Za-z0-9_-]){re.escape(form)}([^A-Za-z0-9_-]|$)", message):
                 return key
     return None

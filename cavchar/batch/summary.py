@@ -12,7 +12,7 @@ __all__ = ["SUMMARY_COLUMNS", "summary_row", "summary_text", "summary_section"]
 
 #: columns of the summary table and of summary.csv (SI units: seconds)
 SUMMARY_COLUMNS = (
-    "label", "kind", "status", "exit_class", "cavity", "cooldown",
+    "label", "line", "kind", "status", "exit_class", "cavity", "cooldown",
     "lifetime_median_s", "lifetime_lo95_s", "lifetime_hi95_s",
     "n_thermal_median", "n_thermal_lo95", "n_thermal_hi95",
     "converged", "rhat_max", "wall_s", "attempts", "seed", "file", "folder", "message",
@@ -24,7 +24,8 @@ def summary_row(entry, status: str, exit_class: int, result: Any = None, *,
                 message: str = "") -> dict[str, Any]:
     """The summary row of one entry (NaN where the entry has no result)."""
     row: dict[str, Any] = {
-        "label": entry.label, "kind": entry.kind, "status": status, "exit_class": exit_class,
+        "label": entry.label, "line": entry.line, "kind": entry.kind, "status": status,
+        "exit_class": exit_class,
         "cavity": entry.cavity or "", "cooldown": entry.cooldown or "",
         "converged": None, "rhat_max": math.nan, "wall_s": wall_s, "attempts": attempts,
         "seed": entry.seed, "file": " ".join(entry.files), "folder": folder or "",
@@ -78,9 +79,10 @@ _HEADER = ("entry", "kind", "status", "T_c median [95%]", "n_th median [95%]", "
            "wall", "attempts")
 
 
-def summary_text(table: pd.DataFrame) -> str:
+def summary_text(table: pd.DataFrame, path: str | None = None) -> str:
     """The summary as a plain-text table (lifetime in s/ms/us, 95% credible intervals),
-    followed by one line per failed entry with its message."""
+    followed by one line per failed entry with its message (``path``, the batch file,
+    and the entry's line in it first, when known)."""
     rows = _rows(table)
     widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h)
               for i, h in enumerate(_HEADER)]
@@ -88,7 +90,12 @@ def summary_text(table: pd.DataFrame) -> str:
     lines += ["  ".join(c.ljust(w) for c, w in zip(r, widths)) for r in rows]
     for _, r in table.iterrows():
         if r["exit_class"] != 0:
-            lines.append(f"{r['label']}: {r['status']} (exit class {r['exit_class']}): "
+            where = ""
+            if path is not None:
+                line = r["line"]
+                where = path + (f", line {int(line)}" if line is not None and not pd.isna(line)
+                                else "") + ": "
+            lines.append(f"{where}{r['label']}: {r['status']} (exit class {r['exit_class']}): "
                          f"{r['message']}")
     return "\n".join(lines)
 

@@ -48,7 +48,16 @@ def _announce(label: str, run: str | None) -> str | None:
 
 
 def _one_thread() -> None:
-    """One numba thread per worker: the cluster already runs one worker per core."""
+    """One numba thread and one BLAS thread per worker: the cluster already runs one
+    worker per core.  One BLAS thread also makes the last digits of linear algebra
+    independent of how a worker was started (Dask's nanny sets OMP_NUM_THREADS=1; a
+    worker without one would otherwise split sums over several BLAS threads)."""
+    try:
+        from threadpoolctl import threadpool_limits
+
+        threadpool_limits(1)
+    except ImportError:
+        pass
     if os.environ.get("NUMBA_NUM_THREADS"):
         return
     try:

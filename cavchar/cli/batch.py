@@ -142,7 +142,7 @@ def _run(args: argparse.Namespace) -> int:
                    log_create=args.log_create, force=args.force,
                    figures=not args.no_figures, report=not args.no_report,
                    progress=None if args.quiet else sys.stderr, say=print)
-    print(summary_text(run.summary))
+    print(summary_text(run.summary, str(args.batch_file)))
     print(f"summary: {run.summary_csv}")
     if run.report is not None:
         print(f"report: {run.report}")

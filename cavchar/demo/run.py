@@ -5,7 +5,8 @@ Steps (every random draw from a fixed seed, so two runs give the same files):
 1. simulate the data set of :data:`cavchar.demo.scenario.SCENARIO` with
    :mod:`cavchar.simulate` and write it to ``DIR/data`` in the formats the
    readers take;
-2. fit each record (ring-down, raw probe record, jump records) and write the
+2. fit the records (ring-down, raw probe record, jump records) through the batch
+   path, :func:`cavchar.batch.fit_many` on a local Dask cluster, and write the
    result files to ``DIR/results``;
 3. log every fit in a fresh cooldown log ``DIR/cavchar-demo.sqlite``;
 4. the trend across cooldowns with the probability that the lifetime fell,
@@ -22,11 +23,9 @@ from __future__ import annotations
 import importlib.util
 import json
 import math
-import os
 import time
 import zlib
-from collections.abc import Callable, Iterator
-from contextlib import contextmanager
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -189,52 +188,43 @@ def _settings(job: DemoJob, quick: bool):
     return SamplerSettings(seed=job.fit_seed, quiet=True, n_walkers=walkers, chunk=250)
 
 
-@contextmanager
-def _kernel_threads(threads: int | None) -> Iterator[None]:
-    """Run numba's parallel kernels (the probe-record HMM) on at most ``threads`` threads.
-
-    On a 2-core machine shared with the sampler and other work, the thread pool's
-    start-up per likelihood call cost more than it gained (a batch of 8 parameter
-    sets on 8,000 probes: 16 ms with the pool against 3.3 ms on one thread, measured
-    on a loaded machine), so the demo uses one thread unless ``NUMBA_NUM_THREADS``
-    is set by the user.  The previous setting is restored afterwards.
-    """
-    if threads is None or os.environ.get("NUMBA_NUM_THREADS"):
-        yield
-        return
-    try:
-        import numba
-    except ImportError:  # pragma: no cover - numba is a dependency
-        yield
-        return
-    previous = numba.get_num_threads()
-    numba.set_num_threads(max(1, min(int(threads), previous)))
-    try:
-        yield
-    finally:
-        numba.set_num_threads(previous)
-
-
-def _fit(job: DemoJob, scenario: Scenario, quick: bool) -> Any:
-    common = {"freq_hz": scenario.freq_hz, "stage_temp_k": job.stage_temp_k,
-              "settings": _settings(job, quick), "command": f"cavchar demo ({job.name})"}
-    if job.kind == "jumps":
-        from cavchar.fits.jumps import fit_jumps
-
-        return fit_jumps(job.data_path, **common)
+def batch_entry(job: DemoJob, scenario: Scenario, quick: bool) -> dict[str, Any]:
+    """The demo record as a batch entry (docs/batch.md): the options of :func:`_fit`
+    written as ``cavchar fit`` options, the sampler seed and walkers of the job."""
+    settings = _settings(job, quick)
+    entry: dict[str, Any] = {
+        "kind": job.kind, "file": str(job.data_path), "label": job.name,
+        "seed": job.fit_seed, "check_every": settings.chunk, "walkers": settings.n_walkers,
+        "freq": f"{scenario.freq_hz!r}Hz", "stage_temp": f"{job.stage_temp_k!r}K"}
     if job.kind == "probes":
-        from cavchar.fits.probes import fit_probes
-        from cavchar.models.response import FringeResponse
-        from cavchar.priors import Uniform
+        entry.update(visibility="uniform:0.5,1", phase_per_photon=repr(math.pi),
+                     phase_offset="0", readout_error_0=repr(scenario.probe_error0),
+                     readout_error_1=repr(scenario.probe_error1))
+    elif job.kind == "ringdown":
+        entry["signal"] = "power"
+    return entry
 
-        response = FringeResponse(visibility=Uniform(0.5, 1.0), phase_per_photon=math.pi,
-                                  phase_offset=0.0, readout_error_0=scenario.probe_error0,
-                                  readout_error_1=scenario.probe_error1)
-        with _kernel_threads(1):
-            return fit_probes(job.data_path, response=response, **common)
-    from cavchar.fits.ringdown import fit_ringdown
 
-    return fit_ringdown(job.data_path, **common)
+def _fit_batch(jobs: list[DemoJob], scenario: Scenario, quick: bool,
+               workers: int | None) -> dict[str, float]:
+    """Fit every job through the batch path (:func:`cavchar.batch.fit_many` on a local
+    Dask cluster); sets ``job.result`` and returns each fit's wall time in s.  A failed
+    fit stops the demo with that fit's own error (and exit code)."""
+    from cavchar.batch import fit_many
+    from cavchar.errors import CavcharError, ConvergenceError
+
+    if not jobs:
+        return {}
+    run = fit_many([batch_entry(j, scenario, quick) for j in jobs], workers=workers,
+                   figures=False, report=False)
+    for _, row in run.summary.iterrows():
+        if row["exit_class"] != 0:
+            error = ConvergenceError if row["exit_class"] == 3 else (
+                InputError if row["exit_class"] == 2 else CavcharError)
+            raise error(f"demo record {row['label']}: {row['message']}")
+    for job in jobs:
+        job.result = run.results[job.name]
+    return {r["label"]: float(r["wall_s"]) for _, r in run.summary.iterrows()}
 
 
 _FIT_MODULES = {"jumps": "cavchar.fits.jumps", "probes": "cavchar.fits.probes",
@@ -269,6 +259,7 @@ def run_demo(
     force: bool = False,
     scenario: Scenario = SCENARIO,
     progress: Callable[[str], None] | None = None,
+    workers: int | None = None,
 ) -> DemoOutcome:
     """Write the invented data set to ``out_dir`` and run the whole job on it.
 
@@ -286,6 +277,9 @@ def run_demo(
         Replace the files of an earlier run (the log is started afresh).
     progress
         Called with one line per step (default: silent).
+    workers
+        Worker processes of the local Dask cluster the records are fitted on (the
+        batch path, docs/batch.md); default one per core.
 
     Returns
     -------
@@ -318,17 +312,21 @@ def run_demo(
     timings["simulate"] = time.perf_counter() - tick
     say(f"wrote the invented data set ({len(jobs)} records) to {out / 'data'}")
 
+    todo = []
     for job in jobs:
         if not _have(_FIT_MODULES[job.kind]):
             job.skipped = f"{_FIT_MODULES[job.kind]} is not installed in this version"
             notes.append(f"{job.label}: not fitted, {job.skipped}.")
             say(f"skipped {job.label}: {job.skipped}")
-            continue
-        tick = time.perf_counter()
-        job.result = _fit(job, scenario, quick)
+        else:
+            todo.append(job)
+    tick = time.perf_counter()
+    walls = _fit_batch(todo, scenario, quick, workers)
+    timings["fits (batch)"] = time.perf_counter() - tick
+    for job in todo:
         job.result_path = job.result.to_json(out / "results" / f"{job.name}.json", force=force)
-        timings[f"fit {job.name}"] = time.perf_counter() - tick
-        say(f"fitted {job.label} in {timings[f'fit {job.name}']:.1f} s: "
+        timings[f"fit {job.name}"] = walls[job.name]
+        say(f"fitted {job.label} in {walls[job.name]:.1f} s: "
             + "; ".join(job.result.one_line(n) for n in ("lifetime", "n_thermal")
                         if n in job.result.samples.columns))
 
