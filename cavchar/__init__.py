@@ -11,7 +11,7 @@ matplotlib, corner or numba until a fit or plot needs them)::
 
 from __future__ import annotations
 
-import importlib
+from cavchar._lazy import lazy_exports
 
 __version__ = "0.1.0"
 
@@ -32,14 +32,4 @@ _PUBLIC = {
     "fit_many": "cavchar.batch.runner",
 }
 
-__all__ = ["__version__", *_PUBLIC]
-
-
-def __getattr__(name: str):
-    if name in _PUBLIC:
-        return getattr(importlib.import_module(_PUBLIC[name]), name)
-    raise AttributeError(f"module 'cavchar' has no attribute {name!r}")
-
-
-def __dir__() -> list[str]:
-    return sorted(__all__)
+__all__, __getattr__, __dir__ = lazy_exports(__name__, _PUBLIC, "__version__")

@@ -44,7 +44,7 @@ def ringdown_signal(signal: str) -> str:
     name = str(signal).lower().replace("-", "_")
     if name not in RINGDOWN_NUISANCES:
         raise InputError(f"unknown signal kind {signal!r}",
-                         hint="choose power, db, amplitude, iq, mean_n or populations")
+                         hint="choose power, db, amplitude, iq, mean-n or populations")
     return name
 
 

@@ -23,14 +23,20 @@ import numpy as np
 import pandas as pd
 
 from cavchar.errors import InputError
-from cavchar.quantities import COLUMN_INFO, amplitude_decay_time, linewidth, quality_factor
+from cavchar.quantities import (
+    COLUMN_INFO,
+    CREDIBLE_68,
+    QUANTILES_68,
+    amplitude_decay_time,
+    linewidth,
+    quality_factor,
+)
 
-__all__ = ["add_derived_quantities", "planck_check", "format_probability", "COLUMN_INFO",
-           "CREDIBLE_68", "PILE_UP_RATIO"]
+__all__ = ["add_derived_quantities", "planck_check", "format_probability",
+           "format_probability_error", "COLUMN_INFO",
+           "CREDIBLE_68", "QUANTILES_68", "PILE_UP_RATIO"]
 
 
-#: probability mass of a one-sigma interval of a normal law (the "68%" intervals)
-CREDIBLE_68 = math.erf(1.0 / math.sqrt(2.0))
 
 #: n_th counts as piled up against zero when its 2.5% quantile is below this fraction
 #: of its 97.5% quantile (the 95% interval spans more than two decades)
@@ -100,7 +106,7 @@ def add_derived_quantities(samples: pd.DataFrame, freq_hz: float | None = None,
 
 
 def _interval(x: np.ndarray) -> dict[str, float]:
-    lo68, med, hi68 = np.quantile(x, [(1 - CREDIBLE_68) / 2, 0.5, (1 + CREDIBLE_68) / 2])
+    lo68, med, hi68 = np.quantile(x, [QUANTILES_68[0], 0.5, QUANTILES_68[1]])
     lo95, hi95 = np.quantile(x, [0.025, 0.975])
     return {"median": float(med), "lo68": float(lo68), "hi68": float(hi68),
             "lo95": float(lo95), "hi95": float(hi95)}
@@ -172,6 +178,16 @@ def planck_check(samples: pd.DataFrame, freq_hz: float, stage_temp_k: float) -> 
         # T_eff increases with n, so the limit maps through exactly
         out["effective_temperature_upper95_k"] = float(effective_temperature(freq_hz, n_upper))
     return out
+
+
+def format_probability_error(p: float, mc_error: float, decimals: int = 3) -> str:
+    """A probability with its Monte Carlo error, ``"0.973 ± 0.004"``; a value within
+    the display resolution of 1 or 0 is written as a bound, ``"> 0.999 (± 0.000)"``,
+    never as ``"1.000"`` (see :func:`format_probability`)."""
+    text = format_probability(p, None, decimals)
+    if text.startswith((">", "<")):
+        return f"{text} (± {mc_error:.{decimals}f})"
+    return f"{text} ± {mc_error:.{decimals}f}"
 
 
 def format_probability(p: float | None, n_draws: int | None = None, decimals: int = 3) -> str:

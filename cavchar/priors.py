@@ -17,11 +17,15 @@ Families and their densities (normalised on their support):
 * :class:`Uniform` ``p(x) = 1 / (high - low)`` on ``[low, high]``;
 * :class:`Normal` ``p(x) = phi((x - mean)/sd) / (sd Z)``, truncated to
   ``[low, high]`` with ``Z = Phi(b) - Phi(a)``;
-* :class:`LogNormal` ``p(x) = phi(ln(x/median)/sigma_log) / (x sigma_log)``.
+* :class:`LogNormal` ``p(x) = phi(ln(x/median)/sigma_log) / (x sigma_log)``;
+* :class:`Beta` ``p(x) = u^(a-1) (1-u)^(b-1) / (B(a, b) (high - low))`` with
+  ``u = (x - low)/(high - low)`` on ``[low, high]`` (a probability-like
+  parameter on a bounded range, e.g. a readout error on [0, 0.5]).
 
 Text form (:func:`parse_prior`): ``"loguniform:10us,100s"``,
 ``"uniform:0,0.5"``, ``"normal:1.2ms,0.1ms"`` (optionally ``,low,high``),
-``"lognormal:1ms,0.5"`` (median with unit, then the width of ``ln x``), and
+``"lognormal:1ms,0.5"`` (median with unit, then the width of ``ln x``),
+``"beta:1,5"`` or ``"beta:1,5,0,0.5"`` (shapes a, b, optionally the range), and
 ``"stage:20mK[,width]"`` for a thermal photon number centred on the Planck
 occupation of a stage (see :func:`stage_occupation_prior`).
 """
@@ -44,6 +48,7 @@ __all__ = [
     "Uniform",
     "Normal",
     "LogNormal",
+    "Beta",
     "parse_prior",
     "prior_from_dict",
     "stage_occupation_prior",
@@ -57,7 +62,7 @@ _LOG_SQRT_2PI = 0.5 * math.log(2.0 * math.pi)
 DEFAULT_STAGE_WIDTH = 1.0
 
 _SYNTAX = ("write FAMILY:ARGS, e.g. loguniform:10us,100s  uniform:0,1  normal:1.2ms,0.1ms  "
-           "lognormal:1ms,0.5  stage:20mK,1.0")
+           "lognormal:1ms,0.5  beta:1,5,0,0.5  stage:20mK,1.0")
 
 
 def _finite(value: float, what: str, prior: str) -> float:
@@ -192,13 +197,13 @@ class Normal(Prior):
         low, high = float(self.low), float(self.high)
         if math.isnan(low) or math.isnan(high) or not low < high:
             raise InputError(f"normal prior needs low < high, got low={low:g}, high={high:g}")
-        a, b = (low - mean) / sd, (high - mean) / sd
-        if a > 0:  # both bounds above the mean: use the upper tail, where digits live
-            a, b = -b, -a
-        # now a <= 0 side carries the mass: Z = Phi(b) - Phi(a) with a < b, a <= 0
-        log_b = special.log_ndtr(b)
-        log_a = special.log_ndtr(a)
-        with np.errstate(divide="ignore"):
+        with np.errstate(divide="ignore", over="ignore", invalid="ignore"):  # extreme
+            a, b = (low - mean) / sd, (high - mean) / sd                      # values: NaN
+            if a > 0:  # both bounds above the mean: use the upper tail, where digits live
+                a, b = -b, -a
+            # now a <= 0 side carries the mass: Z = Phi(b) - Phi(a) with a < b, a <= 0
+            log_b = special.log_ndtr(b)
+            log_a = special.log_ndtr(a)
             log_z = float(log_b + np.log1p(-np.exp(log_a - log_b)))
         if not log_z > -700.0:  # mass below ~1e-304: nothing left to sample from
             raise InputError(f"normal prior N({mean:g}, {sd:g}) has almost no mass in "
@@ -275,8 +280,60 @@ class LogNormal(Prior):
         return {"family": self.family, "median": self.median, "sigma_log": self.sigma_log}
 
 
+@dataclass(frozen=True)
+class Beta(Prior):
+    """Beta prior with shapes ``a, b > 0`` stretched onto ``[low, high]`` (default [0, 1]).
+
+    Density ``u^(a-1) (1-u)^(b-1) / (B(a, b) (high - low))``, ``u = (x - low)/(high - low)``;
+    quantiles from the inverse regularized incomplete beta function
+    (``scipy.special.betaincinv``).  ``a = 1, b > 1`` gives a density that falls from
+    ``low`` (finite there): it favours small values without excluding zero.
+    """
+
+    a: float
+    b: float
+    low: float = 0.0
+    high: float = 1.0
+    family = "beta"
+
+    def __post_init__(self) -> None:
+        a = _finite(self.a, "shape a", "beta")
+        b = _finite(self.b, "shape b", "beta")
+        low = _finite(self.low, "lower bound", "beta")
+        high = _finite(self.high, "upper bound", "beta")
+        if a <= 0 or b <= 0:
+            raise InputError(f"beta prior needs shapes a > 0 and b > 0, got a={a:g}, b={b:g}")
+        if not low < high:
+            raise InputError(f"beta prior needs low < high, got low={low:g}, high={high:g}",
+                             hint="give the smaller bound first")
+        for key, value in (("a", a), ("b", b), ("low", low), ("high", high)):
+            object.__setattr__(self, key, value)
+        object.__setattr__(self, "_log_norm", float(special.betaln(a, b)) + math.log(high - low))
+
+    @property
+    def support(self) -> tuple[float, float]:
+        return (self.low, self.high)
+
+    def logpdf(self, x: ArrayLike) -> np.ndarray:
+        x = np.asarray(x, dtype=float)
+        inside = self._inside(x)
+        u = np.clip((np.where(inside, x, self.low) - self.low) / (self.high - self.low), 0, 1)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            out = (special.xlogy(self.a - 1.0, u) + special.xlog1py(self.b - 1.0, -u)
+                   - self._log_norm)
+        return np.where(inside & ~np.isnan(out), out, -np.inf)
+
+    def ppf(self, q: ArrayLike) -> np.ndarray:
+        q = np.asarray(q, dtype=float)
+        return self.low + (self.high - self.low) * special.betaincinv(self.a, self.b, q)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"family": self.family, "a": self.a, "b": self.b, "low": self.low,
+                "high": self.high}
+
+
 _FAMILIES = {"loguniform": LogUniform, "log-uniform": LogUniform, "uniform": Uniform,
-             "normal": Normal, "lognormal": LogNormal, "log-normal": LogNormal}
+             "normal": Normal, "lognormal": LogNormal, "log-normal": LogNormal, "beta": Beta}
 
 
 def prior_from_dict(data: dict[str, Any]) -> Prior:
@@ -388,6 +445,13 @@ def parse_prior(text: str, dimension: str, *, freq_hz: float | None = None) -> P
         need(2, 2)
         return LogNormal(parse_quantity(args[0], dimension),
                          parse_quantity(args[1], "dimensionless"))
+    if family == "beta":
+        if len(args) not in (2, 4):
+            raise InputError(f"prior {text!r}: beta takes 2 arguments (shapes a, b) or 4 "
+                             f"(a, b, low, high), got {len(args)}", hint=_SYNTAX)
+        shapes = [parse_quantity(x, "dimensionless") for x in args[:2]]
+        bounds = [parse_quantity(x, dimension) for x in args[2:]] or [0.0, 1.0]
+        return Beta(*shapes, *bounds)
     if family == "stage":
         need(1, 2)
         if freq_hz is None:

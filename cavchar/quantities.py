@@ -13,11 +13,20 @@ from the energy lifetime ``T_c = 1/kappa``:
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 from numpy.typing import ArrayLike
 
-__all__ = ["COLUMN_INFO", "quality_factor", "linewidth", "amplitude_decay_time",
-           "data_units", "UNKNOWN_DATA_UNIT"]
+#: probability mass of a one-sigma interval of a normal law (the "68%" intervals)
+CREDIBLE_68 = math.erf(1.0 / math.sqrt(2.0))
+#: lower and upper quantile of the equal-tailed 68% interval (0.15866, 0.84134): the one
+#: definition every table, trend, check and corner title uses
+QUANTILES_68 = ((1.0 - CREDIBLE_68) / 2.0, (1.0 + CREDIBLE_68) / 2.0)
+
+
+__all__ = ["COLUMN_INFO", "CREDIBLE_68", "QUANTILES_68", "quality_factor", "linewidth",
+           "amplitude_decay_time", "data_units", "UNKNOWN_DATA_UNIT"]
 
 #: the unit of values in the data's own, unstated unit ("arbitrary units")
 UNKNOWN_DATA_UNIT = "a.u."

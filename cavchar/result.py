@@ -25,9 +25,10 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from cavchar.derived import COLUMN_INFO, CREDIBLE_68, add_derived_quantities, planck_check
+from cavchar.derived import COLUMN_INFO, QUANTILES_68, add_derived_quantities, planck_check
 from cavchar.errors import InputError
 from cavchar.parameters import ParameterSpec
+from cavchar.units import decimals_for
 
 if TYPE_CHECKING:
     from cavchar.inference.sampler import PosteriorRun
@@ -43,7 +44,7 @@ _SCHEMA_NAME, _KNOWN_MAJORS = "cavchar-fit-result", (1,)
 BOOKKEEPING = ("log_posterior", "log_likelihood")
 
 _SUMMARY_COLUMNS = ["unit", "median", "mean", "sd", "lo68", "hi68", "lo95", "hi95", "map"]
-_Q68 = ((1 - CREDIBLE_68) / 2, (1 + CREDIBLE_68) / 2)
+_Q68 = QUANTILES_68
 
 
 def to_plain_json(value: Any) -> Any:
@@ -299,8 +300,10 @@ class FitResult:
         for name in self.quantity_names():
             x = self.column(name)
             lo68, med, hi68, lo95, hi95 = np.quantile(x, [_Q68[0], 0.5, _Q68[1], 0.025, 0.975])
+            with np.errstate(over="ignore", invalid="ignore"):  # draws near 1e308: sd inf
+                mean, sd = float(np.mean(x)), float(np.std(x, ddof=1))
             rows[name] = {"unit": self.column_info(name)[0], "median": med,
-                          "mean": float(np.mean(x)), "sd": float(np.std(x, ddof=1)),
+                          "mean": mean, "sd": sd,
                           "lo68": lo68, "hi68": hi68, "lo95": lo95, "hi95": hi95,
                           "map": float(self.map_values.get(name, math.nan))}
         table = pd.DataFrame.from_dict(rows, orient="index", columns=_SUMMARY_COLUMNS)
@@ -520,19 +523,6 @@ _DERIVED_FROM = {"quality_factor": ("lifetime", 1), "amplitude_decay_time": ("li
                  "excess_photons": ("n_thermal", 1)}
 
 
-def _pdg_decimals(error: float) -> int:
-    """Decimals that round ``error`` per the Particle Data Group rule (see one_line)."""
-    exponent = math.floor(math.log10(error))
-    lead = int(error / 10 ** (exponent - 2))  # three leading digits, 100..999
-    if lead >= 950:
-        exponent, sig = exponent + 1, 2
-    elif lead >= 355:
-        sig = 1
-    else:
-        sig = 2
-    return sig - 1 - exponent
-
-
 def _display_unit(median: float, plus: float, minus: float, dimension: str
                   ) -> tuple[float, str]:
     """(factor, suffix): the display unit of a median (SI prefix or power of ten)."""
@@ -579,7 +569,7 @@ def interval_texts(median: float, lo68: float, hi68: float, lo95: float, hi95: f
     smaller = min(plus, minus) / factor
     if not smaller > 0:
         smaller = max(plus, minus) / factor
-    decimals = _pdg_decimals(smaller) if smaller > 0 and math.isfinite(smaller) else 3
+    decimals = decimals_for(smaller)
     if median != 0:  # never more than 7 significant digits (float32 draws hold no more)
         decimals = min(decimals, 6 - math.floor(math.log10(abs(median / factor))))
     out = {}
@@ -619,7 +609,7 @@ def _scaled(median: float, plus: float, minus: float, dimension: str
         suffix = f" {unit}" if unit else ""
     med, p, m = median / factor, plus / factor, minus / factor
     smaller = min(p, m)
-    decimals = _pdg_decimals(smaller) if smaller > 0 and math.isfinite(smaller) else 3
+    decimals = decimals_for(smaller)
     if decimals < 0:  # errors of tens or more in this unit: round to that place
         step = 10.0**-decimals
         med, p, m = (round(v / step) * step for v in (med, p, m))

@@ -211,6 +211,18 @@ def _interval(value: Any, where: str) -> None:
 
 
 # ---------------------------------------------------------------------------- sections
+#: dimensions a result may give a parameter or column (those cavchar.units formats)
+_DIMENSIONS = ("time", "frequency", "rate", "temperature", "power", "phase", "dimensionless")
+
+
+def _dimension(value: Any, where: str) -> None:
+    if value is None or value == "":
+        return
+    _text(value, where)
+    if value not in _DIMENSIONS:
+        raise _Bad(where, "one of " + ", ".join(_DIMENSIONS), value)
+
+
 def _parameters(value: Any) -> list[str]:
     items = _list(value, "parameters")
     if not items:
@@ -226,7 +238,7 @@ def _parameters(value: Any) -> list[str]:
         if not spec["name"]:
             raise _Bad(f"{at}.name", "a non-empty name", spec["name"])
         _flag(spec.get("log_scale"), f"{at}.log_scale")
-        _text(spec.get("dimension", ""), f"{at}.dimension")
+        _dimension(spec.get("dimension", ""), f"{at}.dimension")
         prior = _obj(spec.get("prior"), f"{at}.prior")
         _text(prior.get("family"), f"{at}.prior.family")
         for k, v in prior.items():
@@ -383,7 +395,7 @@ _EXTRAS = {
     "signal": _text,
 }
 
-_COLUMN = {"unit": _text, "dimension": _text, "label": _text}
+_COLUMN = {"unit": _text, "dimension": _dimension, "label": _text}
 
 
 def validate_result_data(data: Any, path: str | os.PathLike | None = None) -> None:

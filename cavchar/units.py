@@ -20,7 +20,7 @@ import re
 from cavchar.errors import InputError
 
 __all__ = ["parse_quantity", "format_quantity", "DIMENSIONS", "PLAUSIBLE_RANGES",
-           "plausibility_problem", "example"]
+           "plausibility_problem", "example", "display_prefix", "decimals_for"]
 
 _PREFIXES: dict[str, float] = {
     "f": 1e-15, "p": 1e-12, "n": 1e-9, "u": 1e-6, "µ": 1e-6, "μ": 1e-6,
@@ -173,6 +173,38 @@ def _example(dimension: str) -> str:
             "power": "1nW", "phase": "0.5rad", "dimensionless": "0.01"}[dimension]
 
 
+def decimals_for(error: float) -> int:
+    """Decimal places that show an uncertainty ``error`` (> 0) by the rounding rule of the
+    Particle Data Group (Review of Particle Physics, "Introduction: rounding"): take the
+    three leading digits; 100-354 keep two significant digits, 355-949 one, 950-999 round
+    up to 1000 and keep two.  The result may be negative (rounded to tens, hundreds ...);
+    3 for an error that is not finite and positive.  The one rounding rule of cavchar's
+    output: the summary line, tables, reports and the log."""
+    if not (math.isfinite(error) and error > 0):
+        return 3
+    exponent = math.floor(math.log10(error))
+    lead = int(round(error / 10 ** (exponent - 2), 6))  # 100..999, robust to 0.355 -> 354.99
+    if lead >= 950:
+        exponent, sig = exponent + 1, 2
+    elif lead >= 355:
+        sig = 1
+    else:
+        sig = 2
+    return sig - 1 - exponent
+
+
+def display_prefix(value: float) -> tuple[str, float]:
+    """The SI prefix a value is shown with, and its factor: the largest prefix of
+    ``T, G, M, k, '', m, µ, n, p, f`` not above ``|value|`` (a value that rounds up to
+    the next prefix at 4 digits takes it), e.g. ``display_prefix(1.21e-3) == ("m", 1e-3)``.
+    The one prefix table of output text, tables and figure axes."""
+    magnitude = abs(value)
+    for prefix, factor in _FORMAT_PREFIXES:
+        if magnitude >= factor * 0.9995:
+            return prefix, factor
+    return _FORMAT_PREFIXES[-1]
+
+
 def format_quantity(value: float, dimension: str, digits: int = 3) -> str:
     """Format an SI value with a readable prefix, e.g. ``format_quantity(1.21e-3, "time")``
     gives ``"1.21 ms"``.  ``digits`` is the number of significant digits."""
@@ -181,10 +213,7 @@ def format_quantity(value: float, dimension: str, digits: int = 3) -> str:
         return f"{value} {unit}".strip()
     if value == 0 or dimension in ("dimensionless", "phase"):
         return f"{value:.{digits}g} {unit}".strip()
-    magnitude = abs(value)
-    for prefix, factor in _FORMAT_PREFIXES:
-        if magnitude >= factor * 0.9995:
-            break
+    prefix, factor = display_prefix(value)
     scaled = value / factor
     return f"{scaled:.{digits}g} {prefix}{unit}"
 

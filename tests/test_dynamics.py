@@ -80,7 +80,8 @@ def test_truncation_tail_is_below_bound():
 
 
 def test_mean_relaxes_exponentially():
-    # source: d<n>/dt = -kappa(<n> - n_th) (rate equations), and CHECKS.md derived values
+    # source: d<n>/dt = -kappa(<n> - n_th) (rate equations, Walls & Milburn sec. 6.1), and
+    # the derived values of reference_tables/damped_mode.csv
     with open(REFERENCE_TABLES / "damped_mode.csv") as handle:
         rows = [r for r in csv.DictReader(handle) if r["kind"] == "mean_from_fock3"]
     kappa, n_th = 1 / float(rows[0]["t_c_s"]), float(rows[0]["n_th"])

@@ -135,7 +135,9 @@ def test_cli_fit_writes_outputs_and_refuses_overwrite(tmp_path, run_cli):
     data = json.loads((out / "result.json").read_text())
     assert data["provenance"]["input_sha256"]
     assert data["settings"]["sampler"]["seed"] == 1
-    assert (out / "corner.png").exists() and (out / "dwell_check.pdf").exists()
+    assert (out / "corner.png").exists() and (out / "dwell_check.png").exists()
+    assert not list(out.glob("*.pdf"))  # PNG only by default
+    assert "writing figures (png)" in stderr
     code, _, stderr = run_cli("fit", "jumps", path, "-o", out, "--quiet")
     assert code == 2 and "--force" in stderr and "Traceback" not in stderr
 

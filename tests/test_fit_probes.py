@@ -2,7 +2,8 @@
 
 Outside references named at each check: records simulated from known rates
 (cavchar's Gillespie simulator, and QuTiP's quantum-jump Monte Carlo solver
-``mcsolve`` for the hidden path, see CHECKS.md); a useless probe must return
+``mcsolve`` for the hidden path: QuTiP documentation, "Monte Carlo solver";
+Johansson, Nation, Nori, Comput. Phys. Commun. 184, 1234 (2013)); a useless probe must return
 the prior; the coarse mode's bias is compared with the exact fit.
 
 Single-record coverage: each recovery test fits one seeded record; a 95%
@@ -62,7 +63,7 @@ def test_recovery_with_visibility_fitted():
     true = FringeResponse(visibility=vis, phase_per_photon=math.pi, readout_error_0=0.02)
     rec, _ = simulate_probe_record(lifetime, n_th, 1e-3 * np.arange(10000), true, seed=22)
     fitted = FringeResponse(visibility=Uniform(0.3, 1.0), phase_per_photon=math.pi,
-                            readout_error_0=0.02)
+                            readout_error_0=0.02, readout_error_1=0.0)
     result = fit_probes(rec, response=fitted, seed=2, settings=QUICK)
     assert result.parameter_names == ["lifetime", "n_thermal", "visibility"]
     for name, value in (("lifetime", lifetime), ("n_thermal", n_th), ("visibility", vis)):
@@ -73,7 +74,7 @@ def test_recovery_with_visibility_fitted():
 
 
 def mcsolve_path(lifetime, n_th, duration, seed, n_levels=12):
-    """Hidden path from QuTiP's quantum-jump Monte Carlo solver (CHECKS.md): collapse
+    """Hidden path from QuTiP's quantum-jump Monte Carlo solver (QuTiP ``mcsolve``): collapse
     operators sqrt(kappa (1+n_th)) a (index 0, n -> n-1) and sqrt(kappa n_th) a^dag
     (index 1, n -> n+1), H = 0, start in the vacuum; each recorded collapse is a jump."""
     qutip = pytest.importorskip("qutip")
@@ -109,15 +110,17 @@ def test_useless_response_returns_the_prior():
                                    seed=5)
     priors = ProbePriors(lifetime=LogUniform(0.01, 0.1), n_thermal=LogUniform(0.05, 0.5))
     with pytest.warns(PriorDominatedWarning):
-        result = fit_probes(rec, response=FringeResponse(visibility=0.0), priors=priors,
-                            seed=4, settings=QUICK, mode="exact")
+        result = fit_probes(rec, response=FringeResponse(visibility=0.0, readout_error_0=0.0,
+                                                         readout_error_1=0.0),
+                            priors=priors, seed=4, settings=QUICK, mode="exact")
     for name, (lo, hi) in (("lifetime", (0.01, 0.1)), ("n_thermal", (0.05, 0.5))):
         u = (np.log(result.samples[name]) - math.log(lo)) / math.log(hi / lo)
         np.testing.assert_allclose(np.quantile(u, [0.1, 0.5, 0.9]), [0.1, 0.5, 0.9], atol=0.06)
     # the same seed gives the same draws
     with pytest.warns(PriorDominatedWarning):
-        again = fit_probes(rec, response=FringeResponse(visibility=0.0), priors=priors,
-                           seed=4, settings=QUICK, mode="exact")
+        again = fit_probes(rec, response=FringeResponse(visibility=0.0, readout_error_0=0.0,
+                                                        readout_error_1=0.0),
+                           priors=priors, seed=4, settings=QUICK, mode="exact")
     np.testing.assert_array_equal(again.samples["lifetime"], result.samples["lifetime"])
 
 
@@ -221,7 +224,7 @@ def test_coverage_over_many_records():
     (binomial: at least 34 of 40 has probability 0.97 when the coverage is 95%)."""
     true = FringeResponse(visibility=0.75, phase_per_photon=math.pi, readout_error_0=0.02)
     fitted = FringeResponse(visibility=Uniform(0.3, 1.0), phase_per_photon=math.pi,
-                            readout_error_0=0.02)
+                            readout_error_0=0.02, readout_error_1=0.0)
     truth = {"lifetime": 0.04, "n_thermal": 0.3, "visibility": 0.75}
     hits = dict.fromkeys(truth, 0)
     with warnings.catch_warnings():

@@ -76,7 +76,8 @@ def test_recovers_simulated_trace(signal):
     assert result.samples["amplitude_decay_time"].median() == pytest.approx(
         2 * result.samples["lifetime"].median())
     q = result.samples["quality_factor"] / result.samples["lifetime"]
-    assert np.allclose(q, 2 * math.pi * 6.0e9)  # Q = 2 pi nu T_c (CHECKS.md)
+    # Q = 2 pi nu T_c (RP Photonics Encyclopedia, "Q factor")
+    assert np.allclose(q, 2 * math.pi * 6.0e9)
     if signal == "mean_n":
         assert _inside(result, "n_thermal", 0.2)
         assert _inside(result, "n_initial", 3.0)

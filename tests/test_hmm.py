@@ -1,6 +1,7 @@
 """Hidden-Markov kernels of cavchar.models.hmm_kernels against outside references.
 
-Outside sources (see /work/shared/CHECKS.md, "Hidden Markov models"):
+Outside sources (forward algorithm, Viterbi and forward-backward as in Rabiner,
+Proc. IEEE 77, 257 (1989), sections III.A-B):
 * hmmlearn 0.3 CategoricalHMM: ``score`` (forward algorithm), ``decode``
   (Viterbi), ``predict_proba`` (forward-backward marginals);
 * scipy.linalg.expm for the transition matrix ``P(dt) = expm(Q dt)`` of the

@@ -114,7 +114,7 @@ def test_parse_prior_errors(text):
 
 
 def test_stage_prior_centred_on_planck_occupation():
-    # 5 GHz at 50 mK: n = 8.3044e-03 (CHECKS.md, derived with scipy.constants)
+    # 5 GHz at 50 mK: n = 8.3044e-03 (derived with scipy.constants)
     p = stage_occupation_prior(5e9, 0.050, 0.7)
     assert math.isclose(p.median, 8.3044e-3, rel_tol=1e-4)
     assert p.sigma_log == 0.7

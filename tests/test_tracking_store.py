@@ -321,7 +321,8 @@ def test_cli_log_commands(tmp_path, run_cli, monkeypatch):
     random_result(rng, sha="2" * 64, lifetime=1e-3).to_json(tmp_path / "r2.json")
 
     code, _, err = run_cli("log", "add", "r1.json", "--cavity", "C", "--cooldown", "x")
-    assert code == 2 and "unknown cavity 'C'" in err and "Traceback" not in err
+    assert code == 2 and "no cooldown log here" in err and "Traceback" not in err
+    assert not (tmp_path / "cavchar.sqlite").exists()  # a refused add makes no log
     assert run_cli("log", "cavity", "C", "--freq", "6GHz")[0] == 0
     code, _, err = run_cli("log", "cooldown", "x", "--start", "yesterday")
     assert code == 2 and "not a date" in err

@@ -11,7 +11,7 @@ Names are imported lazily: ``import cavchar.batch`` imports neither dask nor num
 
 from __future__ import annotations
 
-import importlib
+from cavchar._lazy import lazy_exports
 
 _PUBLIC = {
     "fit_many": "cavchar.batch.runner",
@@ -27,14 +27,4 @@ _PUBLIC = {
     "BatchFileError": "cavchar.batch.spec",
 }
 
-__all__ = list(_PUBLIC)
-
-
-def __getattr__(name: str):
-    if name in _PUBLIC:
-        return getattr(importlib.import_module(_PUBLIC[name]), name)
-    raise AttributeError(f"module 'cavchar.batch' has no attribute {name!r}")
-
-
-def __dir__() -> list[str]:
-    return sorted(__all__)
+__all__, __getattr__, __dir__ = lazy_exports(__name__, _PUBLIC)

@@ -39,6 +39,7 @@ BATCH_LEVEL_OPTIONS = {
     "force": "--force of `cavchar batch run`",
     "log": "--log of `cavchar batch run` (cavity and cooldown stay per entry)",
     "log_file": "--log-file of `cavchar batch run`",
+    "log_create": "--log-create of `cavchar batch run`",
     "report": "the batch writes one overview report (--no-report turns it off)",
     "quiet": "--quiet of `cavchar batch run` (per-record progress bars are always off)",
     "help": "not an option of a fit",
@@ -46,7 +47,8 @@ BATCH_LEVEL_OPTIONS = {
 
 #: options every kind's fit call reads (besides the kind's own below)
 _COMMON_DESTS = {"freq", "stage_temp", "seed", "walkers", "max_steps", "allow_unconverged",
-                 "quiet", "log", "cavity", "cooldown", "log_file", "report", "out", "force",
+                 "quiet", "log", "cavity", "cooldown", "log_file", "log_create", "report", "out",
+                 "force",
                  "func", "help"}
 #: the options :func:`fit_from_argv` passes to each fit (others are refused, never ignored)
 _KIND_DESTS = {

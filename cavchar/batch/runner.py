@@ -108,18 +108,37 @@ def _quiet_dask() -> None:
         logging.getLogger(name).setLevel(logging.CRITICAL)
 
 
+def _check_cluster_options(workers: int | None, scheduler: str | None,
+                           client: Any = None) -> None:
+    if client is not None and (scheduler or workers is not None):
+        raise InputError("a client was given: workers and scheduler belong to its cluster",
+                         hint="pass either client or workers/scheduler")
+    if scheduler and workers is not None:
+        raise InputError("--scheduler and --workers exclude each other: the workers of an "
+                         "existing cluster are started with `dask worker`",
+                         hint="drop --workers, or drop --scheduler for a local cluster")
+    if workers is not None and int(workers) < 1:
+        raise InputError(f"the number of workers must be at least 1, not {workers}",
+                         hint="--workers 2")
+
+
 def open_client(workers: int | None = None, scheduler: str | None = None,
                 timeout_s: float = 30.0):
-    """A ``distributed.Client``: to ``scheduler`` (or ``$CAVCHAR_SCHEDULER``) when given,
-    else to a new LocalCluster of ``workers`` single-threaded processes (default: one
-    per core).  Returns ``(client, things to close)``."""
+    """A ``distributed.Client`` and the things to close after the run.
+
+    Which cluster, in this order: ``scheduler`` (an existing Dask scheduler);
+    ``workers`` (a new LocalCluster of that many single-threaded processes, even when
+    ``$CAVCHAR_SCHEDULER`` is set); ``$CAVCHAR_SCHEDULER``; a new LocalCluster with one
+    process per core.  Both ``scheduler`` and ``workers`` is an :class:`InputError`.
+    """
+    _check_cluster_options(workers, scheduler)
     try:
         from distributed import Client, LocalCluster
     except ImportError:
         raise InputError("batch fits need dask.distributed",
                          hint="pip install 'dask[distributed]'") from None
     _quiet_dask()
-    address = scheduler or os.environ.get(SCHEDULER_ENV) or None
+    address = scheduler or (None if workers is not None else os.environ.get(SCHEDULER_ENV))
     if address:
         try:
             client = Client(address, timeout=timeout_s)
@@ -128,9 +147,7 @@ def open_client(workers: int | None = None, scheduler: str | None = None,
                              hint="start it with `dask scheduler` and check the address "
                              f"(--scheduler or ${SCHEDULER_ENV})") from None
         return client, [client]
-    n = int(workers) if workers else (os.cpu_count() or 1)
-    if n < 1:
-        raise InputError("the number of workers must be at least 1", hint="--workers 2")
+    n = int(workers) if workers is not None else (os.cpu_count() or 1)
     cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
                            dashboard_address=None, silence_logs=logging.CRITICAL)
     client = Client(cluster, timeout=timeout_s)
@@ -323,6 +340,7 @@ def fit_many(
     """
     start = time.perf_counter()
     tell = say or (lambda _text: None)
+    _check_cluster_options(workers, scheduler, client)
     plan = load_plan(entries, seed)
     out_dir = Path(out) if out is not None else None
     jobs = _prepare(plan, out_dir, log, log_file, log_create, force)

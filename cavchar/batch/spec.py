@@ -52,6 +52,7 @@ class BatchFileError(InputError):
         self.problems = list(problems)
         count = len(self.problems)
         head = f"{count} problem{'s' if count != 1 else ''} in the batch file; nothing was fitted"
+        self.head = head
         super().__init__(head + ":\n" + "\n".join("  " + str(p) for p in self.problems))
 
     def __str__(self) -> str:
@@ -171,6 +172,9 @@ def read_batch_file(path: str | os.PathLike, *, seed: int | None = None) -> Batc
             from None
     try:
         data = tomllib.loads(text)
+    except RecursionError:
+        raise InputError("the batch file is nested too deeply to read", path=file,
+                         hint="see docs/batch.md for the format") from None
     except tomllib.TOMLDecodeError as exc:
         match = re.search(r"line (\d+)", str(exc))
         raise InputError(f"not a valid TOML file: {exc}", path=file,

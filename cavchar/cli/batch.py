@@ -82,7 +82,26 @@ def _usage(parser: argparse.ArgumentParser) -> int:
     return 2
 
 
+def _print_problems(command: str, exc) -> int:
+    """A batch file's problems, one line each (the file, the line, the fix); exit code 2."""
+    from cavchar.cli.main import clean_text
+
+    print(f"cavchar batch {command}: error: {clean_text(exc.head)}:", file=sys.stderr)
+    for problem in exc.problems:
+        print("  " + clean_text(str(problem)), file=sys.stderr)
+    return exc.exit_code
+
+
 def handle_check(args: argparse.Namespace) -> int:
+    from cavchar.batch.spec import BatchFileError
+
+    try:
+        return _check(args)
+    except BatchFileError as exc:
+        return _print_problems("check", exc)
+
+
+def _check(args: argparse.Namespace) -> int:
     from cavchar.batch.runner import _log_problems
     from cavchar.batch.spec import BatchFileError, read_batch_file
 
@@ -103,6 +122,15 @@ def handle_check(args: argparse.Namespace) -> int:
 
 
 def handle_run(args: argparse.Namespace) -> int:
+    from cavchar.batch.spec import BatchFileError
+
+    try:
+        return _run(args)
+    except BatchFileError as exc:
+        return _print_problems("run", exc)
+
+
+def _run(args: argparse.Namespace) -> int:
     from pathlib import Path
 
     from cavchar.batch.runner import fit_many

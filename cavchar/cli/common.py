@@ -8,8 +8,8 @@ from collections.abc import Callable
 from cavchar.units import parse_quantity
 
 __all__ = ["quantity", "add_output_options", "add_sampler_options", "add_fit_context_options",
-           "settings_from_args", "rate_priors_from_args", "check_outputs", "finish_fit_command",
-           "HelpFormatter"]
+           "settings_from_args", "rate_priors_from_args", "check_input_files", "check_outputs",
+           "finish_fit_command", "HelpFormatter", "add_layout_options", "laid_out", "for_option"]
 
 
 class HelpFormatter(argparse.ArgumentDefaultsHelpFormatter, argparse.RawDescriptionHelpFormatter):
@@ -17,13 +17,14 @@ class HelpFormatter(argparse.ArgumentDefaultsHelpFormatter, argparse.RawDescript
 
     A default is shown once: not when the help text already speaks of it
     ("default", "unset"), and never for an unset option (None), a flag (False)
-    or an empty list."""
+    or an empty list or text."""
 
     def _get_help_string(self, action: argparse.Action) -> str:
         text = action.help or ""
         default = action.default
         lowered = text.lower()
-        if (default is None or default is False or default == [] or default is argparse.SUPPRESS
+        if (default is None or default is False or default == [] or default == ""
+                or default is argparse.SUPPRESS
                 or action.nargs == 0
                 or "default" in lowered or "unset" in lowered or "%(default)" in text
                 or action.option_strings == []):
@@ -128,6 +129,65 @@ def add_fit_context_options(parser: argparse.ArgumentParser) -> None:
                         "when they are new (without it they must exist; checked before the fit)")
     parser.add_argument("--report", action="store_true",
                         help="also write a self-contained HTML report into the output folder")
+    parser.add_argument("--figure-format", choices=("png", "pdf", "png+pdf"), default="png",
+                        help="file format of the figures written with -o")
+    parser.add_argument("--no-figures", action="store_true",
+                        help="write no figures with -o (the result and the draws only)")
+
+
+def add_layout_options(parser: argparse.ArgumentParser, *, trace: bool = False,
+                       exact_rows: bool = False) -> None:
+    """How to read an instrument's file: ``--column``, ``--skip-rows``, ``--delimiter``,
+    ``--decimal`` (and ``--trace`` for ring-downs, ``--rows-are-changes`` for exact
+    jump records); see :class:`cavchar.io.tables.layout.FileLayout`."""
+    group = parser.add_argument_group(
+        "file layout", "what cannot be detected in an instrument's file (by default the "
+        "header row, delimiter and decimal mark are found by themselves)")
+    group.add_argument("--column", action="append", default=[], metavar="NAME=HEADER",
+                       help='read the file\'s column HEADER as cavchar\'s column NAME, e.g. '
+                       '--column time="Time (s)" (repeatable; other columns are then ignored)')
+    group.add_argument("--skip-rows", type=whole(0, 10**6), default=None, metavar="N",
+                       help="lines above the header to skip (an instrument's preamble); "
+                       "unset: the header row is found")
+    group.add_argument("--delimiter", default=None, metavar="SEP",
+                       help="comma, semicolon, tab or whitespace; unset: detected")
+    group.add_argument("--decimal", default=None, metavar="MARK",
+                       help="decimal mark: point or comma; unset: detected")
+    if trace:
+        group.add_argument("--trace", default=None, metavar="ID|HEADER",
+                           help="fit one trace of a file with several: an id of the trace "
+                           "column or the header of a value column")
+    if exact_rows:
+        group.add_argument("--rows-are-changes", action="store_true",
+                           help="the rows are exact change points even though they are evenly "
+                           "spaced and repeat photon numbers")
+
+
+def laid_out(path: str, args: argparse.Namespace):
+    """``path`` with the layout the options give (:class:`LaidOutPath`), or ``path``
+    itself when no layout option is given."""
+    from cavchar.io.tables.layout import FileLayout, LaidOutPath, parse_column_option
+
+    columns = dict(parse_column_option(text) for text in getattr(args, "column", []) or [])
+    layout = FileLayout(columns=columns, skip_rows=getattr(args, "skip_rows", None),
+                        delimiter=getattr(args, "delimiter", None),
+                        decimal=getattr(args, "decimal", None),
+                        trace=getattr(args, "trace", None),
+                        exact_rows=bool(getattr(args, "rows_are_changes", False)))
+    return LaidOutPath(path, layout) if layout.given else path
+
+
+def for_option(flag: str, function: Callable, *args, **kwargs):
+    """``function(*args, **kwargs)``; an :class:`InputError` it raises names ``flag``
+    (``--prior-lifetime: cannot read prior ...``), so the user knows which option to fix."""
+    from cavchar.errors import InputError
+
+    try:
+        return function(*args, **kwargs)
+    except InputError as exc:
+        if exc.path is not None or exc.message.startswith(flag):
+            raise
+        raise InputError(f"{flag}: {exc.message}", line=exc.line, hint=exc.hint) from None
 
 
 def settings_from_args(args: argparse.Namespace):
@@ -148,19 +208,36 @@ def rate_priors_from_args(args: argparse.Namespace, priors_class):
     priors = priors_class()
     lifetime, n_thermal = priors.lifetime, priors.n_thermal
     if args.prior_lifetime:
-        lifetime = parse_prior(args.prior_lifetime, "time")
+        lifetime = for_option("--prior-lifetime", parse_prior, args.prior_lifetime, "time")
     if args.prior_n_thermal:
         if args.prior_n_thermal.strip().lower() == "stage":
             if args.freq is None or args.stage_temp is None:
                 raise InputError("--prior-n-thermal stage needs --freq and --stage-temp")
             n_thermal = stage_occupation_prior(args.freq, args.stage_temp)
         else:
-            n_thermal = parse_prior(args.prior_n_thermal, "dimensionless", freq_hz=args.freq)
+            n_thermal = for_option("--prior-n-thermal", parse_prior, args.prior_n_thermal,
+                                   "dimensionless", freq_hz=args.freq)
     return priors_class(lifetime=lifetime, n_thermal=n_thermal)
+
+
+def check_input_files(paths) -> None:
+    """Fail at once when an input file is missing: called by each fit command before it
+    imports the fit modules, so a mistyped path answers in a fraction of a second."""
+    from pathlib import Path
+
+    from cavchar.errors import InputError
+
+    for name in paths:
+        if not Path(name).exists():
+            raise InputError("file not found", path=name, hint="check the path")
 
 
 def check_outputs(args: argparse.Namespace) -> None:
     """Fail before a long fit when its main output exists and --force is not given."""
+    if getattr(args, "report", False) and not args.out:
+        from cavchar.errors import InputError
+
+        raise InputError("--report needs -o/--out DIR for the report file")
     if args.out:
         from pathlib import Path
 
@@ -213,7 +290,10 @@ def finish_fit_command(result, args: argparse.Namespace) -> int:
 
     print_summary(result)
     if args.out:
-        written = write_fit_outputs(result, args.out, force=args.force)
+        written = write_fit_outputs(
+            result, args.out, force=args.force, figures=not getattr(args, "no_figures", False),
+            figure_formats=tuple(getattr(args, "figure_format", "png").split("+")),
+            progress=True)
         print(f"wrote {len(written)} files to {args.out}")
     if args.log:
         from cavchar.errors import InputError

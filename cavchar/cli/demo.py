@@ -8,8 +8,8 @@ from cavchar.cli.common import HelpFormatter, whole
 
 EXAMPLES = """examples:
   cavchar demo                      # writes ./cavchar-demo/ and prints where the report is
-  cavchar demo --out /tmp/demo --quick
-  cavchar demo --out /tmp/demo --force
+  cavchar demo --out demo-run --quick
+  cavchar demo --out demo-run --force
 
 The scenario is invented (lab, cavity, mirror set, every number): a ring-down of a
 new mirror set, a raw probe record and a jump record from a first cooldown, jump

@@ -9,10 +9,13 @@ import sys
 from cavchar.cli.common import (
     HelpFormatter,
     add_fit_context_options,
+    add_layout_options,
     add_output_options,
     add_sampler_options,
+    check_input_files,
     check_outputs,
     finish_fit_command,
+    laid_out,
     quantity,
     rate_priors_from_args,
     settings_from_args,
@@ -54,6 +57,7 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
     parser.add_argument("--stationary-start", action="store_true",
                         help="score each segment's first photon number with the thermal "
                         "(Bose-Einstein) law; only for records starting in equilibrium")
+    add_layout_options(parser, exact_rows=True)
     add_fit_context_options(parser)
     add_sampler_options(parser)
     add_output_options(parser)
@@ -61,12 +65,13 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
 
 
 def handle(args: argparse.Namespace) -> int:
+    check_input_files([args.record])
     from cavchar.fits.jumps import JumpPriors, fit_jumps
 
     check_outputs(args)
     priors = rate_priors_from_args(args, JumpPriors)
     result = fit_jumps(
-        args.record,
+        laid_out(args.record, args),
         freq_hz=args.freq,
         stage_temp_k=args.stage_temp,
         sampled=args.sampled,

@@ -10,10 +10,14 @@ import sys
 from cavchar.cli.common import (
     HelpFormatter,
     add_fit_context_options,
+    add_layout_options,
     add_output_options,
     add_sampler_options,
+    check_input_files,
     check_outputs,
     finish_fit_command,
+    for_option,
+    laid_out,
     rate_priors_from_args,
     settings_from_args,
     whole,
@@ -21,33 +25,39 @@ from cavchar.cli.common import (
 
 EXAMPLES = """examples:
   cavchar fit probes probes.csv --phase-per-photon 180deg --visibility 0.9 \\
-      --freq 6.8GHz --stage-temp 20mK -o fit_out
-  cavchar fit probes probes.csv --phase-per-photon 3.1416 --visibility uniform:0.5,1 \\
-      --readout-error-0 0.02 --readout-error-1 0.04 -o fit_out
+      --readout-error-0 0.02 --readout-error-1 0.04 --freq 6.8GHz --stage-temp 20mK -o fit_out
+  cavchar fit probes probes.csv --phase-per-photon 180deg -o fit_out
   cavchar fit probes probes.csv --response-table response.csv -o fit_out --exact
 
 Probe records: columns time (s), outcome (0/1; an empty cell = lost probe), optional
-setting (rad) and segment.  Each fringe parameter is a number (fixed, calibrated) or a
-prior such as uniform:0.5,1 (fitted).  Besides result.json, draws and figures the output
-folder gets trajectory.csv (posterior mean and most likely photon number per probe) and
-viterbi_jumps.csv (the most likely path as an exact jump record, for `cavchar fit jumps`).
-See docs/probe-records.md.
+setting (rad) and segment.  Each fringe parameter is a number (stated, calibrated) or a
+prior such as uniform:0.5,1 (fitted).  A visibility or readout error you do not state is
+fitted with its default prior (printed before the fit); a perfect probe is never assumed:
+state --visibility 1 --readout-error-0 0 --readout-error-1 0 for one.  Every fit runs a
+posterior predictive check of the outcomes (run lengths, frequencies, autocorrelation).
+Besides result.json, draws and figures the output folder gets trajectory.csv (posterior
+mean and most likely photon number per probe) and viterbi_jumps.csv (the most likely path
+as an exact jump record, for `cavchar fit jumps`).  See docs/probe-records.md.
 """
 
 #: largest Fock number accepted by --initial-photons (the truncation grows with it)
 MAX_INITIAL_PHOTONS = 100
 
 _FRINGE_OPTIONS = (
-    ("visibility", "--visibility", "dimensionless", "1",
-     "fringe visibility V in [0, 1], a number or a prior, e.g. 0.9 or uniform:0.5,1"),
-    ("phase_per_photon", "--phase-per-photon", "phase", "pi",
-     "phase per photon phi0 (rad or deg), e.g. 180deg (parity probe) or normal:3.1,0.05"),
-    ("phase_offset", "--phase-offset", "phase", "0",
-     "fringe phase offset phi_r (rad or deg), a number or a prior"),
-    ("readout_error_0", "--readout-error-0", "dimensionless", "0",
-     "probability of reading 1 when the ideal outcome is 0"),
-    ("readout_error_1", "--readout-error-1", "dimensionless", "0",
-     "probability of reading 0 when the ideal outcome is 1"),
+    ("visibility", "--visibility", "dimensionless",
+     "fringe visibility V in [0, 1], a number or a prior, e.g. 0.9 or uniform:0.5,1; "
+     "unset: fitted, prior uniform:0,1"),
+    ("phase_per_photon", "--phase-per-photon", "phase",
+     "phase per photon phi0 (rad or deg), e.g. 180deg (parity probe) or normal:3.1,0.05; "
+     "unset: pi (parity probe), not fitted"),
+    ("phase_offset", "--phase-offset", "phase",
+     "fringe phase offset phi_r (rad or deg), a number or a prior; unset: 0, not fitted"),
+    ("readout_error_0", "--readout-error-0", "dimensionless",
+     "probability e0 of reading 1 when the ideal outcome is 0; unset: fitted, prior "
+     "beta:1,5,0,0.5"),
+    ("readout_error_1", "--readout-error-1", "dimensionless",
+     "probability e1 of reading 0 when the ideal outcome is 1; unset: fitted, prior "
+     "beta:1,5,0,0.5"),
 )
 
 
@@ -70,8 +80,8 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
                         "given, else fringe")
     parser.add_argument("--response-table", default=None, metavar="FILE",
                         help="calibrated P(1 | n[, setting]): columns photons, p_one, setting")
-    for _, flag, _, default, text in _FRINGE_OPTIONS:
-        parser.add_argument(flag, default=default, metavar="VALUE|PRIOR", help=text)
+    for _, flag, _, text in _FRINGE_OPTIONS:
+        parser.add_argument(flag, default=None, metavar="VALUE|PRIOR", help=text)
     parser.add_argument("--prior-lifetime", default=None, metavar="PRIOR",
                         help="prior on T_c; unset: loguniform:1us,1000s")
     parser.add_argument("--prior-n-thermal", default=None, metavar="PRIOR",
@@ -90,6 +100,7 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
     parser.add_argument("--initial-photons", type=whole(0, MAX_INITIAL_PHOTONS), default=None,
                         metavar="N",
                         help="segments start in Fock state N; unset: thermal equilibrium")
+    add_layout_options(parser)
     add_fit_context_options(parser)
     add_sampler_options(parser)
     add_output_options(parser)
@@ -106,7 +117,7 @@ def _fringe_value(text: str, dimension: str, name: str):
     if text.lower() in ("pi", "+pi"):
         return math.pi
     if ":" in text:
-        return parse_prior(text, dimension)
+        return for_option(f"--{name.replace('_', '-')}", parse_prior, text, dimension)
     try:
         return parse_quantity(text, dimension)
     except InputError as exc:
@@ -127,11 +138,65 @@ def build_response(args: argparse.Namespace):
     if args.response_table:
         raise InputError("--response-table cannot be combined with --response fringe")
     values = {name: _fringe_value(getattr(args, name), dim, name)
-              for name, _, dim, _, _ in _FRINGE_OPTIONS}
-    return FringeResponse(**values)
+              for name, _, dim, _ in _FRINGE_OPTIONS if getattr(args, name) is not None}
+    try:
+        return FringeResponse(**values)
+    except InputError as exc:
+        for name, flag, _, _ in _FRINGE_OPTIONS:
+            if exc.message.startswith(name + " ") or exc.message.startswith(
+                    name.replace("_", " ") + " "):
+                raise InputError(f"{flag}: {exc.message}", hint=exc.hint) from None
+        raise
+
+
+def response_lines(description: dict) -> list[str]:
+    """The probe response of a fit in words: which parameters were stated, which fitted
+    (with their priors) and which left at a default value (``settings["response"]``)."""
+    from cavchar.models.response import ROLE_TEXT
+    from cavchar.report.text import prior_text
+
+    if description.get("kind") != "fringe":
+        return [f"probe response: calibrated table {description.get('source') or ''}".rstrip()
+                + " (stated; nothing fitted)"]
+    flags = {name: flag for name, flag, _, _ in _FRINGE_OPTIONS}
+    roles = description.get("roles") or {}
+    groups: dict[str, list[str]] = {}
+    for name, flag in flags.items():
+        value = description[name]
+        role = roles.get(name, "stated prior" if isinstance(value, dict) else "stated")
+        if isinstance(value, dict):
+            dimension = "phase" if "phase" in name else "dimensionless"
+            text = f"{flag[2:]} ~ {prior_text(value, dimension)}"
+        else:
+            text = f"{flag[2:]} = {value:.6g}" + (" rad" if "phase" in name else "")
+        groups.setdefault(role, []).append(text)
+    lines = ["probe response (Ramsey fringe):"]
+    for role in ("stated", "stated prior", "default prior", "default"):
+        if groups.get(role):
+            lines.append(f"  {ROLE_TEXT[role]}: " + "; ".join(groups[role]))
+    return lines
+
+
+def check_lines(check: dict | None) -> list[str]:
+    """The posterior predictive check of a probe fit in words."""
+    if not check:
+        return []
+    head = (f"model check (posterior predictive, {check['replicates']} replicated records, "
+            f"{len(check['statistics'])} statistics, false-alarm rate "
+            f"{check['family_alpha']:g}): ")
+    if not check["misfit"]:
+        worst = min(check["statistics"], key=lambda row: row["normal_tail_p_value"])
+        return [head + f"no misfit (most extreme: {worst['statistic']}, z = "
+                f"{worst['z'] if worst['z'] is not None else float('nan'):+.1f})"]
+    lines = [head + "MISFIT - the record does not look like the fitted model"]
+    lines += [f"  {flag}" for flag in check["flags"]]
+    lines.append("  check the probe response (visibility, readout errors, phases): state only "
+                 "what is calibrated and let the fit find the rest")
+    return lines
 
 
 def handle(args: argparse.Namespace) -> int:
+    check_input_files([args.record])
     from pathlib import Path
 
     from cavchar.errors import InputError
@@ -144,12 +209,14 @@ def handle(args: argparse.Namespace) -> int:
     if args.out:
         for name in ("trajectory.csv", "viterbi_jumps.csv"):
             check_can_write(Path(args.out) / name, args.force)
-    response = build_response(args)
+    response = build_response(args).for_fit()
+    for line in response_lines(response.describe()):
+        print(line)
     priors = rate_priors_from_args(args, ProbePriors)
     if args.block_probes is not None and args.block_probes < 1:
         raise InputError("--block-probes must be at least 1")
     result, trajectory = fit_probes_with_trajectory(
-        args.record,
+        laid_out(args.record, args),
         response=response,
         freq_hz=args.freq,
         stage_temp_k=args.stage_temp,
@@ -164,6 +231,8 @@ def handle(args: argparse.Namespace) -> int:
     if bias:
         print(f"coarse mode: blocks of {bias['block_probes']} probes; bias bound "
               f"{bias['bias_bound_sd']:.3f} posterior sd (checked on {bias['n_checked']} draws)")
+    for line in check_lines(result.checks.get("posterior_predictive")):
+        print(line)
     code = finish_fit_command(result, args)
     if args.out:
         out = Path(args.out)

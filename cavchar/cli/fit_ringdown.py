@@ -10,10 +10,14 @@ import sys
 from cavchar.cli.common import (
     HelpFormatter,
     add_fit_context_options,
+    add_layout_options,
     add_output_options,
     add_sampler_options,
+    check_input_files,
     check_outputs,
     finish_fit_command,
+    for_option,
+    laid_out,
     quantity,
     real,
     settings_from_args,
@@ -75,6 +79,7 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
                         help="prior of a parameter, e.g. lifetime=loguniform:10us,1s or "
                         "n_thermal=uniform:0,0.5 (repeatable; others default to wide "
                         "log-uniform ranges)")
+    add_layout_options(parser, trace=True)
     add_fit_context_options(parser)
     add_sampler_options(parser)
     add_output_options(parser)
@@ -119,19 +124,22 @@ def _priors(items: list[str], freq_hz: float | None) -> dict:
             raise InputError(f"cannot read --prior {item!r}",
                              hint="NAME=PRIOR, e.g. lifetime=loguniform:10us,1s")
         name = name.strip()
-        out[name] = parse_prior(text.strip(), dimensions.get(name, "dimensionless"),
-                                freq_hz=freq_hz)
+        out[name] = for_option(f"--prior {name}", parse_prior, text.strip(),
+                               dimensions.get(name, "dimensionless"), freq_hz=freq_hz)
     return out
 
 
 def handle(args: argparse.Namespace) -> int:
+    check_input_files(args.traces)
     from cavchar.fits.ringdown import DEFAULT_SETTINGS, fit_ringdown
+    from cavchar.fits.ringdown_data import time_factor
 
     check_outputs(args)
+    for_option("--time-unit", time_factor, args.time_unit)
     settings = dataclasses.replace(settings_from_args(args), chunk=DEFAULT_SETTINGS.chunk,
                                    target_ess=DEFAULT_SETTINGS.target_ess)
     result = fit_ringdown(
-        list(args.traces),
+        [laid_out(path, args) for path in args.traces],
         signal=args.signal,
         freq_hz=args.freq,
         stage_temp_k=args.stage_temp,

@@ -13,10 +13,24 @@ from datetime import date
 
 from cavchar.cli.common import HelpFormatter, quantity
 from cavchar.errors import InputError
-from cavchar.tracking.store import LOG_ENV, log_fit_result, open_log
 
 __all__ = ["register", "add_log_file_option", "add_fit_log_options", "log_from_args",
            "log_fit_result", "fit_id_arg", "add_selection_options", "interval_text"]
+
+
+def open_log(*args, **kwargs):
+    """:func:`cavchar.tracking.store.open_log`, imported when a command runs (so that
+    ``cavchar --help`` does not load the log's dependencies)."""
+    from cavchar.tracking.store import open_log as open_store
+
+    return open_store(*args, **kwargs)
+
+
+def log_fit_result(*args, **kwargs):
+    """:func:`cavchar.tracking.store.log_fit_result`, imported when called."""
+    from cavchar.tracking.store import log_fit_result as log_result
+
+    return log_result(*args, **kwargs)
 
 EXAMPLES = """examples:
   cavchar log cavity mirrors-B --freq 6.8GHz --notes "second mirror set"
@@ -80,7 +94,7 @@ def interval_text(stats, dimension: str) -> str:
 def add_log_file_option(parser: argparse.ArgumentParser) -> None:
     """``--log-file PATH`` (default: $CAVCHAR_LOG or ./cavchar.sqlite)."""
     parser.add_argument("--log-file", metavar="PATH", default=None,
-                        help=f"cooldown log file (default: ${LOG_ENV}, else ./cavchar.sqlite)")
+                        help="cooldown log file (default: $CAVCHAR_LOG, else ./cavchar.sqlite)")
 
 
 def add_fit_log_options(parser: argparse.ArgumentParser) -> None:
@@ -219,7 +233,16 @@ def _add(args: argparse.Namespace) -> int:
 
     entries = [read_result_file(path) for path in args.results]  # read all before writing
     on_duplicate = "keep" if args.keep_duplicate else "error"
-    with open_log(args.log_file) as log:
+    if not args.create:
+        from cavchar.errors import InputError
+        from cavchar.tracking.store import resolve_log_path
+
+        file = resolve_log_path(args.log_file)
+        if not file.exists():
+            raise InputError("there is no cooldown log here", path=file,
+                             hint="add --create to start a new log with these fits, or give "
+                             "--log-file")
+    with open_log(args.log_file, create=args.create) as log:
         with log.transaction() as con:  # all files or none
             ids = [log._add_fit_locked(con, entry, args.cavity, args.cooldown,
                                        stage_temp_k=args.stage_temp, create=args.create,

@@ -13,7 +13,6 @@ from __future__ import annotations
 
 import argparse
 import importlib
-import importlib.util
 import re
 import sys
 import warnings
@@ -82,10 +81,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"cavchar {__version__}")
     subparsers = parser.add_subparsers(dest="command", metavar="COMMAND")
     for name in COMMAND_MODULES:
-        module_name = f"cavchar.cli.{name}"
-        if importlib.util.find_spec(module_name) is None:
-            continue
-        importlib.import_module(module_name).register(subparsers)
+        importlib.import_module(f"cavchar.cli.{name}").register(subparsers)
     return parser
 
 

@@ -23,11 +23,20 @@ EXAMPLES = """examples:
 #: largest assumed n_th a plan accepts: the probe and sampled forecasts truncate the
 #: photon number, which needs at most cavchar.dynamics.MAX_LEVELS levels up to here
 MAX_N_THERMAL = 10.0
+#: longest time a plan accepts for any time option (about three years): beyond it the
+#: forecast is a unit mistake, not a plan
+MAX_PLAN_TIME = 1e8
+TIME = quantity("time", positive=True, maximum=MAX_PLAN_TIME)
 
 _DIMENSION = {"lifetime": "time", "n_thermal": "dimensionless",
               "quality_factor": "dimensionless", "effective_temperature": "temperature"}
 _LABEL = {"lifetime": "lifetime T_c", "n_thermal": "thermal photons n_th",
           "quality_factor": "quality factor Q", "effective_temperature": "temperature T_eff"}
+
+
+def _signal_word(text: str) -> str:
+    """``mean_n`` and ``Mean-N`` read as ``mean-n``, the word of every command."""
+    return text.strip().lower().replace("_", "-")
 
 
 def fraction(text: str) -> float:
@@ -55,7 +64,7 @@ def count(text: str) -> int:
 
 
 def _common(parser: argparse.ArgumentParser, n_thermal_required: bool = True) -> None:
-    parser.add_argument("--lifetime", type=quantity("time", positive=True), required=True,
+    parser.add_argument("--lifetime", type=TIME, required=True,
                         help="assumed energy lifetime T_c, e.g. 1.2ms")
     parser.add_argument("--n-thermal", type=quantity("dimensionless", maximum=MAX_N_THERMAL),
                         required=n_thermal_required, default=None if n_thermal_required else 0.0,
@@ -94,9 +103,9 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                              "points, or the photon number read every --sample-interval).",
                              epilog=EXAMPLES, formatter_class=HelpFormatter)
     _common(jumps)
-    jumps.add_argument("--record-length", type=quantity("time", positive=True), default=None,
+    jumps.add_argument("--record-length", type=TIME, default=None,
                        help="forecast the precision of this total record length, e.g. 2min")
-    jumps.add_argument("--sample-interval", type=quantity("time", positive=True), default=None,
+    jumps.add_argument("--sample-interval", type=TIME, default=None,
                        help="sampled record: time between photon-number readings, e.g. 50us")
     jumps.set_defaults(func=handle)
 
@@ -108,7 +117,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                               "reveals the photon number.",
                               epilog=EXAMPLES, formatter_class=HelpFormatter)
     _common(probes)
-    probes.add_argument("--probe-interval", type=quantity("time", positive=True), required=True,
+    probes.add_argument("--probe-interval", type=TIME, required=True,
                         help="time between probes, e.g. 20us")
     probes.add_argument("--probes", type=count, default=None,
                         help="forecast the precision of this number of probes, e.g. 1e6")
@@ -138,12 +147,12 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                             "quadrature for iq and amplitude).",
                             epilog=EXAMPLES, formatter_class=HelpFormatter)
     _common(ring, n_thermal_required=False)
-    ring.add_argument("--signal", required=True,
-                      choices=("power", "db", "amplitude", "iq", "mean_n", "populations"),
+    ring.add_argument("--signal", required=True, type=_signal_word,
+                      choices=("power", "db", "amplitude", "iq", "mean-n", "populations"),
                       help="what the trace holds")
     ring.add_argument("--noise", type=real(0.0), default=0.0,
                       help="noise sd per point of one trace (value units)")
-    ring.add_argument("--span", type=quantity("time", positive=True), default=None,
+    ring.add_argument("--span", type=TIME, default=None,
                       help="time span sampled after the decay starts (default 5 lifetimes)")
     ring.add_argument("--points", type=whole(2, 10_000_000), default=1000,
                       help="points per trace")

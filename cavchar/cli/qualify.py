@@ -73,6 +73,7 @@ class _Span:
 
 
 def print_qualification(report) -> None:
+    from cavchar.derived import format_probability_error
     from cavchar.tracking.qualify import QUANTITIES
 
     title = f" {report.spec.title!r}" if report.spec.title else ""
@@ -81,7 +82,8 @@ def print_qualification(report) -> None:
         dim = QUANTITIES[v.requirement.quantity][0]
         print(f"  {v.status:<9} {v.requirement.describe()}")
         if v.probability is not None:
-            print(f"            P(met) = {v.probability:.3f} ± {v.mc_error:.3f} (Monte Carlo); "
+            p_met = format_probability_error(v.probability, v.mc_error)
+            print(f"            P(met) = {p_met} (Monte Carlo); "
                   f"median [95%] {interval_text(_Span(v), dim)}")
         if v.evidence is not None:
             print(f"            data: {v.evidence.description}")

@@ -6,8 +6,6 @@ import argparse
 import math
 from pathlib import Path
 
-import numpy as np
-
 from cavchar.cli.common import HelpFormatter, add_output_options, quantity, real, whole
 from cavchar.errors import InputError
 from cavchar.units import format_quantity, parse_quantity
@@ -142,8 +140,8 @@ def _probe_options(sub: argparse.ArgumentParser) -> None:
 
 
 def _ringdown_options(sub: argparse.ArgumentParser) -> None:
-    sub.add_argument("--signal", required=True,
-                     choices=("power", "db", "amplitude", "iq", "mean-n", "mean_n", "populations"),
+    sub.add_argument("--signal", required=True, type=lambda s: s.strip().lower().replace("_", "-"),
+                     choices=("power", "db", "amplitude", "iq", "mean-n", "populations"),
                      help="signal kind")
     sub.add_argument("--points", type=whole(1, 20_000_000), default=1000,
                      help="number of points per trace, evenly spaced over --duration")
@@ -204,6 +202,8 @@ def _summary(args: argparse.Namespace, path=None) -> str:
 
 def _times(args: argparse.Namespace, path=None):
     """Probe times (and segment ids): simulated segments, or the segments of ``path``."""
+    import numpy as np
+
     from cavchar.simulate import probe_times
 
     rng = np.random.default_rng([args.seed, 1])
@@ -307,6 +307,8 @@ def _number(text: str, dimension: str, option: str, minimum: float | None = 0.0)
 
 
 def handle_ringdown(args: argparse.Namespace) -> int:
+    import numpy as np
+
     from cavchar.io.writers import write_ringdown
     from cavchar.simulate import simulate_ringdown
 

@@ -6,7 +6,6 @@ import argparse
 
 from cavchar.cli.common import HelpFormatter, quantity
 from cavchar.errors import InputError
-from cavchar.thermal import H_OVER_KB, effective_temperature, planck_occupation
 from cavchar.units import format_quantity
 
 EXAMPLES = """examples:
@@ -36,6 +35,8 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 
 def handle(args: argparse.Namespace) -> int:
+    from cavchar.thermal import H_OVER_KB, effective_temperature, planck_occupation
+
     if not args.temp and not args.n_thermal:
         raise InputError("give --temp and/or --n-thermal", hint="see cavchar thermal --help")
     nu = args.freq

@@ -90,6 +90,8 @@ def _cell(row, name: str, dimension: str) -> str:
 
 def print_trend(trend, why: bool = False) -> None:
     """The trend as a table on stdout, with the fits each row uses and why."""
+    from cavchar.derived import format_probability_error
+
     print(f"cavity {trend.cavity}: {trend.selection}; median [95% interval]")
     head = (f"{'cooldown':<12} {'fits':<8} {'stage':>8} {'lifetime':<26} {'n_th':<30} "
             f"{'T_eff':<24}")
@@ -105,7 +107,7 @@ def print_trend(trend, why: bool = False) -> None:
         if r.fit_id == trend.reference_fit and "lifetime" in r.sources:
             line += " reference"
         elif r.drop_probability is not None:
-            line += f" {r.drop_probability:.3f} ± {r.drop_mc_error:.3f}"
+            line += f" {format_probability_error(r.drop_probability, r.drop_mc_error)}"
         print(line)
     print("fits used:")
     for r in trend.rows:
@@ -126,13 +128,16 @@ def print_trend(trend, why: bool = False) -> None:
 
 def print_comparison(comparison, why: bool = False) -> None:
     """Several cavities' trends, then P(T_c of the first > T_c of each other)."""
+    from cavchar.derived import format_probability_error
+
     for trend in comparison.trends:
         print_trend(trend, why)
         print()
     print("lifetime comparison (independent posteriors, all pairs of stored draws):")
     for r in comparison.rows:
         print(f"  P(T_c {r.cavity_a} [{r.cooldown_a}, fit {r.fit_a}] > T_c {r.cavity_b} "
-              f"[{r.cooldown_b}, fit {r.fit_b}]) = {r.probability:.3f} ± {r.mc_error:.3f} "
+              f"[{r.cooldown_b}, fit {r.fit_b}]) = "
+              f"{format_probability_error(r.probability, r.mc_error)} "
               f"({r.basis})")
     if not comparison.rows:
         print("  no cooldown of the cavities has lifetimes to compare")

@@ -6,7 +6,13 @@ samples the posterior of ``(T_c, n_th, fitted response parameters)`` with the
 common emcee driver and returns a :class:`cavchar.result.FitResult` with the
 derived quantities, the Planck check, the truncation used and the
 reconstructed trajectory (an excerpt in the result; the whole of it through
-:func:`cavchar.fits.probe_trajectory.reconstruct_trajectory`).
+:func:`cavchar.fits.probe_trajectory.reconstruct_trajectory`) and a posterior
+predictive check of the outcomes (:mod:`cavchar.fits.probe_check`, under
+``checks["posterior_predictive"]``; a misfit warns).
+
+A visibility or readout error the response does not state is fitted with its
+default prior (:data:`cavchar.models.response.DEFAULT_FIT_PRIORS`): a perfect
+probe is never assumed unless stated.
 
 Modes: ``"exact"`` (forward algorithm over every probe), ``"coarse"`` (blocks
 of probes, :mod:`cavchar.models.probe_blocks`, with its bias measured against
@@ -27,6 +33,7 @@ import numpy as np
 
 from cavchar.errors import CavcharWarning, InputError, PriorDominatedWarning
 from cavchar.fits.common import FitContext, finish_fit, sampler_settings
+from cavchar.fits.probe_check import probe_predictive_check
 from cavchar.fits.probe_trajectory import reconstruct_trajectory
 from cavchar.inference import SamplerSettings, sample_posterior
 from cavchar.models.probe_blocks import (
@@ -87,8 +94,11 @@ def _read(record) -> ProbeRecord:
 
 
 def _response(response) -> FringeResponse | TableResponse:
+    """The response the fit uses: unstated visibility and readout errors fitted."""
+    if response is None:
+        return FringeResponse().for_fit()
     if isinstance(response, (FringeResponse, TableResponse)):
-        return response
+        return response.for_fit()
     if isinstance(response, (str, os.PathLike)):
         return TableResponse.from_file(response)
     raise InputError("the probe response must be a fringe response or a response table file")
@@ -116,7 +126,9 @@ def _pilot(record: ProbeRecord, response, priors: ProbePriors, initial) -> np.nd
     Response parameters start at their prior medians.  The lifetime grid spans
     three probe intervals to the pilot's duration at n_th = 0.1; n_th is then
     refined on a grid (1e-3 .. 0.5, extended to 5 when the best value is at the
-    edge) at the best lifetime, twice.  Grid points are clipped to the priors' supports.
+    edge) at the best lifetime, then each fitted response parameter on the
+    5%, 15%, ..., 95% points of its prior; twice.  Grid points are clipped to the
+    priors' supports.
     """
     specs = response.parameter_specs()
     free0 = [float(s.prior.ppf(0.5)) for s in specs]
@@ -129,8 +141,9 @@ def _pilot(record: ProbeRecord, response, priors: ProbePriors, initial) -> np.nd
     def clip(x, lo, hi):
         return np.clip(x, max(lo, 1e-300), hi)
 
-    def best(tcs, nths):
-        theta = np.column_stack([tcs, nths] + [np.full(tcs.size, v) for v in free0])
+    def best(tcs, nths, free=None):
+        free = [np.full(tcs.size, v) for v in free0] if free is None else free
+        theta = np.column_stack([tcs, nths] + list(free))
         ll = model(theta)
         return int(np.argmax(ll)) if np.isfinite(ll).any() else None
 
@@ -148,6 +161,11 @@ def _pilot(record: ProbeRecord, response, priors: ProbePriors, initial) -> np.nd
             nths = clip(np.geomspace(0.5, 5.0, 8), lo_n, hi_n)
             i = best(np.full(nths.size, best_t), nths)
         best_n = best_n if i is None else float(nths[i])
+        for j, spec in enumerate(specs):
+            grid = np.asarray(spec.prior.ppf(np.linspace(0.05, 0.95, 10)), dtype=float)
+            free = [grid if k == j else np.full(grid.size, v) for k, v in enumerate(free0)]
+            i = best(np.full(grid.size, best_t), np.full(grid.size, best_n), free)
+            free0[j] = free0[j] if i is None else float(grid[i])
     return np.array([best_t, best_n] + free0)
 
 
@@ -163,7 +181,7 @@ def _n0(initial) -> int:
 def fit_probes(
     record: ProbeRecord | str | os.PathLike,
     *,
-    response: FringeResponse | TableResponse | str | os.PathLike,
+    response: FringeResponse | TableResponse | str | os.PathLike | None = None,
     freq_hz: float | None = None,
     stage_temp_k: float | None = None,
     priors: ProbePriors | None = None,
@@ -187,7 +205,11 @@ def fit_probes(
     response
         :class:`~cavchar.models.response.FringeResponse` (each parameter fixed or
         with a prior) or :class:`~cavchar.models.response.TableResponse`, or the
-        path of a response table.
+        path of a response table.  A visibility or readout error the fringe does
+        not state is fitted with its default prior
+        (:data:`~cavchar.models.response.DEFAULT_FIT_PRIORS`); None: a parity
+        fringe (``phi0 = pi``, ``phi_r = 0``) with V, e0 and e1 all fitted.  The
+        role of each parameter is stored under ``settings["response"]["roles"]``.
     freq_hz, stage_temp_k
         Mode frequency (Hz) and stage temperature (K) for Q, T_eff and the Planck check.
     priors
@@ -225,7 +247,7 @@ def fit_probes_with_trajectory(record, **options):
     return _fit(record, **options)
 
 
-def _fit(record, *, response, freq_hz=None, stage_temp_k=None, priors=None, settings=None,
+def _fit(record, *, response=None, freq_hz=None, stage_temp_k=None, priors=None, settings=None,
          seed=None, mode="auto", block_probes=None, initial="stationary", n_levels=None,
          command=None):
     record = _read(record)
@@ -294,6 +316,9 @@ def _fit(record, *, response, freq_hz=None, stage_temp_k=None, priors=None, sett
                           f"sd exceeds {BIAS_LIMIT_SD}; refit with mode='exact' (--exact) or "
                           "smaller blocks", CavcharWarning, stacklevel=2)
     _warn_prior_dominated(run, specs)
+    rng = np.random.default_rng(np.random.SeedSequence(run.settings.seed).spawn(6)[5])
+    checks["posterior_predictive"] = probe_predictive_check(record, response, run.draws, rng,
+                                                            initial=initial)
     traj = reconstruct_trajectory(exact, run.draws, TRAJECTORY_DRAWS)
     n = min(EXCERPT_PROBES, traj.time.size)
     extras["trajectory_excerpt"] = {

@@ -143,10 +143,16 @@ def prepare(inputs, signal: str | None = None, *, start_time: float | None = Non
         where = rec.source
         for seg in rec.traces():
             t = np.asarray(seg.time, dtype=float) * factor
+            label = f"{os.path.basename(where) if where else 'trace'}#{seg.id}"
+            if start_time is not None and t.size and start_time < t[0]:
+                raise InputError(f"--start-time {start_time:g} s is before the first sample "
+                                 f"of trace {label} ({t[0]:g} s): the amplitudes would be "
+                                 "extrapolated to a time without data", path=where,
+                                 hint="give a start time inside the data, or leave "
+                                 "--start-time out (each trace starts at its first sample)")
             keep = slice(None) if start_time is None else t >= start_time
             t, value = t[keep], np.asarray(seg.value)[keep]
             sigma = None if seg.sigma is None else np.asarray(seg.sigma, dtype=float)[keep]
-            label = f"{os.path.basename(where) if where else 'trace'}#{seg.id}"
             if t.size < MIN_POINTS:
                 raise InputError(f"trace {label} has {t.size} points after the start time; "
                                  f"a ring-down fit needs at least {MIN_POINTS}", path=where,
@@ -175,7 +181,7 @@ def _check_time_units(records, factor: float, time_unit) -> None:
             raise InputError(f"the header already gives the time unit ({unit}) and the times "
                              f"were converted to s; --time-unit {time_unit} would convert "
                              "them again", path=rec.source,
-                             hint="leave --time-unit out (time_unit=None in Python)")
+                             hint="leave --time-unit out")
 
 
 def noise_level(values: np.ndarray, sigma: np.ndarray | None) -> np.ndarray | float:

@@ -180,10 +180,6 @@ class PosteriorRun:
     def names(self) -> list[str]:
         return [s.name for s in self.specs]
 
-    @property
-    def map_dict(self) -> dict[str, float]:
-        return {name: float(v) for name, v in zip(self.names, self.map, strict=True)}
-
 
 class _Posterior:
     """Batched log posterior in sampler coordinates; checks the likelihood's output."""

@@ -14,6 +14,7 @@ import numpy as np
 
 from cavchar.errors import InputError
 from cavchar.parameters import ParameterSpace
+from cavchar.quantities import QUANTILES_68
 
 __all__ = ["find_map", "local_covariance", "initial_ball"]
 
@@ -24,7 +25,7 @@ def _prior_widths(space: ParameterSpace) -> np.ndarray:
     """Width of the central 68% of each prior in sampler coordinates (NaN if unbounded)."""
     widths = []
     for spec in space.specs:
-        lo, hi = spec.prior.ppf(np.array([0.15865525, 0.84134475]))
+        lo, hi = spec.prior.ppf(np.array(QUANTILES_68))
         with np.errstate(divide="ignore", invalid="ignore"):
             w = float(spec.to_sampler(hi) - spec.to_sampler(lo))
         widths.append(w if math.isfinite(w) and w > 0 else math.nan)

@@ -45,7 +45,7 @@ def check_can_write(path: str | os.PathLike, force: bool = False) -> Path:
                          hint="give a file name for the output")
     if target.exists() and not force:
         raise InputError("output file already exists", path=target,
-                         hint="pass --force (force=True) to overwrite it, or choose another name")
+                         hint="use --force to overwrite it, or choose another name")
     for parent in target.absolute().parents:
         if parent.exists():
             if not parent.is_dir():
@@ -108,11 +108,11 @@ def write_bytes_atomic(path: str | os.PathLike, data: bytes, force: bool = False
                 os.link(temp, target)  # fails if the target appeared meanwhile
             except FileExistsError:
                 raise InputError("output file already exists", path=target,
-                                 hint="pass --force (force=True) to overwrite it") from None
+                                 hint="use --force to overwrite it") from None
             except OSError:  # file system without hard links: check, then rename
                 if target.exists():
                     raise InputError("output file already exists", path=target,
-                                     hint="pass --force (force=True) to overwrite it") from None
+                                     hint="use --force to overwrite it") from None
                 os.replace(temp, target)
     except OSError as exc:
         raise InputError(f"cannot write the file: {exc.strerror or exc}", path=target,

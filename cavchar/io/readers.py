@@ -170,7 +170,7 @@ def read_jump_record(
     if reason is not None:
         raise InputError(f"this is a sampled record ({reason}): its rows are photon numbers "
                          "at probe times, not change points", path=table.path,
-                         hint="use --sampled (sampled=True, or read_sampled_record in Python)")
+                         hint="use --sampled")
     time, photons = table["time"], table["photons"]
     segment = _whole_ids(table, "segment")
     if not layout.exact_rows:
@@ -180,9 +180,8 @@ def read_jump_record(
         if found is not None:
             raise InputError(f"{found}: this looks like photon numbers sampled at probe times, "
                              "not change points", path=table.path,
-                             hint="use --sampled (sampled=True in Python); if the rows really "
-                             "are exact change points, add --rows-are-changes "
-                             "(exact_rows=True)")
+                             hint="use --sampled; if the rows really are exact change points, "
+                             "add --rows-are-changes")
     ids_all = np.zeros(time.size, np.int64) if segment is None else segment
     change = np.flatnonzero(ids_all[1:] != ids_all[:-1]) + 1
     starts = np.concatenate(([0], change))
@@ -285,7 +284,7 @@ def read_sampled_record(
         raise InputError(f"this is an exact jump record (its metadata say '{RECORD_KEY}: "
                          f"{table.metadata[RECORD_KEY]}'): its rows are change points, not "
                          "samples", path=table.path,
-                         hint="fit it without --sampled (read_jump_record in Python)")
+                         hint="fit it without --sampled")
     return SampledRecord(table["time"], table["photons"], segment=_whole_ids(table, "segment"),
                          metadata=_own_metadata(table), source=table.path, **_where(table))
 
@@ -530,6 +529,14 @@ def read_response_table(path: str | os.PathLike) -> ResponseTable:
         row = int(np.argmax(bad))
         raise table.error(f"p_one {p_one[row]} is not a probability", row,
                           hint="p_one must lie in [0, 1]")
+    from cavchar.dynamics import MAX_LEVELS
+
+    big = photons >= MAX_LEVELS
+    if big.any():
+        row = int(np.argmax(big))
+        raise table.error(f"photon number {photons[row]:g} is beyond the largest the models "
+                          f"follow ({MAX_LEVELS - 1})", row,
+                          hint="give the response up to the photon numbers that occur")
     setting = table["setting"] if "setting" in table else np.zeros_like(photons)
     n = photons.astype(np.int64)
     settings = np.unique(setting)

@@ -10,7 +10,20 @@ Two families:
     ``e0 = P(read 1 | ideal 0)``, ``e1 = P(read 0 | ideal 1)`` with
     ``e0, e1 >= 0`` and ``e0 + e1 < 1``.  ``phi0 = pi`` is a photon-number
     parity probe.  Each parameter is fixed (a float: calibrated) or fitted (a
-    :class:`cavchar.priors.Prior`).
+    :class:`cavchar.priors.Prior`).  A parameter left out is *unstated*: as a
+    model (simulation, likelihood) it takes its default value (``V = 1``,
+    ``phi0 = pi``, ``phi_r = 0``, ``e0 = e1 = 0``), but a fit
+    (:meth:`FringeResponse.for_fit`, used by :func:`cavchar.fits.probes.fit_probes`)
+    fits an unstated visibility or readout error with the weakly-informative
+    prior of :data:`DEFAULT_FIT_PRIORS`, so a perfect probe is never assumed
+    silently.  :attr:`FringeResponse.roles` says which parameter was stated,
+    fitted or left at its default.
+
+    Only two combinations of ``V, e0, e1`` enter the likelihood: the fringe's
+    mean ``(1 + e0 - e1)/2`` and half-amplitude ``(1 - e0 - e1) V / 2``.  When all
+    three are fitted their split along that one-dimensional ridge follows the
+    priors; the lifetime and thermal photon number depend only on the two
+    combinations and are unaffected.
 
 :class:`TableResponse` (calibrated table)
     ``P(1 | n[, s])`` read from a file (:func:`cavchar.io.read_response_table`);
@@ -34,9 +47,10 @@ from numpy.typing import ArrayLike
 
 from cavchar.errors import InputError
 from cavchar.parameters import ParameterSpec
-from cavchar.priors import Prior
+from cavchar.priors import Beta, Prior, Uniform
 
-__all__ = ["FringeResponse", "TableResponse", "Response", "SETTING_TOLERANCE"]
+__all__ = ["FringeResponse", "TableResponse", "Response", "SETTING_TOLERANCE",
+           "DEFAULT_FIT_PRIORS", "DEFAULT_VALUES", "ROLE_TEXT"]
 
 #: two settings closer than this (rad) are the same setting
 SETTING_TOLERANCE = 1e-6
@@ -50,6 +64,25 @@ _FRINGE = (
     ("readout_error_1", "", "e1"),
 )
 
+#: value of an unstated fringe parameter in a model (simulation, likelihood)
+DEFAULT_VALUES = {"visibility": 1.0, "phase_per_photon": math.pi, "phase_offset": 0.0,
+                  "readout_error_0": 0.0, "readout_error_1": 0.0}
+
+#: prior a fit gives an unstated visibility or readout error (weakly informative):
+#: V uniform on [0, 1]; e0, e1 Beta(1, 5) on [0, 0.5] (density 10 (1 - 2e)^4, falling from
+#: e = 0: median 0.065, 95% below 0.225; a readout wrong half of the time or more is a
+#: swapped label, not an error, hence the range)
+DEFAULT_FIT_PRIORS: dict[str, Prior] = {
+    "visibility": Uniform(0.0, 1.0),
+    "readout_error_0": Beta(1.0, 5.0, 0.0, 0.5),
+    "readout_error_1": Beta(1.0, 5.0, 0.0, 0.5),
+}
+
+#: role of a fringe parameter -> plain words (result files store the keys)
+ROLE_TEXT = {"stated": "stated value", "stated prior": "fitted, stated prior",
+             "default prior": "fitted, default prior (not stated)",
+             "default": "default value (not stated)"}
+
 
 @dataclass(frozen=True)
 class FringeResponse:
@@ -58,19 +91,31 @@ class FringeResponse:
     Parameters
     ----------
     visibility, phase_per_photon, phase_offset, readout_error_0, readout_error_1
-        Each a float (fixed, SI: rad for the phases) or a Prior (fitted).
+        Each a float (fixed, SI: rad for the phases), a Prior (fitted) or None
+        (unstated: :data:`DEFAULT_VALUES` in a model, :data:`DEFAULT_FIT_PRIORS`
+        for V, e0, e1 in a fit).
+    roles
+        Role of each parameter (keys of :data:`ROLE_TEXT`); worked out from the
+        arguments when not given.
     """
 
-    visibility: float | Prior = 1.0
-    phase_per_photon: float | Prior = math.pi
-    phase_offset: float | Prior = 0.0
-    readout_error_0: float | Prior = 0.0
-    readout_error_1: float | Prior = 0.0
+    visibility: float | Prior | None = None
+    phase_per_photon: float | Prior | None = None
+    phase_offset: float | Prior | None = None
+    readout_error_0: float | Prior | None = None
+    readout_error_1: float | Prior | None = None
+    roles: dict[str, str] | None = field(default=None, compare=False, repr=False)
     kind: str = field(default="fringe", init=False)
 
     def __post_init__(self) -> None:
+        roles = {}
         for name, _, _ in _FRINGE:
             value = getattr(self, name)
+            if value is None:
+                roles[name] = "default"
+                object.__setattr__(self, name, DEFAULT_VALUES[name])
+                continue
+            roles[name] = "stated prior" if isinstance(value, Prior) else "stated"
             if isinstance(value, Prior):
                 continue
             try:
@@ -90,6 +135,27 @@ class FringeResponse:
                 raise InputError(f"{name} {fixed[name]} is outside [0, 1)")
         if fixed.get("readout_error_0", 0.0) + fixed.get("readout_error_1", 0.0) >= 1.0:
             raise InputError("readout errors e0 + e1 must stay below 1")
+        object.__setattr__(self, "roles", {**roles, **dict(self.roles or {})})
+
+    @property
+    def unstated(self) -> tuple[str, ...]:
+        """Parameters left at their default value (not stated)."""
+        return tuple(n for n, _, _ in _FRINGE if self.roles[n] == "default")
+
+    def for_fit(self) -> FringeResponse:
+        """The response a fit uses: unstated V, e0, e1 get :data:`DEFAULT_FIT_PRIORS`
+        (fitted); unstated phases keep their default values (reported as such)."""
+        values = {n: getattr(self, n) for n, _, _ in _FRINGE}
+        roles = dict(self.roles)
+        for name, prior in DEFAULT_FIT_PRIORS.items():
+            if roles[name] == "default":
+                values[name], roles[name] = prior, "default prior"
+        return FringeResponse(**values, roles=roles)
+
+    def with_values(self, values: dict[str, float]) -> FringeResponse:
+        """A fully fixed response: the fitted parameters set to ``values`` (one draw)."""
+        fixed = {n: float(values[n]) if n in values else getattr(self, n) for n, _, _ in _FRINGE}
+        return FringeResponse(**fixed, roles=dict(self.roles))
 
     @property
     def free_names(self) -> tuple[str, ...]:
@@ -159,6 +225,7 @@ class FringeResponse:
         for n, _, _ in _FRINGE:
             value = getattr(self, n)
             out[n] = value.to_dict() if isinstance(value, Prior) else value
+        out["roles"] = dict(self.roles)
         return out
 
 
@@ -214,6 +281,14 @@ class TableResponse:
     @property
     def fixed_values(self) -> dict[str, float]:
         return {}
+
+    @property
+    def roles(self) -> dict[str, str]:
+        return {"table": "stated"}
+
+    def for_fit(self) -> TableResponse:
+        """A calibrated table is used as it is."""
+        return self
 
     @property
     def max_photons(self) -> int:

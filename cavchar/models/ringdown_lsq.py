@@ -106,11 +106,6 @@ class ExponentialFit:
         return np.append(out, self.floor) if self.has_floor else out
 
     @property
-    def param_names(self) -> tuple[str, ...]:
-        names = [f"{p}_{j + 1}" for j in range(self.n_exp) for p in ("amplitude", "rate")]
-        return tuple(names + (["floor"] if self.has_floor else []))
-
-    @property
     def stderr(self) -> np.ndarray:
         return np.sqrt(np.clip(np.diag(self.covariance), 0.0, None))
 
@@ -135,14 +130,6 @@ class ExponentialFit:
     @property
     def reduced_chi2(self) -> float:
         return self.rss / self.dof if self.dof > 0 else math.nan
-
-    def predict(self, t: ArrayLike) -> np.ndarray:
-        """Model values at times ``t`` (s)."""
-        tau = np.asarray(t, dtype=float) - self.t0
-        out = np.full(tau.shape, self.floor)
-        for a, r in zip(self.amplitudes, self.rates, strict=True):
-            out = out + a * np.exp(-r * tau)
-        return out
 
 
 @njit(cache=True, nogil=True)

@@ -9,7 +9,7 @@ Public API (imported lazily, so ``import cavchar.plan`` stays light)::
 
 from __future__ import annotations
 
-import importlib
+from cavchar._lazy import lazy_exports
 
 _PUBLIC = {
     "plan_jumps": "cavchar.plan.forecast",
@@ -22,14 +22,4 @@ _PUBLIC = {
     "StudyResult": "cavchar.plan.study",
 }
 
-__all__ = sorted(_PUBLIC)
-
-
-def __getattr__(name: str):
-    if name in _PUBLIC:
-        return getattr(importlib.import_module(_PUBLIC[name]), name)
-    raise AttributeError(f"module 'cavchar.plan' has no attribute {name!r}")
-
-
-def __dir__() -> list[str]:
-    return sorted(__all__)
+__all__, __getattr__, __dir__ = lazy_exports(__name__, _PUBLIC)

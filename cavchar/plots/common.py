@@ -28,6 +28,8 @@ from typing import Any
 import numpy as np
 
 from cavchar.errors import InputError
+from cavchar.quantities import QUANTILES_68
+from cavchar.units import display_prefix
 
 __all__ = [
     "QUANTITY_LABELS",
@@ -56,8 +58,6 @@ QUANTITY_LABELS: dict[str, tuple[str, str]] = {
 
 _UNIT = {"time": "s", "frequency": "Hz", "temperature": "K", "rate": "1/s", "power": "W",
          "phase": "rad", "dimensionless": ""}
-_PREFIX = [(1e9, "G"), (1e6, "M"), (1e3, "k"), (1.0, ""), (1e-3, "m"), (1e-6, "µ"),
-           (1e-9, "n"), (1e-12, "p")]
 
 #: resolution of raster figures (dots per inch)
 DEFAULT_DPI = 144.0
@@ -91,10 +91,8 @@ def display_unit(values: Any, dimension: str) -> tuple[float, str]:
     typical = float(np.median(np.abs(arr)))
     if typical == 0:
         return 1.0, unit
-    for size, prefix in _PREFIX:
-        if typical >= size * 0.9995:
-            return 1.0 / size, prefix + unit
-    return 1.0 / _PREFIX[-1][0], _PREFIX[-1][1] + unit
+    prefix, size = display_prefix(typical)
+    return 1.0 / size, prefix + unit
 
 
 def result_specs(result: Any) -> list[Any]:
@@ -241,7 +239,7 @@ def corner_plot(
     data = np.column_stack(data)
     k = data.shape[1]
     truth_list = None
-    if truths and k >= 2:  # corner 2.3 fails on one column with truths (CHECKS.md)
+    if truths and k >= 2:  # corner 2.3.0 fails on one column with truths
         truth_list = [None if truths.get(n) is None else truths[n] * s
                       for n, s in zip(names, scales, strict=True)]
     with apply_style({"axes.grid": False, "axes.titlelocation": "center",
@@ -251,7 +249,8 @@ def corner_plot(
             side = max(2.8, 1.9 * k)
             fig = new_figure((side, side))
         corner.corner(
-            data, labels=labels, fig=fig, color=PALETTE[0], quantiles=[0.16, 0.5, 0.84],
+            data, labels=labels, fig=fig, color=PALETTE[0],
+            quantiles=[QUANTILES_68[0], 0.5, QUANTILES_68[1]],
             show_titles=True, titles=titles, title_fmt=".3g", title_kwargs={"fontsize": 7.5},
             label_kwargs={"fontsize": 8.0}, levels=(1 - math.exp(-0.5), 1 - math.exp(-2.0)),
             plot_datapoints=True, data_kwargs={"alpha": 0.08, "ms": 1.2, "color": INK},

@@ -7,7 +7,7 @@ so importing this package loads neither matplotlib nor corner.
 
 from __future__ import annotations
 
-import importlib
+from cavchar._lazy import lazy_exports
 
 _PUBLIC = {
     "write_report": "cavchar.report.html",
@@ -17,14 +17,4 @@ _PUBLIC = {
     "Section": "cavchar.report.sections",
 }
 
-__all__ = list(_PUBLIC)
-
-
-def __getattr__(name: str):
-    if name in _PUBLIC:
-        return getattr(importlib.import_module(_PUBLIC[name]), name)
-    raise AttributeError(f"module 'cavchar.report' has no attribute {name!r}")
-
-
-def __dir__() -> list[str]:
-    return sorted(__all__)
+__all__, __getattr__, __dir__ = lazy_exports(__name__, _PUBLIC)

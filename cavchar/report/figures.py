@@ -3,14 +3,11 @@ of each result, and the comparison of several results.
 
 Data figures of one fit kind come from its plotting module
 ``cavchar.plots.<family>`` (``jumps``, ``probes``, ``ringdown``; the family is the
-part of ``result.kind`` before the first ``-``), first match wins:
-
-* ``report_figures(result, record=None) -> list[(title, caption, Figure)]``;
-* ``figures(result) -> dict[name, Figure]`` (the hook the fit commands use; titles
-  and captions from the module's ``FIGURE_CAPTIONS = {name: (title, caption)}``
-  when it has one);
-* otherwise the adapters below draw what they can with the module's plain
-  plotting functions, from a record the caller gives.
+part of ``result.kind`` before the first ``-``): its ``figures(result) -> dict[name,
+Figure]`` (the hook the fit commands use; titles and captions from the module's
+``FIGURE_CAPTIONS = {name: (title, caption)}`` when it has one, else from
+:data:`KNOWN_CAPTIONS`); for a jump result without data excerpts the adapter below
+draws from a record the caller gives.
 
 Figures are drawn from what the result holds (its draws and its ``extras``
 excerpts).  The input file named in a result's provenance is never opened by
@@ -24,7 +21,6 @@ a result or a user is drawn literally (:func:`cavchar.plots.style.literal`).
 from __future__ import annotations
 
 import importlib
-import importlib.util
 import re
 import warnings
 from collections.abc import Mapping, Sequence
@@ -35,6 +31,7 @@ from typing import Any
 import numpy as np
 
 from cavchar.errors import CavcharError, CavcharWarning
+from cavchar.quantities import QUANTILES_68
 
 __all__ = ["Figure", "kind_family", "load_input_record", "data_figures", "sampler_figures",
            "comparison_figure"]
@@ -122,17 +119,11 @@ def _read_record(result: Any, file: Path) -> Any:
     raise CavcharError(f"no reader known for fit kind {kind!r}")
 
 
-def _provider(family: str):
+def _plotting_module(family: str):
+    """The plotting module of a fit family, or None for a family cavchar does not know."""
     if family not in FAMILIES:
-        return None, None
-    name = f"cavchar.plots.{family}"
-    try:
-        if importlib.util.find_spec(name) is None:
-            return None, None
-    except (ImportError, ValueError):
-        return None, None
-    module = importlib.import_module(name)
-    return module, getattr(module, "report_figures", None)
+        return None
+    return importlib.import_module(f"cavchar.plots.{family}")
 
 
 #: titles and captions of figures that plotting modules return from ``figures(result)``
@@ -204,19 +195,15 @@ def data_figures(result: Any, record: Any | None = None) -> tuple[list[Figure], 
     """
     family = kind_family(result.kind)
     notes: list[str] = []
-    module, provider = _provider(family)
+    module = _plotting_module(family)
     if module is None:
         return [], [f"No data figure: cavchar draws none for fits of kind {result.kind}."]
     try:
         figures: list[Figure] = []
-        if provider is not None:
-            made = provider(result, record)
-            figures = [f if isinstance(f, Figure) else Figure(*f) for f in made]
-        elif hasattr(module, "figures"):
-            captions = {**KNOWN_CAPTIONS, **getattr(module, "FIGURE_CAPTIONS", {})}
-            for name, fig in module.figures(result).items():
-                title, caption = captions.get(name, (name.replace("_", " ").capitalize(), ""))
-                figures.append(Figure(title, caption, fig))
+        captions = {**KNOWN_CAPTIONS, **getattr(module, "FIGURE_CAPTIONS", {})}
+        for name, fig in module.figures(result).items():
+            title, caption = captions.get(name, (name.replace("_", " ").capitalize(), ""))
+            figures.append(Figure(title, caption, fig))
         if not figures and family == "jumps" and record is not None:
             figures = _jump_figures(module, result, record)
     except _DRAW_ERRORS as exc:
@@ -296,7 +283,7 @@ def comparison_figure(results: Sequence[Any], labels: Sequence[str]):
                 if values is None:
                     continue
                 lo95, lo68, med, hi68, hi95 = np.quantile(
-                    values * factor, [0.025, 0.15865, 0.5, 0.84135, 0.975])
+                    values * factor, [0.025, QUANTILES_68[0], 0.5, QUANTILES_68[1], 0.975])
                 style = series(i, line=False)
                 ax.plot([i, i], [lo95, hi95], color=style["color"], lw=1.0, linestyle="-",
                         solid_capstyle="butt")

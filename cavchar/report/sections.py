@@ -258,6 +258,10 @@ def checks_html(result: Any) -> Markup:
                 continue
             except (TypeError, ValueError, KeyError, AttributeError):
                 pass
+        if isinstance(value, Mapping) and isinstance(value.get("misfit"), bool):
+            parts.append(Markup('<p><span class="badge fail">MISFIT</span></p>')
+                         if value["misfit"] else
+                         Markup('<p><span class="badge pass">NO MISFIT</span></p>'))
         parts.append(_generic_check(value))
     return Markup("").join(parts)
 

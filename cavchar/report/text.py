@@ -25,6 +25,8 @@ from typing import Any
 
 from markupsafe import Markup, escape
 
+from cavchar.units import decimals_for
+
 __all__ = ["esc", "html", "Markup", "number_text", "display_scale", "decimals_for",
            "format_number", "bound_decimals", "format_interval_row",
            "format_quantity_text", "planck_sentences", "probability_text", "table_html",
@@ -90,21 +92,6 @@ def display_scale(median: float, dimension: str) -> tuple[float, str]:
     unit = text.split(" ", 1)[1] if " " in text else ""
     factor = parse_quantity("1" + unit, dimension) if unit else 1.0
     return factor, unit
-
-
-def decimals_for(error: float) -> int:
-    """Decimal places that show ``error`` (> 0) by the PDG rule (may be negative)."""
-    if not (math.isfinite(error) and error > 0):
-        return 3
-    exponent = math.floor(math.log10(error))
-    lead = int(round(error / 10 ** (exponent - 2), 6))
-    if lead >= 950:
-        exponent, sig = exponent + 1, 2
-    elif lead >= 355:
-        sig = 1
-    else:
-        sig = 2
-    return sig - 1 - exponent
 
 
 def bound_decimals(value: float, decimals: int) -> int:
@@ -251,6 +238,9 @@ def prior_text(prior: Mapping[str, Any] | None, dimension: str) -> str:
         return text
     if family in ("lognormal", "log-normal"):
         return f"log-normal, median {q('median')}, width {prior.get('sigma_log', '?')} in ln"
+    if family == "beta":
+        shapes = f"{prior.get('a', '?'):g}, {prior.get('b', '?'):g}"
+        return f"beta({shapes}) on [{q('low')}, {q('high')}]"
     return family
 
 

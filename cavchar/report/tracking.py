@@ -10,10 +10,10 @@ lifetime and n_th come from fits at different stages).
 
 from __future__ import annotations
 
-import importlib.util
 from collections.abc import Callable
 from typing import Any
 
+from cavchar.derived import format_probability_error
 from cavchar.report.figures import Figure
 from cavchar.report.sections import Section
 from cavchar.report.text import esc, format_interval_row, format_quantity_text, table_html
@@ -22,14 +22,6 @@ __all__ = ["section_for", "trend_section", "comparison_section", "qualification_
            "budget_section"]
 
 FigureHtml = Callable[[Figure], str]
-
-
-def _trend_plots():
-    if importlib.util.find_spec("cavchar.plots.trend") is None:
-        return None
-    import cavchar.plots.trend as module
-
-    return module
 
 
 def _styled(plot, obj):
@@ -94,7 +86,7 @@ def _trend_table(trend: Any) -> list[str]:
     for row in trend.rows:
         p = row.drop_probability
         p_text = "reference" if row.fit_id == trend.reference_fit else (
-            "–" if p is None else f"{p:.3f} ± {row.drop_mc_error:.3f}")
+            "–" if p is None else format_probability_error(p, row.drop_mc_error))
         rows.append([row.cooldown, row.start_date or "–",
                      ", ".join(str(i) for i in row.fit_ids),
                      _by_quantity(row, lambda c: "–" if c is None else c.kind),
@@ -127,14 +119,14 @@ def _trend_table(trend: Any) -> list[str]:
 def trend_section(trend: Any, figure_html: FigureHtml) -> Section:
     """Lifetime, n_th and effective temperature per cooldown, with drop probabilities, the
     fit ids of each row and the stage temperature of each point."""
+    from cavchar.plots.trend import plot_trend
+
     parts = _trend_table(trend)
-    plots = _trend_plots()
-    if plots is not None and hasattr(plots, "plot_trend"):
-        parts.append(figure_html(Figure(
-            f"Trend of cavity {trend.cavity} across cooldowns",
-            "Median with 68% (thick) and 95% (thin) intervals per cooldown; the lifetime points "
-            "carry the probability that the lifetime fell against the reference.",
-            _styled(plots.plot_trend, trend))))
+    parts.append(figure_html(Figure(
+        f"Trend of cavity {trend.cavity} across cooldowns",
+        "Median with 68% (thick) and 95% (thin) intervals per cooldown; the lifetime points "
+        "carry the probability that the lifetime fell against the reference.",
+        _styled(plot_trend, trend))))
     return Section(f"Trend across cooldowns: {trend.cavity}", "".join(parts), "trend")
 
 
@@ -146,7 +138,7 @@ def comparison_section(comparison: Any, figure_html: FigureHtml) -> Section:
         parts += _trend_table(trend)
     rows = [[f"P(T_c {r.cavity_a} > T_c {r.cavity_b})",
              f"{r.cooldown_a} (fit {r.fit_a})", f"{r.cooldown_b} (fit {r.fit_b})",
-             f"{r.probability:.3f} ± {r.mc_error:.3f}", r.basis] for r in comparison.rows]
+             format_probability_error(r.probability, r.mc_error), r.basis] for r in comparison.rows]
     parts.append("<h3>Lifetime comparison</h3>")
     if rows:
         parts.append("<p>Independent posteriors of different records: the probability is "
@@ -156,13 +148,13 @@ def comparison_section(comparison: Any, figure_html: FigureHtml) -> Section:
                                  "other", "value", "pair"], rows, css_class="grid"))
     else:
         parts.append("<p>No cooldown of these cavities has lifetimes to compare.</p>")
-    plots = _trend_plots()
-    if plots is not None and hasattr(plots, "plot_trend"):
-        names = ", ".join(t.cavity for t in comparison.trends)
-        parts.append(figure_html(Figure(
-            f"Trends of cavities {names} across cooldowns",
-            "The cavities side by side on the same axes: median with 68% (thick) and 95% "
-            "(thin) intervals per cooldown.", _styled(plots.plot_trend, comparison))))
+    from cavchar.plots.trend import plot_trend
+
+    names = ", ".join(t.cavity for t in comparison.trends)
+    parts.append(figure_html(Figure(
+        f"Trends of cavities {names} across cooldowns",
+        "The cavities side by side on the same axes: median with 68% (thick) and 95% "
+        "(thin) intervals per cooldown.", _styled(plot_trend, comparison))))
     title = " and ".join(t.cavity for t in comparison.trends)
     return Section(f"Trend across cooldowns: {title}", "".join(parts), "trend")
 
@@ -187,7 +179,7 @@ def qualification_section(qualification: Any, figure_html: FigureHtml) -> Sectio
             estimate = (f"{format_quantity_text(v.median, dim, 3)} "
                         f"[{format_quantity_text(v.low_95, dim, 3)} – "
                         f"{format_quantity_text(v.high_95, dim, 3)}]")
-        p = "–" if v.probability is None else f"{v.probability:.3f} ± {v.mc_error:.3f}"
+        p = "–" if v.probability is None else format_probability_error(v.probability, v.mc_error)
         evidence = v.evidence.description if v.evidence is not None else "none"
         rows.append([esc(v.requirement.describe()), _badge(v.status), esc(p), esc(estimate),
                      esc(evidence), esc(v.hint or "")])
@@ -229,12 +221,12 @@ def budget_section(budget: Any, figure_html: FigureHtml) -> Section:
              table_html(["budget parameter", "median [95%]", "converged"], params,
                         css_class="grid")]
     parts += [f'<p class="note">{esc(n)}</p>' for n in budget.notes]
-    plots = _trend_plots()
-    if plots is not None and hasattr(plots, "plot_budget"):
-        parts.append(figure_html(Figure(
-            "Thermal photons against stage temperature",
-            "Measured n_th (68% and 95% intervals), the Planck occupation of the stage and the "
-            "stated budget model (median and 95% band).", _styled(plots.plot_budget, budget))))
+    from cavchar.plots.trend import plot_budget
+
+    parts.append(figure_html(Figure(
+        "Thermal photons against stage temperature",
+        "Measured n_th (68% and 95% intervals), the Planck occupation of the stage and the "
+        "stated budget model (median and 95% band).", _styled(plot_budget, budget))))
     return Section("Thermal budget", "".join(parts), "budget")
 
 

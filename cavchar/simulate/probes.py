@@ -120,6 +120,7 @@ def _probe_outcomes(times, photons, segment, response, settings, loss, rng, meta
         outcome[rng.random(times.size) < loss] = np.nan
     describe = getattr(response, "describe", None)
     if callable(describe) and describe().get("kind") == "fringe":
-        meta.update({f"true_{k}": repr(v) for k, v in describe().items() if k != "kind"})
+        meta.update({f"true_{k}": repr(v) for k, v in describe().items()
+                     if k not in ("kind", "roles")})
     truth = SampledRecord(times, photons, segment=segment, metadata=meta)
     return ProbeRecord(times, outcome, setting=setting, segment=segment, metadata=meta), truth

@@ -137,7 +137,7 @@ def simulate_ringdown(
         extra.update(true_initial_mean=repr(float(np.dot(np.arange(p0.size), p0))))
     else:
         raise InputError(f"unknown signal kind {signal!r}",
-                         hint="choose power, db, amplitude, iq, mean_n or populations")
+                         hint="choose power, db, amplitude, iq, mean-n or populations")
     if signal == "populations":
         extra["shots"] = str(shots)
     sigma = None

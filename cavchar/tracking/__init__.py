@@ -13,7 +13,7 @@ Names are imported lazily so that ``import cavchar.tracking`` stays light.
 
 from __future__ import annotations
 
-import importlib
+from cavchar._lazy import lazy_exports
 
 _PUBLIC = {
     "CooldownLog": "cavchar.tracking.store",
@@ -30,14 +30,4 @@ _PUBLIC = {
     "thermal_budget": "cavchar.tracking.budget",
 }
 
-__all__ = list(_PUBLIC)
-
-
-def __getattr__(name: str):
-    if name in _PUBLIC:
-        return getattr(importlib.import_module(_PUBLIC[name]), name)
-    raise AttributeError(f"module 'cavchar.tracking' has no attribute {name!r}")
-
-
-def __dir__() -> list[str]:
-    return sorted(__all__)
+__all__, __getattr__, __dir__ = lazy_exports(__name__, _PUBLIC)

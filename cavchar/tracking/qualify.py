@@ -123,6 +123,9 @@ def parse_spec(text: str, path: str | os.PathLike | None = None) -> Spec:
     where = None if path is None else str(path)
     try:
         data = tomllib.loads(text)
+    except RecursionError:
+        raise InputError("the spec file is nested too deeply to read", path=where,
+                         hint="a spec holds one table per quantity with plain values") from None
     except tomllib.TOMLDecodeError as exc:
         match = re.search(r"line (\d+)", str(exc))
         raise InputError(f"not valid TOML ({exc})", path=where,
@@ -335,6 +338,11 @@ def judge(req: Requirement, evidence: Evidence | None) -> Verdict:
         return Verdict(req, "UNDECIDED", None, None, None, None, None, evidence, None,
                        f"no data on {QUANTITIES[req.quantity][2]}: needs {need}")
     values = np.asarray(values, dtype=float)
+    if not np.isfinite(values).all():  # a verdict is never computed from non-finite draws
+        raise InputError(f"the draws of {QUANTITIES[req.quantity][2]} from "
+                         f"{evidence.description} hold {int((~np.isfinite(values)).sum())} "
+                         "non-finite value(s); no verdict is given on them",
+                         hint="fit again; in a log, check it with `cavchar log check`")
     met = values >= req.threshold if req.bound == "at_least" else values <= req.threshold
     p = float(met.mean())
     error = math.sqrt(p * (1.0 - p) / values.size)  # binomial, for independent draws

@@ -22,17 +22,15 @@ draws above ``x_i / (1 - delta)`` and ``b_j`` the fraction of draws below
 
 from __future__ import annotations
 
-import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 
 import numpy as np
 
 from cavchar.errors import InputError
+from cavchar.quantities import QUANTILES_68
 from cavchar.tracking.records import PRIOR_LIMITS, FitRecord
 from cavchar.tracking.store import CooldownLog
-
-_C68 = math.erf(1.0 / math.sqrt(2.0))  # one-sigma mass, as cavchar.derived.CREDIBLE_68
 
 __all__ = ["Interval", "TrendRow", "Trend", "interval", "drop_probability", "cooldown_trend",
            "fit_draws", "TREND_QUANTITIES", "exceed_probability", "compare_cavities",
@@ -63,7 +61,7 @@ class Interval:
 
 
 #: median and the 68.27 % / 95 % equal-tailed quantiles, the same as FitResult.summary
-_QUANTILES = np.array([0.5, 0.5 - 0.5 * _C68, 0.5 + 0.5 * _C68, 0.025, 0.975])
+_QUANTILES = np.array([0.5, *QUANTILES_68, 0.025, 0.975])
 
 
 def interval(draws: np.ndarray) -> Interval:

@@ -51,7 +51,6 @@ def _ringdown_ranks(n_sims: int, n_draws: int, seed: int, settings):
 
 
 def test_sbc_power_ringdown_quick():
-    pytest.importorskip("cavchar.fits.ringdown")
     truth, draws = _ringdown_ranks(40, 49, seed=61, settings=_quick_settings())
     result = uniformity(ranks(truth, draws), 49, bins=5)
     assert calibrated(result), result
@@ -62,7 +61,6 @@ def test_sbc_power_ringdown_quick():
 
 @pytest.mark.slow
 def test_sbc_power_ringdown_full():
-    pytest.importorskip("cavchar.fits.ringdown")
     from cavchar.inference import SamplerSettings
 
     truth, draws = _ringdown_ranks(200, 99, seed=71, settings=SamplerSettings(quiet=True))
@@ -97,7 +95,6 @@ def _probe_ranks(n_sims: int, n_draws: int, seed: int, settings):
 def test_sbc_fit_probes_full():
     # 100 records of 3000 probes (0.9 s, about 60-300 jumps) through fit_probes with its
     # default sampler settings (about 30 s each on a shared 2-core machine)
-    pytest.importorskip("cavchar.fits.probes")
     from cavchar.inference import SamplerSettings
 
     truth, draws = _probe_ranks(100, 49, seed=81, settings=SamplerSettings(quiet=True))

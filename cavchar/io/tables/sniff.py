@@ -1,8 +1,8 @@
 """Finding the header row, the delimiter and the decimal mark of a text table.
 
 Rule (documented in docs/data-formats.md): the header is the first line that
-is not a comment (``#``) or blank, has at least two cells, is not itself a row
-of numbers, and is followed by a row of numbers with as many cells.  Lines above
+is not a comment (``#``) or blank, has at least two cells, none of them a
+number, and is followed by a row of numbers with as many cells.  Lines above
 it are an instrument's preamble and are skipped.  Delimiters tried: tab,
 semicolon, comma, runs of blanks; the one that reads the header and the first
 row alike wins (tab before blanks when both do).  A comma decimal mark is
@@ -82,9 +82,9 @@ def _viable(header: str, row: str, sep: str | None) -> list[str] | None:
     if len(cells) < 2 or not _numeric_row(cells, sep):
         return None
     names = _split_header(header, sep, len(cells))
-    if len(names) != len(cells) or all(cell_kind(n) in ("int", "dot", "comma", "empty")
-                                        for n in names):
-        return None
+    if len(names) != len(cells) or any(cell_kind(n) in ("int", "dot", "comma")
+                                        for n in names) or all(not n for n in names):
+        return None  # a header names columns: a number there makes it a data row
     return names
 
 
@@ -132,7 +132,24 @@ def sniff(path: Path, lines: list[tuple[int, str]], delimiter: str | None,
                                                   else delimiter)
     if delimiter is None and lines and "\t" in lines[0][1] and "," not in lines[0][1]:
         sep = "\t"
+    if delimiter is None and len(lines) > 1:  # a header and a row of as many cells, one of
+        for other in _ORDER[:3]:               # them no number: the parser names that cell
+            head, row = split_cells(lines[0][1], other), split_cells(lines[1][1], other)
+            if len(head) >= 2 and len(head) == len(row) and not any(
+                    cell_kind(c) in ("int", "dot", "comma") for c in head):
+                sep = other
+                break
     names = split_cells(lines[0][1], sep) if lines else []
+    if delimiter is None and not fixed_header and len(names) < 2:
+        wide = next((n for n, text in lines[1:] if any(
+            len(split_cells(text, s)) >= 2 and _numeric_row(split_cells(text, s), s)
+            for s in _ORDER)), None)
+        if wide is not None:
+            raise InputError(f"cannot find the header row: line {lines[0][0]} names one column "
+                             f"but line {wide} holds several numbers, and no line above a "
+                             "row of numbers names as many columns", path=path,
+                             hint="give a header line naming every column, or set --skip-rows "
+                             "N (lines above the header) and --delimiter")
     return Sniffed(0, sep, decimal or ".", names, False)
 
 

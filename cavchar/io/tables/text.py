@@ -96,6 +96,12 @@ def read_text(path: Path, raw: bytes, fmt: str, layout: FileLayout | None = None
     layout = layout or FileLayout()
     if raw.startswith(b"\xef\xbb\xbf"):
         raw = b"   " + raw[3:]  # keep byte offsets; the blanks are stripped like any
+    nul = raw.find(b"\x00")
+    if nul >= 0:
+        raise InputError("the file holds a NUL byte: it is binary data, not CSV/TSV text",
+                         path=path, line=raw.count(b"\n", 0, nul) + 1,
+                         hint="give a text file saved as UTF-8, or name a binary file "
+                         ".npz/.parquet")
     lines = _Lines(raw)
     metadata: dict[str, str] = {}
     pos, index = 0, 0
@@ -156,6 +162,11 @@ def read_text(path: Path, raw: bytes, fmt: str, layout: FileLayout | None = None
         buffer = _data_buffer(raw, lines.starts, lines.ends, data)
         frame = parse.numbers(data, buffer)
         row_lines = data + 1
+    missing = np.zeros(row_lines.size, bool)
+    for column in frame:
+        missing |= np.isnan(column)
+    if missing.any():  # an empty cell may be allowed; a row short of cells never is
+        _short_rows(path, lines, row_lines[missing] - 1, sep, len(names))
     columns = dict(zip(names, frame, strict=True))
     described = {"delimiter": _SEP_NAMES[sep], "decimal": "comma" if decimal == "," else "point",
                  "header_line": header_line, "preamble_lines": found.header,
@@ -213,6 +224,26 @@ def _data_lines(lines: _Lines, metadata: dict[str, str], header_index: int,
         _read_metadata(lines.text(i), metadata)
     data = np.flatnonzero(~comment & ~blank)
     return data[data > header_index]
+
+
+def _short_rows(path: Path, lines: _Lines, rows: np.ndarray, sep: str | None,
+                width: int) -> None:
+    """Raise for the first of ``rows`` (0-based lines holding an empty value) that has
+    fewer cells than the header: its missing cells are not empty cells."""
+    if sep is None:  # blanks cannot write an empty cell: a missing value is a short row
+        suspects = rows[:1]
+    else:
+        b = np.frombuffer(lines.raw, dtype=np.uint8)
+        at = np.flatnonzero(b == ord(sep))
+        counts = np.searchsorted(at, lines.ends[rows]) - np.searchsorted(at, lines.starts[rows])
+        suspects = rows[counts + 1 < width]
+    for i in suspects[:100]:  # separators inside quotes are counted exactly here
+        count = len(split_cells(lines.text(int(i)), sep))
+        if count < width:
+            raise InputError(f"this row has {count} cells but the header names {width} "
+                             "columns", path=path, line=int(i) + 1,
+                             hint=f"give one value per column, separated by {_SEP_WORDS[sep]} "
+                             "(an empty cell is written as nothing between two separators)")
 
 
 def _check_header(path: Path, line: int, names: list[str]) -> None:
