@@ -26,7 +26,43 @@ QUANTILES_68 = ((1.0 - CREDIBLE_68) / 2.0, (1.0 + CREDIBLE_68) / 2.0)
 
 
 __all__ = ["COLUMN_INFO", "CREDIBLE_68", "QUANTILES_68", "quality_factor", "linewidth",
-           "amplitude_decay_time"]
+           "amplitude_decay_time", "data_units", "UNKNOWN_DATA_UNIT"]
+
+#: the unit of values in the data's own, unstated unit ("arbitrary units")
+UNKNOWN_DATA_UNIT = "a.u."
+#: linear power unit of a dB reference (dBm: 10 log10(P / 1 mW))
+_DB_REFERENCE = {"dbm": "mW", "dbw": "W", "dbmw": "mW"}
+
+
+def data_units(signal: str, value_unit: str | None = None) -> dict[str, str]:
+    """Units of a ring-down model's parameters that live in the data's units.
+
+    Parameters
+    ----------
+    signal
+        The signal kind (``power``, ``power2``, ``db``, ``amplitude``, ``iq``, ...).
+    value_unit
+        The unit of the trace's values (a header ``I (V)`` or a ``# value_unit: V``
+        line); None when the file does not say (then :data:`UNKNOWN_DATA_UNIT`).
+
+    Returns
+    -------
+    dict
+        Column root (``amplitude``, ``floor``, ``sigma``, ``offset_re``, ...; a
+        several-trace column ``amplitude_2`` has the root ``amplitude``) -> unit.
+        A dB trace's amplitude and floor are linear powers in the unit of its dB
+        reference (dBm -> mW, dBW -> W; a bare dB says nothing, so a.u.) and its
+        noise is in dB; an IQ trace's phase is in rad.
+    """
+    unit = (value_unit or "").strip() or UNKNOWN_DATA_UNIT
+    if signal == "db":
+        linear = _DB_REFERENCE.get(unit.lower().replace(" ", ""), UNKNOWN_DATA_UNIT)
+        return {"amplitude": linear, "floor": linear, "sigma_db": "dB", "sigma": "dB"}
+    if signal in ("power", "power2", "amplitude", "iq"):
+        return {"amplitude": unit, "amplitude_fast": unit, "floor": unit, "sigma": unit,
+                "offset_re": unit, "offset_im": unit, "phase": "rad"}
+    return {}
+
 
 #: column name -> (unit, dimension of :mod:`cavchar.units`, printed label)
 COLUMN_INFO: dict[str, tuple[str, str, str]] = {

@@ -250,6 +250,11 @@ class FitResult:
                 return spec.unit, spec.dimension, spec.label
         if name in COLUMN_INFO:
             return COLUMN_INFO[name]
+        extra = (self.extras.get("nuisance_columns") or {}).get(name) \
+            if isinstance(self.extras, Mapping) else None
+        if isinstance(extra, Mapping) and name in self._columns:
+            return (str(extra.get("unit", "")), str(extra.get("dimension", "dimensionless")),
+                    str(extra.get("label", name)))
         if name not in self._columns:
             raise KeyError(f"no column {name!r} in the posterior draws")
         return "", "dimensionless", name

@@ -42,17 +42,24 @@ def absurd(tmp_path_factory):
     return folder, path
 
 
-def test_prior_bound_is_a_limit_in_cli_result_and_report(absurd, run_cli):
+@pytest.fixture(scope="module")
+def absurd_result(absurd):
     from cavchar.fits.jumps import fit_jumps
-    from cavchar.fits.outputs import summary_text
     from cavchar.inference import SamplerSettings
-    from cavchar.report import render_report
-    from cavchar.result import FitResult
 
     folder, path = absurd
     with pytest.warns(PriorDominatedWarning):
-        result = fit_jumps(path, freq_hz=6e9, settings=SamplerSettings(
+        return fit_jumps(path, freq_hz=6e9, settings=SamplerSettings(
             quiet=True, seed=1, max_steps=200, allow_unconverged=True))
+
+
+def test_prior_bound_is_a_limit_in_cli_result_and_report(absurd, absurd_result):
+    from cavchar.fits.outputs import summary_text
+    from cavchar.report import render_report
+    from cavchar.result import FitResult
+
+    folder, _ = absurd
+    result = absurd_result
     out = summary_text(result)  # what the fit commands print
     row = next(line for line in out.splitlines() if line.strip().startswith("T_c "))
     # the table row is the limit, with no median and interval of the prior's edge
@@ -87,6 +94,36 @@ def test_prior_bound_through_the_cli(absurd, run_cli):
     assert code == 0, err
     assert "warning: the posterior of T_c reaches the prior's upper bound" in err
     assert re.search(r"T_c\s+> \d+(\.\d+)? s\s+one-sided 95% limit", out), out
+
+
+def test_prior_bound_is_a_limit_in_the_log_trend_and_qualification(absurd_result, tmp_path,
+                                                                      run_cli, monkeypatch):
+    from cavchar.tracking.qualify import evidence_from_log, parse_spec, qualify
+    from cavchar.tracking.records import entry_from_result
+    from cavchar.tracking.store import LOG_ENV, open_log
+    from cavchar.tracking.trend import cooldown_trend
+
+    path = tmp_path / "log.sqlite"
+    with open_log(path) as log:
+        log.add_cavity("A", freq_hz=6e9)
+        log.add_cooldown("cd1", start_date="2031-01-01")
+        fit_id = log.add_fit(entry_from_result(absurd_result), "A", "cd1")
+        trend = cooldown_trend(log, "A")
+        row = trend.rows[0]
+        assert row.limits["lifetime"]["kind"] == "lower"
+        assert any(f"fit {fit_id}: T_c > " in n and "not a measurement" in n
+                   for n in row.notes)
+        lower = row.limits["lifetime"]["limit"]
+        # the side the data constrain decides; the side the prior's edge fills cannot
+        spec = parse_spec(f"[lifetime]\nat_least = {lower / 2!r}\ncredibility = 0.95\n"
+                          "[linewidth]\nat_most = 1.0\ncredibility = 0.95\n"
+                          "[quality_factor]\nat_most = 1e20\ncredibility = 0.95\n")
+        verdicts = qualify(spec, evidence_from_log(log, "A", cooldown="cd1")).verdicts
+    assert [v.status for v in verdicts] == ["PASS", "PASS", "UNDECIDED"]
+    assert verdicts[2].probability == 1.0 and "reflects the prior" in verdicts[2].hint
+    monkeypatch.setenv(LOG_ENV, str(path))
+    code, out, _ = run_cli("trend", "--cavity", "A")
+    assert code == 0 and re.search(r"> \d+(\.\d+)? s \(limit\)", out), out
 
 
 def test_a_measured_lifetime_is_not_turned_into_a_limit():
@@ -198,3 +235,47 @@ def test_iq_detuning_prints_the_digits_its_interval_needs():
     q = np.quantile(result.samples["detuning"], [0.5, 0.025, 0.975]) / 1e3  # kHz
     for shown, exact in zip((median, lo95, hi95), q, strict=True):
         assert abs(shown - exact) <= 0.5 * 10**-decimals * (1 + 1e-9)
+
+
+# -- units on every parameter --------------------------------------------------------------------
+
+
+def test_every_parameter_carries_its_unit(tmp_path):
+    from cavchar.fits.outputs import summary_text
+    from cavchar.fits.ringdown import fit_ringdown
+    from cavchar.inference import SamplerSettings
+    from cavchar.io.writers import write_ringdown, write_table
+    from cavchar.report import render_report
+    from cavchar.result import FitResult
+    from cavchar.simulate import simulate_ringdown
+
+    quick = SamplerSettings(quiet=True, seed=1, max_steps=100, allow_unconverged=True)
+    t = np.linspace(0.0, 8e-3, 200)
+    # a dB trace in dBm (10 log10(P / 1 mW)): amplitude and floor in mW, the noise in dB
+    db = simulate_ringdown("db", t, 2e-3, amplitude=1e-6, floor=1e-9, noise=0.2, seed=1)
+    write_table(tmp_path / "db.csv", {"time": t, "Power (dBm)": db.value})
+    result = fit_ringdown(tmp_path / "db.csv", settings=quick, compare=False)
+    units = result.summary()["unit"].to_dict()
+    assert (units["amplitude"], units["floor"], units["sigma_db"]) == ("mW", "mW", "dB")
+    # the simulated amplitude, 1e-6 mW, is read in mW (a unit slip would be 1e3 off)
+    assert 0.9e-6 < result.summary().loc["amplitude", "median"] < 1.1e-6
+    assert re.search(r"\bA\s+\S+ mW\s+\[\S+ mW, \S+ mW\]", summary_text(result))
+    # an IQ trace whose file states its unit: amplitude, offsets and noise in it, phase in rad
+    iq = simulate_ringdown("iq", t, 2e-3, noise=0.05, detuning=1000.0, seed=3)
+    write_ringdown(iq, tmp_path / "iq.csv", metadata={"value_unit": "V"})
+    result = fit_ringdown(tmp_path / "iq.csv", settings=quick, compare=False)
+    result.to_json(tmp_path / "iq.json")
+    back = FitResult.from_json(tmp_path / "iq.json")
+    units = back.summary()["unit"].to_dict()
+    assert {k: units[k] for k in ("sigma", "amplitude", "offset_re", "offset_im", "phase")} == {
+        "sigma": "V", "amplitude": "V", "offset_re": "V", "offset_im": "V", "phase": "rad"}
+    assert re.search(r"sigma\s+\S+ V\s+\[", summary_text(back))
+    page = render_report([back], figures=False)
+    assert re.search(r"sigma.*?</td>.*?<td[^>]*>V</td>", page, re.S)
+    # a file that does not say: the data's own unit, named as such (never an empty unit)
+    power = simulate_ringdown("power", t, 2e-3, amplitude=1.0, floor=0.01, noise=0.01, seed=3)
+    result = fit_ringdown(power, settings=quick, compare=False)
+    units = result.summary()["unit"].to_dict()
+    assert {units[k] for k in ("amplitude", "floor", "sigma")} == {"a.u."}
+    assert all(units[k] for k in result.summary().index if k not in ("n_thermal",
+                                                                       "quality_factor"))

@@ -74,6 +74,20 @@ def _temp(value) -> str:
     return "-" if value is None else format_quantity(value, "temperature")
 
 
+def _cell(row, name: str, dimension: str) -> str:
+    """Median [95%] of a quantity, or its one-sided limit when its posterior reaches a
+    prior bound (``> 997 s (limit)``)."""
+    limit = row.limits.get(name)
+    if limit is None:
+        return interval_text(row.stats.get(name), dimension)
+    from cavchar.units import format_quantity
+
+    sign = {"lower": ">", "upper": "<"}.get(limit.get("kind"))
+    if sign is None or limit.get("limit") is None:
+        return "not constrained"
+    return f"{sign} {format_quantity(float(limit['limit']), dimension, 3)} (limit)"
+
+
 def print_trend(trend, why: bool = False) -> None:
     """The trend as a table on stdout, with the fits each row uses and why."""
     from cavchar.derived import format_probability_error
@@ -87,9 +101,9 @@ def print_trend(trend, why: bool = False) -> None:
     for r in trend.rows:
         ids = ",".join(str(i) for i in r.fit_ids)
         line = (f"{r.cooldown:<12} {ids:<8} {_temp(r.stage_temp_k):>8} "
-                f"{interval_text(r.stats.get('lifetime'), 'time'):<26} "
-                f"{interval_text(r.stats.get('n_thermal'), 'dimensionless'):<30} "
-                f"{interval_text(r.stats.get('effective_temperature'), 'temperature'):<24}")
+                f"{_cell(r, 'lifetime', 'time'):<26} "
+                f"{_cell(r, 'n_thermal', 'dimensionless'):<30} "
+                f"{_cell(r, 'effective_temperature', 'temperature'):<24}")
         if r.fit_id == trend.reference_fit and "lifetime" in r.sources:
             line += " reference"
         elif r.drop_probability is not None:

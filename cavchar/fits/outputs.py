@@ -46,12 +46,16 @@ def summary_text(result: FitResult) -> str:
             sign = {"lower": ">", "upper": "<"}.get(limit["kind"])
             value = (f"{sign} {format_quantity(limit['limit'], dimension, 3)}" if sign
                      else "not constrained")
+            if sign and unit and dimension == "dimensionless":
+                value += f" {unit}"
             lines.append(f"  {label:<34}{value:>14}{'one-sided 95% limit':>30}"
                          f"{'posterior at a prior bound':>30}")
             continue
         # digits follow the interval: the unit and decimals of the one-line form
         t = interval_texts(*(float(row[k]) for k in ("median", "lo68", "hi68", "lo95",
                                                      "hi95")), dimension)
+        if unit and dimension == "dimensionless":  # a data unit (a.u., V, mW) or dB
+            t = {k: f"{v} {unit}" for k, v in t.items()}
         lines.append(f"  {label:<34}{t['median']:>14}"
                      f"{'[' + t['lo68'] + ', ' + t['hi68'] + ']':>30}"
                      f"{'[' + t['lo95'] + ', ' + t['hi95'] + ']':>30}")

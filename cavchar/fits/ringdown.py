@@ -94,7 +94,14 @@ def build_ringdown_model(data: RingdownData, *, initial=None, n0: float | None =
     return rd.build_model(signal, list(data.series)), None
 
 
-def _specs(model, priors: Mapping[str, Prior] | None) -> list[ParameterSpec]:
+def _unit_of(name: str, units: Mapping[str, str]) -> str | None:
+    """The data unit of a column (``amplitude_2`` -> the unit of ``amplitude``)."""
+    root, _, tail = name.rpartition("_")
+    return units.get(name, units.get(root) if tail.isdigit() else None)
+
+
+def _specs(model, priors: Mapping[str, Prior] | None,
+           units: Mapping[str, str] | None = None) -> list[ParameterSpec]:
     priors = dict(priors or {})
     names = [p.name for p in model.parameters]
     unknown = sorted(set(priors) - set(names))
@@ -108,8 +115,8 @@ def _specs(model, priors: Mapping[str, Prior] | None) -> list[ParameterSpec]:
             prior = (LogUniform(info.low, info.high) if info.log_scale
                      else Uniform(info.low, info.high))
         log_scale = info.log_scale and prior.support[0] >= 0
-        specs.append(ParameterSpec(info.name, info.unit, info.label, prior,
-                                   log_scale=log_scale))
+        unit = info.unit or _unit_of(info.name, units or {}) or ""
+        specs.append(ParameterSpec(info.name, unit, info.label, prior, log_scale=log_scale))
     return specs
 
 
@@ -228,7 +235,13 @@ def fit_ringdown(
                    allow_negative_power=allow_negative_power)
     decay, fits = decay_check(data)
     model, state = build_ringdown_model(data, initial=initial, n0=n0, fits=fits)
-    specs = _specs(model, priors)
+    from cavchar.io.readers import VALUE_UNIT
+    from cavchar.quantities import data_units
+
+    value_units = {str(r.metadata.get(VALUE_UNIT)) for r in data.records
+                   if r.metadata.get(VALUE_UNIT)}
+    units = data_units(data.signal, value_units.pop() if len(value_units) == 1 else None)
+    specs = _specs(model, priors, units)
     settings = ringdown_settings(settings, seed)
     run = sample_posterior(model.log_likelihood, specs, _inside(model.initial_guess(), specs),
                            settings)
@@ -258,6 +271,15 @@ def fit_ringdown(
     result = finish_fit(f"ringdown-{data.signal}", run, context, checks=checks, extras=extras,
                         model_settings=model_settings)
     if nuisance:
+        from cavchar.parameters import UNIT_DIMENSIONS
+
+        columns = {}
+        for k in nuisance:
+            unit = _unit_of(k, units) or ""
+            columns[k] = {"unit": unit, "dimension": UNIT_DIMENSIONS.get(unit, "dimensionless"),
+                          "label": k}
+        result = dataclasses.replace(result, extras={**result.extras,
+                                                     "nuisance_columns": columns})
         extra = pd.DataFrame({k: np.asarray(v, dtype=float) for k, v in nuisance.items()})
         samples = pd.concat([result.samples.reset_index(drop=True), extra], axis=1)
         result = dataclasses.replace(result, samples=samples)

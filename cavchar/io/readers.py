@@ -30,6 +30,7 @@ __all__ = [
     "ResponseTable",
     "RINGDOWN_COLUMNS",
     "HEADER_TIME_UNIT",
+    "VALUE_UNIT",
 ]
 
 #: value column(s) of each ring-down signal kind; populations use count_0, count_1, ...
@@ -475,12 +476,19 @@ def read_ringdown(
     metadata = dict(table.metadata)
     if "time_unit" in table.layout:
         metadata[HEADER_TIME_UNIT] = table.layout["time_unit"]
+    units = table.layout.get("column_units", {})
+    value_unit = next((units[c] for c in RINGDOWN_COLUMNS.get(signal, ()) if c in units), None)
+    if value_unit is not None and VALUE_UNIT not in metadata:
+        metadata[VALUE_UNIT] = value_unit  # from the header, e.g. "I (V)"
     return RingdownTrace(time, value, signal, sigma=sigma, trace=ids, metadata=metadata,
                          source=table.path, **where)
 
 
 #: metadata key set when the time column's header gave its unit (times are then in s)
 HEADER_TIME_UNIT = "time_unit_from_header"
+#: metadata key of the unit of a ring-down's values (a ``# value_unit: V`` line, or the
+#: unit in the value column's header); the nuisance parameters carry it
+VALUE_UNIT = "value_unit"
 
 
 class ResponseTable(NamedTuple):

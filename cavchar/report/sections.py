@@ -92,6 +92,8 @@ def summary_table_html(result: Any, index: int, truths: Mapping[str, float] | No
     for name in summary_names(result):
         unit, dimension, label = result.column_info(name)
         text = format_interval_row(table.loc[name], dimension)
+        if unit and dimension == "dimensionless":  # a data unit (a.u., V, mW) or dB
+            text["unit"] = f"{text['unit']} {unit}".strip()
         what = SUMMARY_ORDER.get(name, f"{label} ({name})")
         limit = result.prior_limit(name)
         if limit is not None:  # not a measurement: the one-sided limit only
@@ -99,7 +101,8 @@ def summary_table_html(result: Any, index: int, truths: Mapping[str, float] | No
             sign = {"lower": ">", "upper": "<"}.get(limit["kind"])
             value = (f"{sign} {format_quantity_text(limit['limit'], dimension, 3)}" if sign
                      else "not constrained")
-            row = [what + " ‡", value, "one-sided 95% limit", "posterior at a prior bound", ""]
+            row = [what + " ‡", value, "one-sided 95% limit", "posterior at a prior bound",
+                   unit if dimension == "dimensionless" else ""]
             if truths:
                 true = truths.get(name)
                 row.append("–" if true is None else format_quantity_text(float(true),

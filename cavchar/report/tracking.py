@@ -48,6 +48,18 @@ def _interval_cell(stats: Any, dimension: str) -> str:
 _SHORT = {"lifetime": "T_c", "n_thermal": "n_th"}
 
 
+def _row_cell(row: Any, name: str, dimension: str) -> str:
+    """A trend cell: median [95%], or the one-sided limit of a quantity whose posterior
+    reaches a prior bound (never a median and interval of the prior's edge)."""
+    limit = getattr(row, "limits", {}).get(name)
+    if limit is None:
+        return _interval_cell(row.stats.get(name), dimension)
+    sign = {"lower": ">", "upper": "<"}.get(limit.get("kind"))
+    if sign is None or limit.get("limit") is None:
+        return "not constrained"
+    return f"{sign} {format_quantity_text(float(limit['limit']), dimension, 3)} (limit)"
+
+
 def _by_quantity(row: Any, text) -> str:
     """One value per row when T_c and n_th come from fits alike in ``text``, else
     ``"T_c <a>; n_th <b>"``."""
@@ -79,9 +91,9 @@ def _trend_table(trend: Any) -> list[str]:
                      ", ".join(str(i) for i in row.fit_ids),
                      _by_quantity(row, lambda c: "–" if c is None else c.kind),
                      _by_quantity(row, _stage_text),
-                     _interval_cell(row.stats.get("lifetime"), "time"),
-                     _interval_cell(row.stats.get("n_thermal"), "dimensionless"),
-                     _interval_cell(row.stats.get("effective_temperature"), "temperature"),
+                     _row_cell(row, "lifetime", "time"),
+                     _row_cell(row, "n_thermal", "dimensionless"),
+                     _row_cell(row, "effective_temperature", "temperature"),
                      p_text])
     freq = format_quantity_text(trend.freq_hz, "frequency", 5) if trend.freq_hz else "unknown"
     used = []

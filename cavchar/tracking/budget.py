@@ -393,11 +393,22 @@ def thermal_budget(points: Sequence[BudgetPoint], freq_hz: float, *,
         reason = (f"T_hot is identified: its 95% interval spans a factor "
                   f"{t.high_95 / t.low_95:.2g} inside the prior range")
     else:
+        from cavchar.units import format_quantity
+
         model = MODEL_EXCESS
-        reason = ("T_hot is not identifiable from these data (its 95% interval spans a "
-                  f"factor {t.high_95 / t.low_95:.3g} or reaches a prior bound): only the "
-                  "excess f n(nu, T_hot) is constrained, stated as stage occupation plus a "
-                  "constant excess")
+        failed = []  # the conditions that did not hold, each said as it is
+        if not t.high_95 / t.low_95 < 10.0:
+            failed.append(f"its 95% interval spans a factor {t.high_95 / t.low_95:.3g} "
+                          "(needs < 10)")
+        if not t.low_95 > 1.1 * t_lo:
+            failed.append("it reaches down to the prior's lower bound "
+                          f"{format_quantity(t_lo, 'temperature')} (the warmest stage)")
+        if not t.high_95 < t_hot_max_k / 1.1:
+            failed.append("it reaches up to the prior's upper bound "
+                          f"{format_quantity(t_hot_max_k, 'temperature')}")
+        reason = ("T_hot is not identifiable from these data (" + "; ".join(failed)
+                  + "): only the excess f n(nu, T_hot) is constrained, stated as stage "
+                  "occupation plus a constant excess")
     if not (excess.converged and run_2.converged):
         warnings.warn("a budget fit did not fully converge; intervals are approximate",
                       CavcharWarning, stacklevel=2)

@@ -204,6 +204,19 @@ class Evidence:
     reason: str = ""
     cooldown: str | None = None
     stage_temp_k: float | None = None
+    limits: dict | None = None      # column -> one-sided limit (posterior at a prior bound)
+
+    def limit_of(self, name: str) -> str | None:
+        """"lower" / "upper" / "none" when the spec quantity ``name`` is only a one-sided
+        limit in this fit (its posterior, or its source's, reaches a prior bound)."""
+        source, direction = _LIMIT_SOURCE.get(name, (name, 1))
+        limit = (self.limits or {}).get(source)
+        if not isinstance(limit, dict):
+            return None
+        kind = limit.get("kind")
+        if kind in ("lower", "upper") and direction < 0:
+            kind = "upper" if kind == "lower" else "lower"
+        return kind
 
     def quantity(self, name: str) -> np.ndarray | None:
         """Draws of a spec quantity in SI units, or None if this fit cannot give them."""
@@ -310,6 +323,12 @@ def _more_data(values: np.ndarray, req: Requirement) -> tuple[float | None, str]
                "posterior sd scaling as 1/sqrt(data))")
 
 
+#: spec quantity -> (stored column it comes from, +1 rising / -1 falling with it)
+_LIMIT_SOURCE = {"lifetime": ("lifetime", 1), "thermal_photons": ("n_thermal", 1),
+                 "effective_temperature": ("effective_temperature", 1),
+                 "quality_factor": ("lifetime", 1), "linewidth": ("lifetime", -1)}
+
+
 def judge(req: Requirement, evidence: Evidence | None) -> Verdict:
     """The verdict on one requirement from one fit's draws."""
     values = None if evidence is None else evidence.quantity(req.quantity)
@@ -328,7 +347,18 @@ def judge(req: Requirement, evidence: Evidence | None) -> Verdict:
     p = float(met.mean())
     error = math.sqrt(p * (1.0 - p) / values.size)  # binomial, for independent draws
     low, median, high = (float(q) for q in np.quantile(values, [0.025, 0.5, 0.975]))
-    if p >= req.credibility:
+    kind = evidence.limit_of(req.quantity)
+    # a side the data do not constrain (the posterior there is the prior's edge) cannot
+    # decide: "at most" against a lower limit, "at least" against an upper limit
+    blind = kind == "none" or (kind == "lower" and req.bound == "at_most") or (
+        kind == "upper" and req.bound == "at_least")
+    if blind and (p >= req.credibility or 1.0 - p >= req.credibility):
+        status, factor = "UNDECIDED", None
+        hint = (f"the posterior reaches a bound of its prior: the data give only a "
+                f"{'one-sided ' + kind if kind != 'none' else 'no'} limit, which cannot "
+                f"decide '{req.bound.replace('_', ' ')}' (P(met) = {p:.3g} reflects the "
+                "prior)")
+    elif p >= req.credibility:
         status, factor, hint = "PASS", None, ""
     elif 1.0 - p >= req.credibility:
         status, factor, hint = "FAIL", None, ""
@@ -380,6 +410,7 @@ def evidence_from_log(log, cavity: str, cooldown: str | None = None,
                              f"not {cavity!r}")
         ev = Evidence(description=f"fit {fit.id} ({fit.kind}, cooldown {fit.cooldown}, "
                       f"stage {_temp(fit.stage_temp_k)}; chosen with --fit)",
+                      limits=_limits(fit.summary),
                       draws=log.draws(fit.id), freq_hz=fit.freq_hz or freq_hz, fit_id=fit.id,
                       kind=fit.kind, input_sha256=fit.input_sha256,
                       n_draws_total=fit.n_draws_total, reason="chosen by the user (--fit)",
@@ -402,6 +433,7 @@ def evidence_from_log(log, cavity: str, cooldown: str | None = None,
             raise InputError(f"cavity {cavity!r} has no logged fits in cooldown {cooldown!r}")
         selection, how = selections[0], ""
     by_id = {f.id: f for f in fits}
+    summaries = log.summaries_of(sorted({c.fit_id for c in selection.choices.values()}))
     chosen: dict[str, Evidence] = {}
     cache: dict[int, dict] = {}
     for q in quantities:
@@ -418,10 +450,19 @@ def evidence_from_log(log, cavity: str, cooldown: str | None = None,
                       draws=cache[fit.id], freq_hz=fit.freq_hz or freq_hz, fit_id=fit.id,
                       kind=fit.kind, input_sha256=fit.input_sha256,
                       n_draws_total=fit.n_draws_total, reason=choice.reason,
-                      cooldown=fit.cooldown, stage_temp_k=fit.stage_temp_k)
+                      cooldown=fit.cooldown, stage_temp_k=fit.stage_temp_k,
+                      limits=_limits(summaries.get(fit.id, {})))
         if ev.quantity(q) is not None:
             chosen[q] = ev
     return chosen
+
+
+def _limits(summary: dict) -> dict:
+    """The one-sided limits a logged fit's summary records (``PRIOR_LIMITS``)."""
+    from cavchar.tracking.records import PRIOR_LIMITS
+
+    found = summary.get(PRIOR_LIMITS) if isinstance(summary, dict) else None
+    return dict(found) if isinstance(found, dict) else {}
 
 
 def _temp(value: float | None) -> str:
@@ -434,4 +475,5 @@ def evidence_from_entry(entry, freq_hz: float | None = None) -> Evidence:
     """Evidence from a result file read with :func:`cavchar.tracking.records.read_result_file`."""
     return Evidence(description=f"result file {entry.source} ({entry.kind})",
                     draws=dict(entry.draws), freq_hz=freq_hz or entry.freq_hz, kind=entry.kind,
-                    input_sha256=entry.input_sha256, n_draws_total=entry.n_draws_total)
+                    input_sha256=entry.input_sha256, n_draws_total=entry.n_draws_total,
+                    limits=_limits(dict(entry.summary)))

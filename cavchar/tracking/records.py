@@ -32,6 +32,9 @@ __all__ = [
 KEY_PARAMETERS = ("lifetime", "n_thermal", "effective_temperature")
 #: draws kept per fit: the Monte Carlo error of a probability from 4000 draws is <= 0.008
 DEFAULT_MAX_DRAWS = 4000
+#: key of the stored summary listing quantities that are one-sided limits (posterior
+#: against a prior bound, :meth:`cavchar.result.FitResult.prior_limit`)
+PRIOR_LIMITS = "prior_limits"
 
 
 def _json_default(value: Any) -> Any:
@@ -261,12 +264,26 @@ def entry_from_result(result: Any, *, source: str | None = None,
     specs = getattr(result, "specs", None) or ()
     parameters = tuple(json.loads(canonical_json([s.to_dict() if hasattr(s, "to_dict") else s
                                                   for s in specs])))
+    summary = _summary_dict(result)
+    limiter = getattr(result, "prior_limit", None)
+    if callable(limiter):  # quantities whose posterior reaches a prior bound: limits only
+        limits = {}
+        for p in names:
+            try:
+                found = limiter(p)
+            except (KeyError, TypeError, ValueError):
+                found = None
+            if found is not None:
+                limits[p] = {"kind": found["kind"], "limit": found["limit"],
+                             "text": found["text"]}
+        if limits:
+            summary[PRIOR_LIMITS] = json.loads(canonical_json(limits).replace("NaN", "null"))
     version = _find(provenance, ("cavchar_version", "cavchar"))
     date = _find(provenance, ("created_at", "created", "fitted_at", "date", "timestamp"))
     return FitEntry(
         kind=str(result.kind), draws=draws, model=None if model is None else str(model),
         settings=settings, seed=json.loads(canonical_json(seed)),
-        summary=_summary_dict(result),
+        summary=summary,
         input_sha256=None if sha is None else str(sha),
         tool_version=None if version is None else str(version),
         fitted_at=None if date is None else str(date),

@@ -29,7 +29,7 @@ import numpy as np
 
 from cavchar.errors import InputError
 from cavchar.quantities import QUANTILES_68
-from cavchar.tracking.records import FitRecord
+from cavchar.tracking.records import PRIOR_LIMITS, FitRecord
 from cavchar.tracking.store import CooldownLog
 
 __all__ = ["Interval", "TrendRow", "Trend", "interval", "drop_probability", "cooldown_trend",
@@ -151,6 +151,7 @@ class TrendRow:
     set_aside: tuple = ()
     base_temp_k: float | None = None
     notes: tuple = ()
+    limits: dict = field(default_factory=dict)
 
     @property
     def fit_ids(self) -> tuple[int, ...]:
@@ -207,6 +208,7 @@ class Trend:
                       "used": {q: c.as_dict() for q, c in r.sources.items()},
                       "set_aside": [{"fit_id": i, "why": why} for i, why in r.set_aside],
                       "notes": list(r.notes),
+                      "limits": {k: dict(v) for k, v in r.limits.items()},
                       **{k: v.as_dict() for k, v in r.stats.items()}} for r in self.rows],
         }
 
@@ -359,9 +361,14 @@ def cooldown_trend(log: CooldownLog, cavity: str, *, reference: str | None = Non
     summaries = log.summaries_of(used_ids)
     rows, lifetimes = [], {}
     for label, sources, aside, base, row_notes, n_fits in plans:
-        stats = {}
+        stats, limits, row_notes = {}, {}, tuple(row_notes)
         for name, choice in sources.items():
             fit = by_id[choice.fit_id]
+            limit = (summaries.get(fit.id, {}).get(PRIOR_LIMITS) or {}).get(name)
+            if isinstance(limit, dict) and limit.get("kind") in ("lower", "upper", "none"):
+                limits[name] = limit  # against a prior bound: a limit, not a measurement
+                row_notes += (f"fit {fit.id}: {limit.get('text', name)}; a one-sided limit, "
+                              "not a measurement",)
             stat = summary_interval(summaries.get(fit.id, {}), name, fit.n_draws_total)
             if stat is None and name in draws[fit.id]:
                 stat = interval(draws[fit.id][name])
@@ -373,7 +380,8 @@ def cooldown_trend(log: CooldownLog, cavity: str, *, reference: str | None = Non
         rows.append(TrendRow(cooldown=label, start_date=order[label][1].start_date,
                              fit_id=head.fit_id, kind=head.kind, n_fits=n_fits,
                              stage_temp_k=head.stage_temp_k, stats=stats, sources=sources,
-                             set_aside=tuple(aside), base_temp_k=base, notes=tuple(row_notes)))
+                             set_aside=tuple(aside), base_temp_k=base, notes=row_notes,
+                             limits=limits))
     ref_fit = None
     if reference is not None:
         in_ref = [r for r in rows if r.cooldown == reference and "lifetime" in r.sources]

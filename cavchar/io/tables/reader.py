@@ -240,6 +240,8 @@ def _name_columns(table: Table, layout: FileLayout, known: list[str],
                 values = values * factor
                 values.setflags(write=False)
             info["time_unit"] = unit
+        elif unit is not None:
+            info.setdefault("column_units", {})[name] = unit
         columns[name] = values
     info["file_columns"] = len(headers)
     if ignored:
