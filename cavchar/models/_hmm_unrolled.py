@@ -32,6 +32,9 @@ from types import ModuleType
 #: bump when the generated source changes (part of the file name)
 GENERATOR_VERSION = 5
 
+#: grid route: series terms written out before the loop takes over
+UNROLLED_TERMS = 6
+
 #: largest N for which unrolled kernels are generated (beyond it: loop kernels)
 MAX_UNROLLED_LEVELS = 16
 
@@ -96,18 +99,29 @@ def _grid_step(n: int, ind: str) -> list[str]:
         terms = " + ".join(f"a{i} * trans[c, m, {i}, {j}]" for i in range(n))
         L.append(f"{i2}y{j} = {terms}")
     L += [f"{i2}x{j} = y{j}" for j in range(n)]
-    L += [f"{i2}z = qc * rem[t]", f"{i2}ll -= z", f"{i2}w = 1.0",
-          f"{i2}for kk in range(1, kc + 1):", f"{i2}    w *= z / kk"]
-    i3 = i2 + "    "
-    for j in range(n):
-        terms = [f"y{j} * v{j}"]
-        if j > 0:
-            terms.insert(0, f"y{j - 1} * u{j - 1}")
-        if j < n - 1:
-            terms.append(f"y{j + 1} * d{j + 1}")
-        L.append(f"{i3}f{j} = " + " + ".join(terms))
-    for j in range(n):
-        L += [f"{i3}y{j} = f{j}", f"{i3}x{j} += w * f{j}"]
+    L += [f"{i2}z = qc * rem[t]", f"{i2}ll -= z", f"{i2}w = 1.0"]
+
+    def term(ind_t: str, factor: str) -> list[str]:
+        out = [f"{ind_t}w *= {factor}"]
+        for j in range(n):
+            parts = [f"y{j} * v{j}"]
+            if j > 0:
+                parts.insert(0, f"y{j - 1} * u{j - 1}")
+            if j < n - 1:
+                parts.append(f"y{j + 1} * d{j + 1}")
+            out.append(f"{ind_t}f{j} = " + " + ".join(parts))
+        for j in range(n):
+            out += [f"{ind_t}y{j} = f{j}", f"{ind_t}x{j} += w * f{j}"]
+        return out
+
+    # the first UNROLLED_TERMS terms written out (constant 1/k, no loop), the rest in a loop
+    i3 = i2
+    for kk in range(1, UNROLLED_TERMS + 1):
+        L.append(f"{i3}if kc >= {kk}:")
+        i3 += "    "
+        L += term(i3, f"z * {1.0 / kk!r}")
+    L.append(f"{i3}for kk in range({UNROLLED_TERMS + 1}, kc + 1):")
+    L += term(i3 + "    ", "z / kk")
     L += [f"{ind}else:", f"{i2}d = dts[t]"]
     for m in range(n):
         terms = " + ".join(f"a{i} * right[c, {i}, {m}]" for i in range(n))

@@ -33,7 +33,7 @@ Transitions come in three forms (:class:`Transitions`):
   term is non-negative: no cancellation).  ``P(j h)`` comes from a table of
   matrices (exact, from one eigen-decomposition); ``U`` is tridiagonal, so a
   term costs 3 N multiply-adds; the series stops at the smallest ``K`` with
-  ``P(Poisson(q h) > K) <= 2^-56`` (:func:`uniformization_terms`), below the
+  ``P(Poisson(q h) > K) <= 2^-53`` (:func:`uniformization_terms`), below the
   rounding of one step, so the route is as exact as the others.  The factor
   ``exp(-q r)`` is added to log L as ``-q r``.  Intervals longer than the
   table take the eigen route.
@@ -78,7 +78,7 @@ LOST = 2
 _TINY = 1e-150
 _HUGE = 1e150
 #: truncation tolerance of the uniformization series: below the rounding of one step
-SERIES_TOLERANCE = 2.0**-56
+SERIES_TOLERANCE = 2.0**-53
 
 
 # --------------------------------------------------------------------------- inputs

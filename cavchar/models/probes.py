@@ -17,7 +17,7 @@ for a batch of parameter sets at once.  The probe intervals are examined once:
 one distinct interval (equal spacing, up to a relative 1e-9) -> one matrix per
 parameter set; up to 32 distinct intervals -> one matrix per interval;
 otherwise (irregular spacing: Poisson times, gaps) the grid route of
-:mod:`cavchar.models.hmm_kernels`: ``dt = j h + r`` with ``h`` a sixteenth of
+:mod:`cavchar.models.hmm_kernels`: ``dt = j h + r`` with ``h`` an eighth of
 the mean interval, ``P(dt) = P(j h) exp(Q r)``, a table of ``P(j h)`` for the
 intervals up to their 99.9% quantile and a uniformization series for the
 remainder truncated below the rounding of one step (exact: no bound to
@@ -63,11 +63,11 @@ PAD_RATIO = 1.25
 #: largest rounding amplification eps * sqrt(pi_0 / pi_{N-1}) accepted on the eigen route
 _EIGEN_ROUNDING = 1e-10
 #: grid route: base step h = mean interval / GRID_SUBSTEPS
-GRID_SUBSTEPS = 16
+GRID_SUBSTEPS = 8
 #: grid route: the table covers the intervals up to this quantile ...
 GRID_QUANTILE = 0.999
 #: ... with at most this many matrices (longer intervals: eigen route)
-GRID_MAX_STEPS = 256
+GRID_MAX_STEPS = 512
 
 
 @dataclass(frozen=True)
