@@ -12,8 +12,8 @@ Cache folder: ``$CAVCHAR_KERNEL_DIR`` if set, else ``~/.cache/cavchar/kernels``;
 if neither is writable the code is compiled from memory without caching.
 
 The generated functions (see :mod:`cavchar.models.hmm_kernels` for the
-meaning of the arguments) are ``forward_regular``, ``forward_indexed`` and
-``forward_eigen`` (threads share the parameter sets) and their ``_serial``
+meaning of the arguments) are ``forward_regular``, ``forward_indexed``,
+``forward_eigen`` and ``forward_grid`` (threads share the parameter sets) and their ``_serial``
 twins (one thread: no thread start-up cost for a single parameter set); they
 implement exactly the recursion of the generic loop kernels in that module,
 which the tests compare them with.
@@ -30,7 +30,10 @@ from pathlib import Path
 from types import ModuleType
 
 #: bump when the generated source changes (part of the file name)
-GENERATOR_VERSION = 4
+GENERATOR_VERSION = 5
+
+#: grid route: series terms written out before the loop takes over
+UNROLLED_TERMS = 6
 
 #: largest N for which unrolled kernels are generated (beyond it: loop kernels)
 MAX_UNROLLED_LEVELS = 16
@@ -45,6 +48,7 @@ import numpy as np
 from numba import njit, prange
 
 TINY = 1e-150
+HUGE = 1e150
 
 '''
 
@@ -58,10 +62,12 @@ def _seg_init(n: int, ind: str) -> list[str]:
     return lines
 
 
-def _rescale(n: int, ind: str, in_loop: bool) -> list[str]:
-    """Lazy rescaling: only when the sum of the forward variables gets small."""
+def _rescale(n: int, ind: str, in_loop: bool, both: bool = False) -> list[str]:
+    """Lazy rescaling: only when the sum of the forward variables gets small
+    (``both``: or large; the grid kernel leaves out a factor exp(-q r) <= 1 per probe)."""
     s = " + ".join(f"b{j}" for j in range(n))
-    lines = [f"{ind}s = {s}", f"{ind}if s >= TINY:"]
+    test = "TINY <= s <= HUGE" if both else "s >= TINY"
+    lines = [f"{ind}s = {s}", f"{ind}if {test}:"]
     lines += [f"{ind}    a{j} = b{j}" for j in range(n)]
     lines += [f"{ind}elif s > 0.0:", f"{ind}    ll += np.log(s)", f"{ind}    inv = 1.0 / s"]
     lines += [f"{ind}    a{j} = b{j} * inv" for j in range(n)]
@@ -79,11 +85,62 @@ def _seg_end(n: int, ind: str) -> list[str]:
             f"{ind}else:", f"{ind}    total += ll + np.log({s})"]
 
 
+def _grid_step(n: int, ind: str) -> list[str]:
+    """One probe of the grid route: ``b = ((a P(j h)) S_K(r)) * e`` (see hmm_kernels).
+
+    ``S_K(r) = sum_{k <= K} (q r)^k / k! U^k`` (uniformization without its factor
+    exp(-q r), which is added to ``ll`` as ``-q r``); U is tridiagonal, so each
+    term costs 3 N multiply-adds.  Intervals beyond the table (``sidx < 0``) take
+    the eigen route with their whole length.
+    """
+    L = [f"{ind}m = sidx[t]", f"{ind}if m >= 0:"]
+    i2 = ind + "    "
+    for j in range(n):
+        terms = " + ".join(f"a{i} * trans[c, m, {i}, {j}]" for i in range(n))
+        L.append(f"{i2}y{j} = {terms}")
+    L += [f"{i2}x{j} = y{j}" for j in range(n)]
+    L += [f"{i2}z = qc * rem[t]", f"{i2}ll -= z", f"{i2}w = 1.0"]
+
+    def term(ind_t: str, factor: str) -> list[str]:
+        out = [f"{ind_t}w *= {factor}"]
+        for j in range(n):
+            parts = [f"y{j} * v{j}"]
+            if j > 0:
+                parts.insert(0, f"y{j - 1} * u{j - 1}")
+            if j < n - 1:
+                parts.append(f"y{j + 1} * d{j + 1}")
+            out.append(f"{ind_t}f{j} = " + " + ".join(parts))
+        for j in range(n):
+            out += [f"{ind_t}y{j} = f{j}", f"{ind_t}x{j} += w * f{j}"]
+        return out
+
+    # the first UNROLLED_TERMS terms written out (constant 1/k, no loop), the rest in a loop
+    i3 = i2
+    for kk in range(1, UNROLLED_TERMS + 1):
+        L.append(f"{i3}if kc >= {kk}:")
+        i3 += "    "
+        L += term(i3, f"z * {1.0 / kk!r}")
+    L.append(f"{i3}for kk in range({UNROLLED_TERMS + 1}, kc + 1):")
+    L += term(i3 + "    ", "z / kk")
+    L += [f"{ind}else:", f"{i2}d = dts[t]"]
+    for m in range(n):
+        terms = " + ".join(f"a{i} * right[c, {i}, {m}]" for i in range(n))
+        L.append(f"{i2}h{m} = ({terms}) * np.exp(lam[c, {m}] * d)")
+    for j in range(n):
+        terms = " + ".join(f"h{m} * left[c, {m}, {j}]" for m in range(n))
+        L.append(f"{i2}x{j} = max({terms}, 0.0)")
+    L += [f"{ind}b{j} = x{j} * E[code, {j}]" for j in range(n)]
+    return L
+
+
 def _kernel(n: int, kind: str, parallel: bool = True) -> str:
     if kind == "regular":
         args = "trans, p0, emis, offs, codes, starts, out"
     elif kind == "indexed":
         args = "trans, sidx, p0, emis, offs, codes, starts, out"
+    elif kind == "grid":
+        args = ("trans, sidx, rem, uni, rates, terms, right, lam, left, dts, p0, emis, offs, "
+                "codes, starts, out")
     else:
         args = "right, lam, left, dts, p0, emis, offs, codes, starts, out"
     suffix = "" if parallel else "_serial"
@@ -94,7 +151,12 @@ def _kernel(n: int, kind: str, parallel: bool = True) -> str:
     ind = "        "
     if kind == "regular":
         L += [f"{ind}p{i}_{j} = trans[c, {i}, {j}]" for i in range(n) for j in range(n)]
-    elif kind == "eigen":
+    elif kind == "grid":
+        L += [f"{ind}u{i} = uni[c, 0, {i}]" for i in range(n)]  # U[i, i + 1]
+        L += [f"{ind}v{i} = uni[c, 1, {i}]" for i in range(n)]  # U[i, i]
+        L += [f"{ind}d{i} = uni[c, 2, {i}]" for i in range(n)]  # U[i, i - 1]
+        L += [f"{ind}qc = rates[c]", f"{ind}kc = terms[c]"]
+    if kind == "eigen":
         L += [f"{ind}r{i}_{m} = right[c, {i}, {m}]" for i in range(n) for m in range(n)]
         L += [f"{ind}l{m}_{j} = left[c, {m}, {j}]" for m in range(n) for j in range(n)]
         L += [f"{ind}w{m} = lam[c, {m}]" for m in range(n)]
@@ -113,6 +175,8 @@ def _kernel(n: int, kind: str, parallel: bool = True) -> str:
         for j in range(n):
             terms = " + ".join(f"a{i} * trans[c, m, {i}, {j}]" for i in range(n))
             L.append(f"{ind3}b{j} = ({terms}) * E[code, {j}]")
+    elif kind == "grid":
+        L += _grid_step(n, ind3)
     else:
         L.append(f"{ind3}d = dts[t]")
         for m in range(n):
@@ -122,18 +186,18 @@ def _kernel(n: int, kind: str, parallel: bool = True) -> str:
             terms = " + ".join(f"x{m} * l{m}_{j}" for m in range(n))
             L.append(f"{ind3}b{j} = max({terms}, 0.0) * E[code, {j}]")
     L += [f"{ind3}ll += O[code]"]
-    L += _rescale(n, ind3, in_loop=True)
+    L += _rescale(n, ind3, in_loop=True, both=kind == "grid")
     L += _seg_end(n, ind2)
     L += [f"{ind}out[c] = total", ""]
     return "\n".join(L)
 
 
 def source(n: int) -> str:
-    """Python source of the three unrolled forward kernels for ``n`` levels."""
+    """Python source of the four unrolled forward kernels for ``n`` levels."""
     if not 2 <= n <= MAX_UNROLLED_LEVELS:
         raise ValueError(f"unrolled kernels exist for 2..{MAX_UNROLLED_LEVELS} levels")
     parts = [_HEADER.format(n=n)] + [_kernel(n, kind, par) for par in (True, False)
-                                     for kind in ("regular", "indexed", "eigen")]
+                                     for kind in ("regular", "indexed", "eigen", "grid")]
     return "\n\n".join(parts)
 
 

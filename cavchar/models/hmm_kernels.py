@@ -22,6 +22,21 @@ Transitions come in three forms (:class:`Transitions`):
 * ``eigen``: irregular spacing, exactly, through the eigen-decomposition
   ``P(dt) = R diag(exp(lambda dt)) L`` of the damped-mode generator:
   ``alpha P(dt) = ((alpha R) * exp(lambda dt)) L`` (:func:`eigen_parts`).
+* ``grid``: irregular spacing, exactly, at about the cost of a few distinct
+  spacings: each interval is split as ``dt = j h + r`` (``0 <= r < h``) and
+
+      P(dt) = P(j h) exp(Q r),
+      exp(Q r) = exp(-q r) sum_k (q r)^k / k! U^k,   U = I + Q / q
+
+  (the two factors commute; uniformization, Grassmann, Comput. Oper. Res. 4,
+  47 (1977); ``q`` the largest exit rate, so ``U`` is stochastic and every
+  term is non-negative: no cancellation).  ``P(j h)`` comes from a table of
+  matrices (exact, from one eigen-decomposition); ``U`` is tridiagonal, so a
+  term costs 3 N multiply-adds; the series stops at the smallest ``K`` with
+  ``P(Poisson(q h) > K) <= 2^-53`` (:func:`uniformization_terms`), below the
+  rounding of one step, so the route is as exact as the others.  The factor
+  ``exp(-q r)`` is added to log L as ``-q r``.  Intervals longer than the
+  table take the eigen route.
 
 Outcomes are encoded once as integer codes (:class:`ProbeSequence`): probe
 with setting ``s`` and outcome ``y`` has code ``3 s + y`` with ``y = 2`` for a
@@ -52,6 +67,8 @@ __all__ = [
     "Transitions",
     "emission_table",
     "eigen_parts",
+    "uniformization_parts",
+    "uniformization_terms",
     "forward_loglik",
     "posterior_marginals",
     "viterbi",
@@ -59,6 +76,9 @@ __all__ = [
 
 LOST = 2
 _TINY = 1e-150
+_HUGE = 1e150
+#: truncation tolerance of the uniformization series: below the rounding of one step
+SERIES_TOLERANCE = 2.0**-53
 
 
 # --------------------------------------------------------------------------- inputs
@@ -150,7 +170,11 @@ class Transitions:
     right: np.ndarray  # (k, N, N), "eigen" only
     eigenvalues: np.ndarray  # (k, N)
     left: np.ndarray  # (k, N, N)
-    dts: np.ndarray  # (T,) seconds, "eigen" only: interval before each probe
+    dts: np.ndarray  # (T,) seconds, "eigen" and "grid": interval before each probe
+    remainder: np.ndarray | None = None  # (T,) seconds, "grid" only: r of dt = j h + r
+    uniform: np.ndarray | None = None  # (k, 3, N) "grid": U above, on, below the diagonal
+    rates: np.ndarray | None = None  # (k,) 1/s, "grid": uniformization rate q
+    terms: np.ndarray | None = None  # (k,) int64, "grid": series terms K
 
     @classmethod
     def regular(cls, matrices: ArrayLike) -> Transitions:
@@ -190,6 +214,37 @@ class Transitions:
         return cls("eigen", np.zeros((r.shape[0], 1, n, n)), np.zeros(1, np.int32), r, lam, lt,
                    dts)
 
+    @classmethod
+    def grid(
+        cls, matrices: ArrayLike, step_index: ArrayLike, remainder: ArrayLike,
+        uniform: ArrayLike, rates: ArrayLike, terms: ArrayLike, right: ArrayLike,
+        eigenvalues: ArrayLike, left: ArrayLike, dts: ArrayLike,
+    ) -> Transitions:
+        """Grid route (module docstring): table ``matrices[c, j] = P(j h)`` (k, J, N, N);
+        per probe the table index ``j`` (-1: beyond the table, eigen route) and the
+        remainder ``r`` in s; per set the tridiagonal ``U`` as (k, 3, N) (above, on,
+        below the diagonal), the rate ``q`` (1/s) and the series length ``K``; the
+        eigen parts and the whole intervals ``dts`` (s) for the intervals beyond
+        the table and for forward-backward / Viterbi."""
+        m = np.ascontiguousarray(matrices, dtype=float)
+        idx = np.ascontiguousarray(step_index, dtype=np.int32)
+        rem = np.ascontiguousarray(remainder, dtype=float)
+        uni = np.ascontiguousarray(uniform, dtype=float)
+        q = np.ascontiguousarray(rates, dtype=float)
+        kk = np.ascontiguousarray(terms, dtype=np.int64)
+        k, n = m.shape[0], m.shape[-1]
+        if m.ndim != 4 or m.shape[2] != n or uni.shape != (k, 3, n) or q.shape != (k,) \
+                or kk.shape != (k,) or idx.shape != rem.shape or idx.max() >= m.shape[1]:
+            raise ValueError("grid transitions: inconsistent shapes")
+        e = cls.eigen(right, eigenvalues, left, dts, check=False)
+        return cls("grid", m, idx, e.right, e.eigenvalues, e.left, e.dts, rem, uni, q, kk)
+
+    def as_eigen(self) -> Transitions:
+        """The same transitions on the eigen route (grid -> eigen; others unchanged)."""
+        if self.kind != "grid":
+            return self
+        return Transitions.eigen(self.right, self.eigenvalues, self.left, self.dts, check=False)
+
     @property
     def n_sets(self) -> int:
         return int(self.matrices.shape[0] if self.kind != "eigen" else self.right.shape[0])
@@ -201,6 +256,10 @@ class Transitions:
     def select(self, i: int) -> Transitions:
         """The transitions of parameter set ``i`` alone (k = 1)."""
         sl = slice(i, i + 1)
+        if self.kind == "grid":
+            return Transitions("grid", self.matrices[sl], self.step_index, self.right[sl],
+                               self.eigenvalues[sl], self.left[sl], self.dts, self.remainder,
+                               self.uniform[sl], self.rates[sl], self.terms[sl])
         if self.kind == "eigen":
             return Transitions("eigen", self.matrices[sl], self.step_index, self.right[sl],
                                self.eigenvalues[sl], self.left[sl], self.dts)
@@ -210,13 +269,19 @@ class Transitions:
     def _args(self):
         return (self.matrices, self.step_index, self.right, self.eigenvalues, self.left, self.dts)
 
+    def _grid_args(self):
+        if self.kind == "grid":
+            return self.remainder, self.uniform, self.rates, self.terms
+        k, n = self.n_sets, self.n_levels
+        return np.zeros(1), np.zeros((k, 3, n)), np.zeros(k), np.zeros(k, np.int64)
+
 
 def _dummies(n: int):
     return (np.zeros(1, np.int32), np.zeros((1, n, n)), np.zeros((1, n)), np.zeros((1, n, n)),
             np.zeros(1))
 
 
-_MODE = {"regular": 0, "indexed": 1, "eigen": 2}
+_MODE = {"regular": 0, "indexed": 1, "eigen": 2, "grid": 3}
 
 
 def emission_table(p_one: ArrayLike) -> np.ndarray:
@@ -285,14 +350,67 @@ def eigen_parts(kappa: ArrayLike, n_th: ArrayLike, n_levels: int):
     return right, np.minimum(lam, 0.0), left
 
 
+def uniformization_parts(kappa: ArrayLike, n_th: ArrayLike, n_levels: ArrayLike,
+                         n_pad: int | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Uniformized damped-mode generator ``U = I + Q / q`` for k parameter sets.
+
+    ``Q`` is the generator truncated to ``0..N-1`` (up rate ``kappa n_th (n+1)``
+    below the top level, down rate ``kappa (1+n_th) n``) and ``q = max_n (-Q_nn)``
+    its largest exit rate, so ``U`` is stochastic.  Levels from each set's own
+    ``N`` up to ``n_pad`` are padding: ``U`` is the identity there and no rate
+    leads into them.
+
+    Returns
+    -------
+    uniform : (k, 3, n_pad)
+        ``U[n, n+1]``, ``U[n, n]``, ``U[n, n-1]`` for each n.
+    rates : (k,)
+        ``q`` in 1/s.
+    """
+    kappa = np.atleast_1d(np.asarray(kappa, dtype=float))
+    n_th = np.atleast_1d(np.asarray(n_th, dtype=float))
+    levels = np.broadcast_to(np.asarray(n_levels, dtype=np.int64), kappa.shape)
+    top = int(levels.max()) if n_pad is None else int(n_pad)
+    n = np.arange(top, dtype=float)[None, :]
+    inside = n < levels[:, None]
+    up = np.where(n < levels[:, None] - 1, (kappa * n_th)[:, None] * (n + 1.0), 0.0)
+    down = np.where(inside, (kappa * (1.0 + n_th))[:, None] * n, 0.0)
+    q = np.max(up + down, axis=1)
+    q = np.where(q > 0, q, 1.0)
+    uni = np.stack([up, 1.0 - (up + down) / q[:, None], down], axis=1)
+    uni[:, 0] /= q[:, None]
+    uni[:, 2] /= q[:, None]
+    return uni, q
+
+
+def uniformization_terms(z: ArrayLike, tol: float = SERIES_TOLERANCE) -> np.ndarray:
+    """Smallest K per entry with ``P(Poisson(z) > K) <= tol`` (vectorized, z >= 0).
+
+    The tail after term K is at most ``p_{K+1} / (1 - z / (K + 2))`` (a geometric
+    bound, valid once ``K + 2 > z``), which is what is tested.
+    """
+    z = np.atleast_1d(np.asarray(z, dtype=float))
+    out = np.zeros(z.shape, np.int64)
+    for i, zi in enumerate(z):
+        k, term = 0, np.exp(-zi)
+        while True:
+            nxt = term * zi / (k + 1)
+            if zi < k + 2 and nxt / (1.0 - zi / (k + 2)) <= tol:
+                break
+            k, term = k + 1, nxt
+        out[i] = k
+    return out
+
+
 # --------------------------------------------------------------------------- loop kernels
 
 
 @njit(cache=True, nogil=True)
-def _propagate(mode, c, t, a, b, x, trans, sidx, right, lam, left, dts):
+def _propagate(mode, c, t, a, b, x, trans, sidx, right, lam, left, dts, rem, uni, rates,
+               terms):
     """b = a @ P_t for parameter set c (P_t = transition into probe t)."""
     n = a.shape[0]
-    if mode == 2:
+    if mode == 2 or (mode == 3 and sidx[t] < 0):
         d = dts[t]
         for m in range(n):
             acc = 0.0
@@ -304,6 +422,27 @@ def _propagate(mode, c, t, a, b, x, trans, sidx, right, lam, left, dts):
             for m in range(n):
                 acc += x[m] * left[c, m, j]
             b[j] = max(acc, 0.0)
+    elif mode == 3:  # grid: b = (a P(j h)) S_K(r), S_K without its factor exp(-q r)
+        mm = sidx[t]
+        for j in range(n):
+            acc = 0.0
+            for i in range(n):
+                acc += a[i] * trans[c, mm, i, j]
+            x[j] = acc
+            b[j] = acc
+        z = rates[c] * rem[t]
+        w = 1.0
+        for kk in range(1, terms[c] + 1):
+            w *= z / kk
+            carry = 0.0  # old x[j - 1] U[j - 1, j]
+            for j in range(n):
+                cur = x[j]
+                acc = carry + cur * uni[c, 1, j]
+                if j + 1 < n:
+                    acc += x[j + 1] * uni[c, 2, j + 1]
+                carry = cur * uni[c, 0, j]
+                x[j] = acc
+                b[j] += w * acc
     else:
         mm = sidx[t] if mode == 1 else 0
         for j in range(n):
@@ -334,7 +473,8 @@ def _step_matrix(mode, c, t, out, trans, sidx, right, lam, left, dts):
 
 
 @njit(parallel=True, cache=True, nogil=True, fastmath={"contract"})
-def _forward_loops(mode, trans, sidx, right, lam, left, dts, p0, emis, offs, codes, starts, out):
+def _forward_loops(mode, trans, sidx, right, lam, left, dts, rem, uni, rates, terms, p0, emis,
+                   offs, codes, starts, out):
     k = out.shape[0]
     n = p0.shape[1]
     nseg = starts.shape[0] - 1
@@ -365,13 +505,16 @@ def _forward_loops(mode, trans, sidx, right, lam, left, dts, p0, emis, offs, cod
                             for j in range(n):
                                 b[j] += ai * pm[i, j]
                     else:
-                        _propagate(mode, c, t, a, b, x, trans, sidx, right, lam, left, dts)
+                        _propagate(mode, c, t, a, b, x, trans, sidx, right, lam, left, dts, rem,
+                                   uni, rates, terms)
+                        if mode == 3 and sidx[t] >= 0:
+                            ll -= rates[c] * rem[t]
                     ll += offs[c, code]
                     s = 0.0
                     for j in range(n):
                         a[j] = b[j] * em[code, j]
                         s += a[j]
-                if not s >= _TINY:
+                if not (_TINY <= s <= _HUGE):
                     if s > 0.0:
                         ll += np.log(s)
                         for j in range(n):
@@ -406,7 +549,8 @@ def _marginals(mode, trans, sidx, right, lam, left, dts, p0, emis, codes, starts
                 for j in range(n):
                     b[j] = p0[j]
             else:
-                _propagate(mode, 0, t, post[t - 1], b, x, trans, sidx, right, lam, left, dts)
+                _propagate(mode, 0, t, post[t - 1], b, x, trans, sidx, right, lam, left, dts,
+                           dts, right, lam[:, 0], sidx)
             s = 0.0
             for j in range(n):
                 post[t, j] = b[j] * emis[code, j]
@@ -552,17 +696,23 @@ def forward_loglik(
         elif tr.kind == "indexed":
             getattr(mod, "forward_indexed" + suffix)(tr.matrices, tr.step_index, p0, emis, offs,
                                                      *seq)
+        elif tr.kind == "grid":
+            getattr(mod, "forward_grid" + suffix)(tr.matrices, tr.step_index, tr.remainder,
+                                                  tr.uniform, tr.rates, tr.terms, tr.right,
+                                                  tr.eigenvalues, tr.left, tr.dts, p0, emis, offs,
+                                                  *seq)
         else:
             getattr(mod, "forward_eigen" + suffix)(tr.right, tr.eigenvalues, tr.left, tr.dts,
                                                    p0, emis, offs, *seq)
     else:
-        _forward_loops(_MODE[tr.kind], *tr._args(), p0, emis, offs, *seq)
+        _forward_loops(_MODE[tr.kind], *tr._args(), *tr._grid_args(), p0, emis, offs, *seq)
     return np.where(np.isnan(out), -np.inf, out)
 
 
 def _single(transitions: Transitions, initial, emission, sequence):
     if transitions.n_sets != 1:
         raise ValueError("pass the transitions of one parameter set (Transitions.select(i))")
+    transitions = transitions.as_eigen()  # forward-backward and Viterbi: interval by interval
     n = transitions.n_levels
     p0 = np.ascontiguousarray(initial, dtype=float)
     emis = np.ascontiguousarray(emission, dtype=float)

@@ -139,7 +139,7 @@ class BlockedProbeLikelihood:
             emis, offs = self._fixed[n_levels]
         else:
             emis, offs = self._pattern_emission(ex.prob_one(free, n_levels, kappa.size))
-        tr = ex._transitions(kappa, n_th, levels, self.steps)
+        tr = ex._transitions(kappa, n_th, levels, self.steps, ex.irregular)
         return hk.forward_loglik(tr, ex.initial_law(n_th, levels), emis, self.sequence, offs)
 
 

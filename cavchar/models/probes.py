@@ -16,8 +16,13 @@ evaluated by the scaled forward algorithm (:mod:`cavchar.models.hmm_kernels`)
 for a batch of parameter sets at once.  The probe intervals are examined once:
 one distinct interval (equal spacing, up to a relative 1e-9) -> one matrix per
 parameter set; up to 32 distinct intervals -> one matrix per interval;
-otherwise the exact eigen route ``alpha P(dt) = ((alpha R) e^{lambda dt}) L``
-with every interval as it is.
+otherwise (irregular spacing: Poisson times, gaps) the grid route of
+:mod:`cavchar.models.hmm_kernels`: ``dt = j h + r`` with ``h`` an eighth of
+the mean interval, ``P(dt) = P(j h) exp(Q r)``, a table of ``P(j h)`` for the
+intervals up to their 99.9% quantile and a uniformization series for the
+remainder truncated below the rounding of one step (exact: no bound to
+report).  ``irregular="eigen"`` keeps the interval-by-interval eigen route
+``alpha P(dt) = ((alpha R) e^{lambda dt}) L``.
 """
 
 from __future__ import annotations
@@ -57,6 +62,12 @@ LEVEL_STEP = 2
 PAD_RATIO = 1.25
 #: largest rounding amplification eps * sqrt(pi_0 / pi_{N-1}) accepted on the eigen route
 _EIGEN_ROUNDING = 1e-10
+#: grid route: base step h = mean interval / GRID_SUBSTEPS
+GRID_SUBSTEPS = 8
+#: grid route: the table covers the intervals up to this quantile ...
+GRID_QUANTILE = 0.999
+#: ... with at most this many matrices (longer intervals: eigen route)
+GRID_MAX_STEPS = 512
 
 
 @dataclass(frozen=True)
@@ -67,17 +78,25 @@ class ProbeSteps:
     ----------
     kind : "regular", "indexed" or "irregular"
     steps : ndarray (M,)
-        Distinct intervals in s (regular/indexed); empty for irregular.
+        Distinct intervals in s (regular/indexed); for irregular the table of the
+        grid route, ``h * arange(J)``.
     step_index : ndarray of int32 (T,)
-        Index into ``steps`` of each probe's interval (0 at segment starts).
+        Index into ``steps`` of each probe's interval (0 at segment starts); for
+        irregular ``j = floor(dt / h)``, or -1 beyond the table.
     dts : ndarray (T,)
         The intervals themselves in s.
+    remainder : ndarray (T,)
+        Irregular only: ``r = dt - j h`` in s, ``0 <= r < h`` (0 beyond the table).
+    grid_step : float
+        Irregular only: ``h`` in s.
     """
 
     kind: str
     steps: np.ndarray
     step_index: np.ndarray
     dts: np.ndarray
+    remainder: np.ndarray | None = None
+    grid_step: float = 0.0
 
 
 def probe_steps(time: ArrayLike, starts: ArrayLike, rtol: float = STEP_RTOL,
@@ -105,7 +124,16 @@ def probe_steps(time: ArrayLike, starts: ArrayLike, rtol: float = STEP_RTOL,
             idx[~first] = label[np.searchsorted(uniq, inner)]
             kind = "regular" if steps.size == 1 else "indexed"
             return ProbeSteps(kind, steps, idx, dts)
-    return ProbeSteps("irregular", np.zeros(0), np.zeros(time.size, np.int32), dts)
+    h = float(inner.mean()) / GRID_SUBSTEPS
+    if not h > 0:
+        h = float(inner.max()) or 1.0
+    top = float(np.quantile(inner, GRID_QUANTILE))
+    n_grid = int(min(GRID_MAX_STEPS, max(2, math.floor(top / h) + 1)))
+    j = np.floor(dts / h)
+    beyond = j >= n_grid
+    idx = np.where(beyond, -1, j).astype(np.int32)
+    rem = np.where(beyond, 0.0, np.maximum(dts - j * h, 0.0))
+    return ProbeSteps("irregular", h * np.arange(n_grid), idx, dts, rem, h)
 
 
 def group_settings(setting: ArrayLike | None, n: int) -> tuple[np.ndarray, np.ndarray]:
@@ -191,15 +219,22 @@ class ProbeLikelihood:
         Upper limit of the automatic truncation (default 64, or the photon
         numbers a table response covers).  Parameter sets that would need more
         are evaluated at the limit and counted in :attr:`capped`.
+    irregular : "grid" or "eigen"
+        Route for irregular probe spacing (module docstring); both are exact,
+        ``"grid"`` is the fast one.
 
     The parameter vector is ``(lifetime [s], n_thermal, *response.free_names)``.
     """
 
     def __init__(self, record: ProbeRecord, response: FringeResponse | TableResponse,
                  n_levels: int | None = None, *, initial: str | int = "stationary",
-                 max_levels: int | None = None) -> None:
+                 max_levels: int | None = None, irregular: str = "grid") -> None:
         if not isinstance(record, ProbeRecord):
             raise TypeError("record must be a ProbeRecord")
+        if irregular not in ("grid", "eigen"):
+            raise InputError(f"unknown route {irregular!r} for irregular spacing",
+                             hint="use 'grid' or 'eigen'")
+        self.irregular = irregular
         self.record = record
         self.response = response
         if isinstance(initial, str) and initial != "stationary":
@@ -267,10 +302,11 @@ class ProbeLikelihood:
         reached (no transition into them, zero initial probability), which
         leaves their likelihood exactly that of their own truncation.
         """
-        return self._transitions(kappa, n_th, n_levels, self.steps)
+        return self._transitions(kappa, n_th, n_levels, self.steps, self.irregular)
 
     @staticmethod
-    def _transitions(kappa, n_th, n_levels, steps: ProbeSteps) -> hk.Transitions:
+    def _transitions(kappa, n_th, n_levels, steps: ProbeSteps,
+                     irregular: str = "grid") -> hk.Transitions:
         levels = np.broadcast_to(np.asarray(n_levels, dtype=np.int64), np.shape(kappa))
         top = int(levels.max())
         k = levels.size
@@ -280,19 +316,23 @@ class ProbeLikelihood:
         for n in np.unique(levels):
             g = np.flatnonzero(levels == n)
             r[g, :n, :n], lam[g, :n], left[g, :n, :n] = hk.eigen_parts(kappa[g], n_th[g], int(n))
-        if steps.kind == "irregular":
+        if steps.kind == "irregular" and irregular == "eigen":
             return hk.Transitions.eigen(r, lam, left, steps.dts, check=False)
         # eigen route P = R diag(exp(lambda dt)) L, rounding error eps sqrt(pi_j / pi_i)
         # (hk.eigen_parts); sets where that could exceed 1e-10 use scaling-and-squaring
-        mats = np.clip(np.einsum("kim,ksm,kmj->ksij", r,
-                                 np.exp(lam[:, None, :] * steps.steps[None, :, None]), left),
-                       0.0, 1.0)
+        decay = np.exp(lam[:, None, :] * steps.steps[None, :, None])  # (k, M, N)
+        mats = np.clip(np.matmul(r[:, None] * decay[:, :, None, :], left[:, None]), 0.0, 1.0)
         with np.errstate(divide="ignore", over="ignore"):
             amp = np.exp(-0.5 * (levels - 1) * (np.log(n_th) - np.log1p(n_th)))
         for i in np.flatnonzero(~(np.finfo(float).eps * amp <= _EIGEN_ROUNDING)):
             n = int(levels[i])
             mats[i, :, :n, :n] = transition_matrices_batch(kappa[i:i + 1], n_th[i:i + 1], n,
                                                            steps.steps)[0]
+        if steps.kind == "irregular":
+            uni, rates = hk.uniformization_parts(kappa, n_th, levels, top)
+            terms = hk.uniformization_terms(rates * steps.grid_step)
+            return hk.Transitions.grid(mats, steps.step_index, steps.remainder, uni, rates, terms,
+                                       r, lam, left, steps.dts)
         if steps.kind == "regular":
             return hk.Transitions.regular(mats[:, 0])
         return hk.Transitions.indexed(mats, steps.step_index, check=False)
