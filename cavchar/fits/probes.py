@@ -28,7 +28,8 @@ import numpy as np
 from cavchar.errors import CavcharWarning, InputError, PriorDominatedWarning
 from cavchar.fits.common import FitContext, finish_fit, sampler_settings
 from cavchar.fits.probe_trajectory import reconstruct_trajectory
-from cavchar.inference import SamplerSettings, sample_posterior
+from cavchar.inference import SamplerSettings
+from cavchar.inference.importance import sample_posterior_auto
 from cavchar.models.probe_blocks import (
     BIAS_LIMIT_SD,
     BlockedProbeLikelihood,
@@ -174,6 +175,7 @@ def fit_probes(
     initial: str | int = "stationary",
     n_levels: int | None = None,
     command: str | None = None,
+    sampler: str = "importance",
 ):
     """Posterior of the lifetime, thermal photon number (and fitted response
     parameters) from a raw probe record.
@@ -206,6 +208,11 @@ def fit_probes(
         Fixed truncation (default: automatic, checked against the posterior).
     command
         The command line, stored in the provenance.
+    sampler
+        ``"importance"`` (Pareto-smoothed importance sampling from a Laplace
+        proposal, falling back to the ensemble when its k-hat diagnostic says the
+        approximation is poor; :mod:`cavchar.inference.importance`) or ``"ensemble"``
+        (emcee throughout).
 
     Returns
     -------
@@ -215,7 +222,7 @@ def fit_probes(
     return fit_probes_with_trajectory(
         record, response=response, freq_hz=freq_hz, stage_temp_k=stage_temp_k, priors=priors,
         settings=settings, seed=seed, mode=mode, block_probes=block_probes, initial=initial,
-        n_levels=n_levels, command=command)[0]
+        n_levels=n_levels, command=command, sampler=sampler)[0]
 
 
 def fit_probes_with_trajectory(record, **options):
@@ -227,7 +234,7 @@ def fit_probes_with_trajectory(record, **options):
 
 def _fit(record, *, response, freq_hz=None, stage_temp_k=None, priors=None, settings=None,
          seed=None, mode="auto", block_probes=None, initial="stationary", n_levels=None,
-         command=None):
+         command=None, sampler="importance"):
     record = _read(record)
     response = _response(response)
     priors = priors or ProbePriors()
@@ -259,7 +266,7 @@ def _fit(record, *, response, freq_hz=None, stage_temp_k=None, priors=None, sett
     for _attempt in range(2):
         exact = ProbeLikelihood(record, response, n_levels, initial=initial, max_levels=cap)
         model = BlockedProbeLikelihood(exact, max(1, blocks)) if use_coarse else exact
-        run = sample_posterior(model, specs, guess, settings)
+        run = sample_posterior_auto(model, specs, guess, settings, sampler)
         needed = exact.levels_for(run.draws[:, 0], run.draws[:, 1], cap=False)
         top = int(np.quantile(needed, 0.999, method="higher"))
         if n_levels is not None or top <= exact.max_levels:
@@ -287,7 +294,8 @@ def _fit(record, *, response, freq_hz=None, stage_temp_k=None, priors=None, sett
                                         "bias_bound_sd": check["bias_bound_sd"]})
         blocks //= 2
         model = BlockedProbeLikelihood(exact, blocks)
-        run = sample_posterior(model, specs, np.median(run.draws, axis=0), settings)
+        run = sample_posterior_auto(model, specs, np.median(run.draws, axis=0), settings,
+                                      sampler)
     if use_coarse:
         if not check["bias_bound_sd"] < BIAS_LIMIT_SD:
             warnings.warn(f"coarse mode: the bias bound {check['bias_bound_sd']:.2f} posterior "
@@ -310,7 +318,7 @@ def _fit(record, *, response, freq_hz=None, stage_temp_k=None, priors=None, sett
     extras["pilot_guess"] = dict(zip(exact.names, guess.tolist(), strict=True))
     model_settings = {"mode": "coarse" if use_coarse else "exact",
                       "block_probes": int(blocks) if use_coarse else 1,
-                      "levels_99.9%": top, "initial_state": initial,
+                      "levels_99.9%": top, "initial_state": initial, "sampler": sampler,
                       "response": response.describe()}
     kind = "probes-coarse" if use_coarse else "probes-exact"
     result = finish_fit(kind, run, context, checks=checks, extras=extras,
