@@ -283,8 +283,9 @@ def sample_importance(
     (resampled, so some repeat); ``trace`` is ``None``.  Diagnostics: ``sampler``
     (``"importance"`` or ``"ensemble (fallback: ...)"``), ``importance``
     (k-hat, its limit, the weights' ESS, rounds, draws), ``ess_bulk`` (per
-    parameter, ESS of the posterior mean in sampler coordinates, e.g. of ``ln T_c``), ``ess_tail`` (smaller ESS of the 5% and
-    95% quantile indicators), ``n_draws``, ``converged``, ``failed_checks``, ``map``,
+    parameter, ESS of the posterior mean in sampler coordinates, e.g. of ``ln T_c``),
+    ``ess_tail`` (smaller ESS of the 5% and 95% quantile indicators), ``n_draws``,
+    ``converged``, ``failed_checks``, ``map``,
     ``elapsed_s``.
 
     Raises
