@@ -147,3 +147,58 @@ def test_one_mode_unseen_is_a_known_limit():
     run = sample_importance(loglike, specs, [-3.0], SamplerSettings(seed=3, quiet=True))
     assert run.diagnostics["sampler"] == "importance"
     assert np.all(run.draws[:, 0] < 0)
+
+
+# ------------------------------------------------------------------ SBC of the probe fit
+def _probe_sbc(replicates: int, seed: int, stretch: float = 1.0) -> dict[str, float]:
+    """Rank of the true (T_c, n_th) among 99 posterior draws for each replicate
+    (Talts et al. 2018); returns the KS p-value of the ranks against uniformity per
+    parameter.  ``stretch`` != 1: the fit is told probe times ``stretch`` times the real
+    ones (a mis-specified model; the negative control)."""
+    from cavchar.models.probes import ProbeLikelihood
+    from cavchar.models.response import FringeResponse
+    from cavchar.records import ProbeRecord
+    from cavchar.simulate.probes import simulate_probe_record
+
+    response = FringeResponse(visibility=0.9, phase_per_photon=math.pi)
+    prior_t, prior_n = LogUniform(0.005, 0.05), LogUniform(0.1, 1.0)
+    specs = [ParameterSpec("lifetime", "s", "T_c", prior_t, log_scale=True),
+             ParameterSpec("n_thermal", "", "n_th", prior_n, log_scale=True)]
+    rng = np.random.default_rng(seed)
+    times = np.arange(8000) * 2e-4
+    ranks = {"lifetime": [], "n_thermal": []}
+    for r in range(replicates):
+        truth = (float(prior_t.sample(rng, 1)[0]), float(prior_n.sample(rng, 1)[0]))
+        record, _ = simulate_probe_record(truth[0], truth[1], times, response, seed=seed + r)
+        if stretch != 1.0:
+            record = ProbeRecord(record.time * stretch, record.outcome)
+        model = ProbeLikelihood(record, response, max_levels=16)
+        run = sample_importance(model, specs, [0.017, 0.3],
+                                SamplerSettings(seed=r, quiet=True, allow_unconverged=True),
+                                ImportanceSettings(n_draws=1000, max_draws=2000,
+                                                   target_ess=300, fallback=False))
+        pick = np.random.default_rng(r).choice(run.draws.shape[0], 99, replace=False)
+        for d, name in enumerate(ranks):
+            ranks[name].append(int(np.sum(run.draws[pick, d] < truth[d])))
+    out = {}
+    for name, values in ranks.items():
+        u = (np.asarray(values) + rng.random(len(values))) / 100.0  # jittered to continuous
+        out[name] = float(stats.kstest(u, "uniform").pvalue)
+    return out
+
+
+def test_probe_fit_sbc_quick_with_negative_control():
+    # 16 replicates of 8000 probes: KS p-values of the ranks above 0.01 for the true model;
+    # the fit told a clock four times too slow (every T_c four times the truth) fails
+    good = _probe_sbc(16, seed=100)
+    assert min(good.values()) > 0.01, good
+    bad = _probe_sbc(8, seed=100, stretch=4.0)
+    assert bad["lifetime"] < 0.01, bad
+
+
+@pytest.mark.slow
+def test_probe_fit_sbc_long():
+    good = _probe_sbc(100, seed=300)
+    assert min(good.values()) > 0.01, good
+    bad = _probe_sbc(100, seed=300, stretch=1.5)
+    assert bad["lifetime"] < 0.01, bad
