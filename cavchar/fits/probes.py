@@ -27,6 +27,7 @@ import numpy as np
 
 from cavchar.errors import CavcharWarning, InputError, PriorDominatedWarning
 from cavchar.fits.common import FitContext, finish_fit, sampler_settings
+from cavchar.fits.probe_budget import exact_cost
 from cavchar.fits.probe_trajectory import reconstruct_trajectory
 from cavchar.inference import SamplerSettings
 from cavchar.inference.importance import sample_posterior_auto
@@ -263,6 +264,11 @@ def _fit(record, *, response, freq_hz=None, stage_temp_k=None, priors=None, sett
         response.check_coverage(need, settings_used)  # names the missing photon numbers
     else:
         cap = choose_levels(max(5.0 * guess[1], 0.5), _n0(initial), _duration(record) / guess[0])
+    budget = None
+    if mode == "auto" and use_coarse:  # long record: exact unless a measurement says too slow
+        budget = exact_cost(ProbeLikelihood(record, response, n_levels, initial=initial,
+                                            max_levels=cap), guess, sampler)
+        use_coarse = not budget["affordable"]
     for _attempt in range(2):
         exact = ProbeLikelihood(record, response, n_levels, initial=initial, max_levels=cap)
         model = BlockedProbeLikelihood(exact, max(1, blocks)) if use_coarse else exact
@@ -276,6 +282,8 @@ def _fit(record, *, response, freq_hz=None, stage_temp_k=None, priors=None, sett
         cap = 2 * top  # walkers needed more levels than allowed: widen and sample again
         guess = np.median(run.draws, axis=0)
     checks, extras = {}, {}
+    if budget is not None:
+        checks["exact_budget"] = budget
     n_top = float(np.quantile(run.draws[:, 1], 0.999))
     checks["truncation"] = {
         "levels_at_median": int(np.median(needed)), "levels_99.9%": top,
