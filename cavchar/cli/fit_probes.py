@@ -101,6 +101,10 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
                         metavar="N",
                         help="segments start in Fock state N; unset: thermal equilibrium")
     add_layout_options(parser)
+    parser.add_argument("--sampler", choices=("importance", "ensemble"), default="importance",
+                        help="importance: Pareto-smoothed importance sampling from the Laplace "
+                        "approximation (falls back to the ensemble when its k-hat diagnostic "
+                        "says the approximation is poor); ensemble: emcee throughout")
     add_fit_context_options(parser)
     add_sampler_options(parser)
     add_output_options(parser)
@@ -226,6 +230,7 @@ def handle(args: argparse.Namespace) -> int:
         block_probes=args.block_probes,
         initial="stationary" if args.initial_photons is None else args.initial_photons,
         command="cavchar " + shlex.join(sys.argv[1:]) if sys.argv else None,
+        sampler=args.sampler,
     )
     bias = result.checks.get("coarse_bias")
     if bias:

@@ -33,9 +33,11 @@ import numpy as np
 
 from cavchar.errors import CavcharWarning, InputError, PriorDominatedWarning
 from cavchar.fits.common import FitContext, finish_fit, sampler_settings
+from cavchar.fits.probe_budget import exact_cost
 from cavchar.fits.probe_check import probe_predictive_check
 from cavchar.fits.probe_trajectory import reconstruct_trajectory
-from cavchar.inference import SamplerSettings, sample_posterior
+from cavchar.inference import SamplerSettings
+from cavchar.inference.importance import sample_posterior_auto
 from cavchar.models.probe_blocks import (
     BIAS_LIMIT_SD,
     BlockedProbeLikelihood,
@@ -192,6 +194,7 @@ def fit_probes(
     initial: str | int = "stationary",
     n_levels: int | None = None,
     command: str | None = None,
+    sampler: str = "importance",
 ):
     """Posterior of the lifetime, thermal photon number (and fitted response
     parameters) from a raw probe record.
@@ -228,6 +231,11 @@ def fit_probes(
         Fixed truncation (default: automatic, checked against the posterior).
     command
         The command line, stored in the provenance.
+    sampler
+        ``"importance"`` (Pareto-smoothed importance sampling from a Laplace
+        proposal, falling back to the ensemble when its k-hat diagnostic says the
+        approximation is poor; :mod:`cavchar.inference.importance`) or ``"ensemble"``
+        (emcee throughout).
 
     Returns
     -------
@@ -237,7 +245,7 @@ def fit_probes(
     return fit_probes_with_trajectory(
         record, response=response, freq_hz=freq_hz, stage_temp_k=stage_temp_k, priors=priors,
         settings=settings, seed=seed, mode=mode, block_probes=block_probes, initial=initial,
-        n_levels=n_levels, command=command)[0]
+        n_levels=n_levels, command=command, sampler=sampler)[0]
 
 
 def fit_probes_with_trajectory(record, **options):
@@ -249,7 +257,7 @@ def fit_probes_with_trajectory(record, **options):
 
 def _fit(record, *, response=None, freq_hz=None, stage_temp_k=None, priors=None, settings=None,
          seed=None, mode="auto", block_probes=None, initial="stationary", n_levels=None,
-         command=None):
+         command=None, sampler="importance"):
     record = _read(record)
     response = _response(response)
     priors = priors or ProbePriors()
@@ -278,10 +286,15 @@ def _fit(record, *, response=None, freq_hz=None, stage_temp_k=None, priors=None,
         response.check_coverage(need, settings_used)  # names the missing photon numbers
     else:
         cap = choose_levels(max(5.0 * guess[1], 0.5), _n0(initial), _duration(record) / guess[0])
+    budget = None
+    if mode == "auto" and use_coarse:  # long record: exact unless a measurement says too slow
+        budget = exact_cost(ProbeLikelihood(record, response, n_levels, initial=initial,
+                                            max_levels=cap), guess, sampler)
+        use_coarse = not budget["affordable"]
     for _attempt in range(2):
         exact = ProbeLikelihood(record, response, n_levels, initial=initial, max_levels=cap)
         model = BlockedProbeLikelihood(exact, max(1, blocks)) if use_coarse else exact
-        run = sample_posterior(model, specs, guess, settings)
+        run = sample_posterior_auto(model, specs, guess, settings, sampler)
         needed = exact.levels_for(run.draws[:, 0], run.draws[:, 1], cap=False)
         top = int(np.quantile(needed, 0.999, method="higher"))
         if n_levels is not None or top <= exact.max_levels:
@@ -291,6 +304,8 @@ def _fit(record, *, response=None, freq_hz=None, stage_temp_k=None, priors=None,
         cap = 2 * top  # walkers needed more levels than allowed: widen and sample again
         guess = np.median(run.draws, axis=0)
     checks, extras = {}, {}
+    if budget is not None:
+        checks["exact_budget"] = budget
     n_top = float(np.quantile(run.draws[:, 1], 0.999))
     checks["truncation"] = {
         "levels_at_median": int(np.median(needed)), "levels_99.9%": top,
@@ -309,7 +324,8 @@ def _fit(record, *, response=None, freq_hz=None, stage_temp_k=None, priors=None,
                                         "bias_bound_sd": check["bias_bound_sd"]})
         blocks //= 2
         model = BlockedProbeLikelihood(exact, blocks)
-        run = sample_posterior(model, specs, np.median(run.draws, axis=0), settings)
+        run = sample_posterior_auto(model, specs, np.median(run.draws, axis=0), settings,
+                                      sampler)
     if use_coarse:
         if not check["bias_bound_sd"] < BIAS_LIMIT_SD:
             warnings.warn(f"coarse mode: the bias bound {check['bias_bound_sd']:.2f} posterior "
@@ -335,7 +351,7 @@ def _fit(record, *, response=None, freq_hz=None, stage_temp_k=None, priors=None,
     extras["pilot_guess"] = dict(zip(exact.names, guess.tolist(), strict=True))
     model_settings = {"mode": "coarse" if use_coarse else "exact",
                       "block_probes": int(blocks) if use_coarse else 1,
-                      "levels_99.9%": top, "initial_state": initial,
+                      "levels_99.9%": top, "initial_state": initial, "sampler": sampler,
                       "response": response.describe()}
     kind = "probes-coarse" if use_coarse else "probes-exact"
     result = finish_fit(kind, run, context, checks=checks, extras=extras,
