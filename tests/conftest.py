@@ -2,9 +2,14 @@
 
 from __future__ import annotations
 
+import os
 from pathlib import Path
 
-import pytest
+# one BLAS thread, as the command sets (cavchar.cli.main): small matrices, no oversubscription
+for _variable in ("OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_variable, "1")
+
+import pytest  # noqa: E402
 
 REPO = Path(__file__).resolve().parents[1]
 REFERENCE_TABLES = REPO / "reference_tables"

@@ -13,14 +13,22 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import re
 import sys
 import warnings
 from collections.abc import Sequence
 
-from cavchar import __version__
-from cavchar.cli.common import HelpFormatter
-from cavchar.errors import CavcharError, CavcharWarning
+# cavchar's matrices are small (a truncated Fock space of at most a few hundred levels):
+# a multi-threaded BLAS only adds hand-over cost, and on a busy machine oversubscribes
+# it (an eigen-decomposition measured 0.16 s with one thread, 15 s with two under load).
+# Set before numpy is first imported; a user's own setting is kept.
+for _variable in ("OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_variable, "1")
+
+from cavchar import __version__  # noqa: E402
+from cavchar.cli.common import HelpFormatter  # noqa: E402
+from cavchar.errors import CavcharError, CavcharWarning  # noqa: E402
 
 #: sub-command modules, in the order ``--help`` lists them
 COMMAND_MODULES = (
