@@ -198,3 +198,19 @@ def test_open_log_is_light():
             "print(bad); sys.exit(1 if bad else 0)")
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
     assert done.returncode == 0, done.stdout + done.stderr
+
+
+def test_trend_draws_user_text_literally(tmp_path, run_cli, monkeypatch):
+    """A cavity or cooldown name that matplotlib's mathtext would parse (an unbalanced
+    ``$...$``) is drawn as plain text: trend writes its figure, exit 0, no traceback."""
+    monkeypatch.setenv(LOG_ENV, str(tmp_path / "log.sqlite"))
+    rng = np.random.default_rng(26)
+    cavity = "mirrors $\\frac{1}{$"
+    with fresh_log(tmp_path / "log.sqlite", cooldowns=("$x^", "cd $2$"), cavity=cavity) as log:
+        for i, label in enumerate(("$x^", "cd $2$")):
+            log.add_fit(entry_from_result(random_result(rng, sha=f"{i:064x}")), cavity, label)
+    out_dir = tmp_path / "out"
+    code, _, err = run_cli("trend", "--cavity", cavity, "-o", out_dir)
+    assert code == 0, err
+    figures = list(out_dir.glob("*.png"))
+    assert len(figures) == 1 and figures[0].stat().st_size > 1000
