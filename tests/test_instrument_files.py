@@ -216,7 +216,7 @@ def test_ringdown_fit_of_an_instrument_file_equals_the_plain_file(tmp_path, run_
     # the plain file holds exactly what the reader makes of the instrument's cells
     seconds = np.array([float(str(float(t))) for t in time_ms]) * 1e-3
     with open("plain.csv", "w", encoding="utf-8") as f:
-        f.write("time,power_db\n")
+        f.write("# value_unit: dBm\ntime,power_db\n")  # the unit the instrument's header gives
         for t, p in zip(seconds, level, strict=True):
             f.write(f"{float(t)!r},{float(p)!r}\n")
     common = ["--signal", "db", "--max-steps", "200", "--quiet", "--seed", "5",
