@@ -14,6 +14,7 @@ __all__ = [
     "InputError",
     "ConvergenceError",
     "CavcharWarning",
+    "UnitSlipWarning",
     "ConvergenceWarning",
     "PriorDominatedWarning",
     "ModelMisfitWarning",
@@ -93,3 +94,8 @@ class PriorDominatedWarning(CavcharWarning):
 
 class ModelMisfitWarning(CavcharWarning):
     """A posterior predictive or residual check flags a misfit of the model."""
+
+
+class UnitSlipWarning(CavcharWarning):
+    """A stated setting or a fitted value lies outside what any superconducting cavity has:
+    most likely a unit slip (a time column in ms read as s, a frequency without prefix)."""

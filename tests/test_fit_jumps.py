@@ -178,3 +178,28 @@ def test_cli_figure_options(tmp_path, run_cli):
     names = {p.name for p in (tmp_path / "both").iterdir()}
     assert {"corner.png", "corner.pdf", "dwell_check.png", "dwell_check.pdf"} <= names
     assert stderr.count("writing figures (png+pdf)") == 1  # one progress line
+
+
+def test_settings_outside_any_cavity_are_named_as_unit_slips(tmp_path, run_cli):
+    """A mode frequency of 7.412 Hz (the prefix forgotten) and a stage at 22 K (mK meant)
+    are outside the documented plausible ranges (100 MHz .. 1 THz; at most 10 K): the fit
+    warns, names the likely slip and records it in the result. Control: the same record
+    with 7.412 GHz and 22 mK gives no such warning."""
+    from cavchar.io import write_jump_record
+    from cavchar.simulate import simulate_jump_record
+
+    path = write_jump_record(simulate_jump_record(0.02, 0.1, 20.0, seed=8),
+                             tmp_path / "record.csv")
+    common = ["--max-steps", "200", "--allow-unconverged", "--quiet", "--no-figures", "-o"]
+    code, _, err = run_cli("fit", "jumps", path, "--freq", "7.412Hz", "--stage-temp", "22K",
+                           *common, tmp_path / "slipped")
+    assert code == 0
+    assert "frequency 7.41 Hz is outside what a superconducting cavity has" in err
+    assert "write e.g. 6.8GHz" in err and "20mK" in err
+    result = json.loads((tmp_path / "slipped" / "result.json").read_text())
+    assert len(result["checks"]["plausibility"]["problems"]) == 2
+    code, _, err = run_cli("fit", "jumps", path, "--freq", "7.412GHz", "--stage-temp", "22mK",
+                           *common, tmp_path / "plain")
+    assert code == 0 and "superconducting cavity has" not in err
+    result = json.loads((tmp_path / "plain" / "result.json").read_text())
+    assert "plausibility" not in result["checks"]

@@ -3,9 +3,11 @@
 from __future__ import annotations
 
 import dataclasses
+import warnings
 from dataclasses import dataclass
 from typing import Any
 
+from cavchar.errors import UnitSlipWarning
 from cavchar.inference import SamplerSettings
 from cavchar.result import FitResult
 
@@ -38,6 +40,29 @@ def sampler_settings(settings: SamplerSettings | None, seed: int | None) -> Samp
     return settings
 
 
+def plausibility_problems(run, context: FitContext) -> list[str]:
+    """Sentences for stated settings and posterior medians outside the ranges any
+    superconducting cavity has (:data:`cavchar.units.PLAUSIBLE_RANGES`), each naming the
+    likely unit slip (a time column in ms read as s, a frequency without its prefix)."""
+    import numpy as np
+
+    from cavchar.thermal import effective_temperature
+    from cavchar.units import plausibility_problem
+
+    values: dict[str, float | None] = {"frequency": context.freq_hz,
+                                       "stage_temperature": context.stage_temp_k}
+    names = [s.name for s in run.specs]
+    draws = np.asarray(run.draws, dtype=float)
+    for name in ("lifetime", "n_thermal"):
+        if name in names and draws.size:
+            values[name] = float(np.median(draws[:, names.index(name)]))
+    if context.freq_hz and values.get("n_thermal"):
+        values["effective_temperature"] = float(
+            effective_temperature(context.freq_hz, values["n_thermal"]))
+    found = (plausibility_problem(q, v) for q, v in values.items() if v is not None)
+    return [text for text in found if text]
+
+
 def finish_fit(
     kind: str,
     run,
@@ -65,6 +90,11 @@ def finish_fit(
         provenance["command"] = context.command
     checks = dict(checks or {})
     checks["prior_bounds"] = prior_bound_check(run.specs, run.draws)
+    problems = plausibility_problems(run, context)
+    if problems:
+        checks["plausibility"] = {"problems": problems}
+        for text in problems:
+            warnings.warn(text, UnitSlipWarning, stacklevel=2)
     return FitResult.from_run(
         kind, run, freq_hz=context.freq_hz, stage_temp_k=context.stage_temp_k,
         provenance=provenance, fit_settings=model_settings, checks=checks, extras=extras,
