@@ -231,7 +231,7 @@ def _run(words: list[str], cwd: Path) -> subprocess.CompletedProcess:
     env["PYTHONPATH"] = os.pathsep.join(filter(None, [str(REPO), env.get("PYTHONPATH")]))
     env["MPLBACKEND"] = "Agg"
     return subprocess.run([sys.executable, "-m", "cavchar.cli.main", *words], cwd=cwd,
-                          env=env, capture_output=True, text=True, timeout=900)
+                          env=env, capture_output=True, text=True, timeout=3600)
 
 
 @pytest.mark.slow
