@@ -200,7 +200,7 @@ def check_synopsis(command: Command) -> None:
                   for s in a.option_strings}
     named = {w.strip("[]").split("=")[0] for w in rest}
     named = {w for w in named if w.startswith("-")}
-    assert path, f"{command.label}: no sub-command {words[:1]}"
+    assert path or set(words) <= {"-h", "--help"}, f"{command.label}: no sub-command {words[:1]}"
     assert named <= known, f"{command.label}: unknown options {sorted(named - known)}"
     if rest and _subcommands(parser):
         assert PLACEHOLDER.search(rest[0]) or rest[0].startswith("-"), (
@@ -231,7 +231,7 @@ def _run(words: list[str], cwd: Path) -> subprocess.CompletedProcess:
     env["PYTHONPATH"] = os.pathsep.join(filter(None, [str(REPO), env.get("PYTHONPATH")]))
     env["MPLBACKEND"] = "Agg"
     return subprocess.run([sys.executable, "-m", "cavchar.cli.main", *words], cwd=cwd,
-                          env=env, capture_output=True, text=True, timeout=900)
+                          env=env, capture_output=True, text=True, timeout=3600)
 
 
 @pytest.mark.slow
