@@ -235,3 +235,20 @@ def test_check_runs_with_a_calibrated_table_that_replicated_paths_outgrow():
     draws = np.tile([LIFETIME, 0.5], (50, 1))
     check = probe_predictive_check(rec, table, draws, np.random.default_rng(0), replicates=50)
     assert check["replicates"] == 50 and not check["misfit"]
+
+
+def test_a_record_too_short_for_the_check_keeps_its_fit():
+    """15 probes: the fit stands and the check says why it was skipped (no error at the
+    end of a finished fit)."""
+    from cavchar.cli.fit_probes import check_lines
+    from cavchar.records import ProbeRecord
+
+    rec = ProbeRecord(1e-3 * np.arange(15), np.array([0, 1, 1, 0, 0, 0, 1, 1, 1, 0, 0, 1, 0,
+                                                      1, 1.0]))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        result = fit_probes(rec, response=TRUE_RESPONSE, seed=1, settings=SamplerSettings(
+            n_walkers=8, max_steps=100, allow_unconverged=True, quiet=True))
+    check = result.checks["posterior_predictive"]
+    assert check["misfit"] is None and "needs at least 20" in check["skipped"]
+    assert check_lines(check)[0].startswith("model check (posterior predictive) skipped")

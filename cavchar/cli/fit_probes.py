@@ -185,6 +185,8 @@ def check_lines(check: dict | None) -> list[str]:
     """The posterior predictive check of a probe fit in words."""
     if not check:
         return []
+    if "skipped" in check:
+        return [f"model check (posterior predictive) skipped: {check['skipped']}"]
     head = (f"model check (posterior predictive, {check['replicates']} replicated records, "
             f"{len(check['statistics'])} statistics, false-alarm rate "
             f"{check['family_alpha']:g}): ")

@@ -71,7 +71,8 @@ class _Layout:
         seg = np.cumsum(seg)
         self.keep = np.flatnonzero(keep)
         if self.keep.size < 2 * BLOCKS:
-            raise InputError("too few probes that were not lost for a model check")
+            raise InputError(f"only {self.keep.size} probes were not lost; the model check "
+                             f"needs at least {2 * BLOCKS}")
         kseg = seg[self.keep]
         self.same = kseg[1:] == kseg[:-1]  # consecutive kept probes in one segment
         self.setting = setting_index[self.keep]

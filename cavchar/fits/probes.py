@@ -333,8 +333,11 @@ def _fit(record, *, response=None, freq_hz=None, stage_temp_k=None, priors=None,
                           "smaller blocks", CavcharWarning, stacklevel=2)
     _warn_prior_dominated(run, specs)
     rng = np.random.default_rng(np.random.SeedSequence(run.settings.seed).spawn(6)[5])
-    checks["posterior_predictive"] = probe_predictive_check(record, response, run.draws, rng,
-                                                            initial=initial)
+    try:
+        checks["posterior_predictive"] = probe_predictive_check(record, response, run.draws,
+                                                                rng, initial=initial)
+    except InputError as exc:  # a record too short for the check: the fit still stands
+        checks["posterior_predictive"] = {"skipped": exc.message, "misfit": None}
     traj = reconstruct_trajectory(exact, run.draws, TRAJECTORY_DRAWS)
     n = min(EXCERPT_PROBES, traj.time.size)
     extras["trajectory_excerpt"] = {
