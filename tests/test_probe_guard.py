@@ -73,15 +73,36 @@ def test_beta_prior_matches_scipy():
 
 
 def test_unstated_response_parameters_are_fitted_not_assumed():
-    """Stating only the phase per photon leaves V, e0, e1 to the fit (default priors);
-    stating all gives a fully fixed response."""
+    """Stating only the phase per photon leaves the readout errors to the fit (default
+    priors), with V held at 1 because effective errors absorb it (only two combinations
+    of V, e0, e1 are measurable); stating the errors leaves V to the fit; stating all
+    gives a fully fixed response."""
     fit = FringeResponse(phase_per_photon=math.pi).for_fit()
-    assert fit.free_names == ("visibility", "readout_error_0", "readout_error_1")
-    assert fit.visibility == DEFAULT_FIT_PRIORS["visibility"]
-    assert fit.roles == {"visibility": "default prior", "phase_per_photon": "stated",
+    assert fit.free_names == ("readout_error_0", "readout_error_1")
+    assert fit.visibility == 1.0
+    assert fit.roles == {"visibility": "absorbed", "phase_per_photon": "stated",
                          "phase_offset": "default", "readout_error_0": "default prior",
                          "readout_error_1": "default prior"}
+    errors_known = FringeResponse(readout_error_0=0.02, readout_error_1=0.04).for_fit()
+    assert errors_known.free_names == ("visibility",)
+    assert errors_known.visibility == DEFAULT_FIT_PRIORS["visibility"]
     assert PERFECT.for_fit().free_names == ()
+
+
+def test_effective_readout_errors_reproduce_every_fringe():
+    """Closed form: P(1|n) = e0 + (1 - e0 - e1)(1 + V cos x)/2 equals the V = 1 fringe with
+    e0' = e0 + c (1 - V)/2, e1' = e1 + c (1 - V)/2, c = 1 - e0 - e1 (algebra of the
+    module's equation), so holding V = 1 and fitting e0', e1' loses no fringe."""
+    rng = np.random.default_rng(3)
+    for v, e0, e1 in rng.uniform([0, 0, 0], [1, 0.3, 0.3], size=(20, 3)):
+        c = 1 - e0 - e1
+        full = FringeResponse(visibility=v, phase_per_photon=math.pi / 3,
+                              readout_error_0=e0, readout_error_1=e1)
+        effective = FringeResponse(visibility=1.0, phase_per_photon=math.pi / 3,
+                                   readout_error_0=e0 + c * (1 - v) / 2,
+                                   readout_error_1=e1 + c * (1 - v) / 2)
+        np.testing.assert_allclose(effective.prob_one(None, 8)[0], full.prob_one(None, 8)[0],
+                                   atol=1e-14)
     # as a model (simulation) an unstated parameter keeps its default value
     assert FringeResponse().prob_one(None, 2)[0][0, 0].tolist() == [1.0, 0.0]
 
@@ -96,13 +117,17 @@ def test_default_fit_of_an_imperfect_record_recovers_the_truth(default_fit):
     """Regression: the record of an imperfect probe (V = 0.9, e0 = 0.02, e1 = 0.04) fitted
     with only the phase per photon stated.  A perfect probe assumed silently gives T_c near
     2 ms (readout errors read as photon jumps) and n_th near 0.26; with V, e0, e1 fitted the
-    95% intervals cover the simulation's T_c = 50 ms and n_th = 0.2."""
+    95% intervals cover the simulation's T_c = 50 ms and n_th = 0.2, and those of the
+    effective readout errors (V held at 1) cover e + (1 - e0 - e1)(1 - V)/2."""
     result = default_fit
-    assert result.parameter_names == ["lifetime", "n_thermal", "visibility",
-                                      "readout_error_0", "readout_error_1"]
+    assert result.parameter_names == ["lifetime", "n_thermal", "readout_error_0",
+                                      "readout_error_1"]
     assert covers(result, "lifetime", LIFETIME) and covers(result, "n_thermal", N_TH)
+    c = 1 - 0.02 - 0.04
+    assert covers(result, "readout_error_0", 0.02 + c * 0.1 / 2)
+    assert covers(result, "readout_error_1", 0.04 + c * 0.1 / 2)
     roles = result.settings["fit"]["response"]["roles"]
-    assert roles["visibility"] == roles["readout_error_0"] == "default prior"
+    assert roles["visibility"] == "absorbed" and roles["readout_error_0"] == "default prior"
 
 
 def test_result_with_the_check_round_trips_through_json(default_fit, tmp_path):

@@ -43,22 +43,25 @@ BATCH_LEVEL_OPTIONS = {
     "report": "the batch writes one overview report (--no-report turns it off)",
     "quiet": "--quiet of `cavchar batch run` (per-record progress bars are always off)",
     "help": "not an option of a fit",
+    "no_figures": "--no-figures of `cavchar batch run`",
+    "figure_format": "a batch draws its figures as PNG",
 }
 
 #: options every kind's fit call reads (besides the kind's own below)
 _COMMON_DESTS = {"freq", "stage_temp", "seed", "walkers", "max_steps", "allow_unconverged",
                  "quiet", "log", "cavity", "cooldown", "log_file", "log_create", "report", "out",
-                 "force",
+                 "force", "no_figures", "figure_format",
+                 "column", "skip_rows", "delimiter", "decimal",  # file layout
                  "func", "help"}
 #: the options :func:`fit_from_argv` passes to each fit (others are refused, never ignored)
 _KIND_DESTS = {
     "jumps": {"record", "sampled", "end_time", "prior_lifetime", "prior_n_thermal",
-              "stationary_start"},
+              "stationary_start", "rows_are_changes"},
     "probes": {"record", "response", "response_table", "visibility", "phase_per_photon",
                "phase_offset", "readout_error_0", "readout_error_1", "prior_lifetime",
-               "prior_n_thermal", "mode", "block_probes", "initial_photons"},
+               "prior_n_thermal", "mode", "block_probes", "initial_photons", "sampler"},
     "ringdown": {"traces", "signal", "start_time", "time_unit", "initial", "n0",
-                 "allow_negative", "no_compare", "prior"},
+                 "allow_negative", "no_compare", "prior", "trace"},
 }
 
 
@@ -195,7 +198,7 @@ def fit_arguments(kind: str, argv: list[str], seed: int, check_every: int | None
     Building them parses every prior and reads a response table, so a malformed
     option fails here, before any fit starts.
     """
-    from cavchar.cli.common import rate_priors_from_args
+    from cavchar.cli.common import laid_out, rate_priors_from_args
 
     args = parse_argv(kind, [*argv, "--seed", str(seed)])
     extra = _unhandled(kind, args)
@@ -210,7 +213,7 @@ def fit_arguments(kind: str, argv: list[str], seed: int, check_every: int | None
     if base == "jumps":
         from cavchar.fits.jumps import JumpPriors
 
-        return "jumps", {"record": args.record, "sampled": args.sampled,
+        return "jumps", {"record": laid_out(args.record, args), "sampled": args.sampled,
                          "end_time": args.end_time,
                          "priors": rate_priors_from_args(args, JumpPriors),
                          "stationary_start": args.stationary_start, **common}
@@ -220,14 +223,16 @@ def fit_arguments(kind: str, argv: list[str], seed: int, check_every: int | None
 
         if args.block_probes is not None and args.block_probes < 1:
             raise InputError("option block_probes must be at least 1")
-        return "probes", {"record": args.record, "response": build_response(args),
+        return "probes", {"record": laid_out(args.record, args),
+                          "response": build_response(args), "sampler": args.sampler,
                           "priors": rate_priors_from_args(args, ProbePriors),
                           "mode": args.mode, "block_probes": args.block_probes,
                           "initial": ("stationary" if args.initial_photons is None
                                       else args.initial_photons), **common}
     from cavchar.cli.fit_ringdown import _initial, _priors
 
-    return "ringdown", {"traces": list(args.traces), "signal": args.signal,
+    return "ringdown", {"traces": [laid_out(path, args) for path in args.traces],
+                        "signal": args.signal,
                         "start_time": args.start_time, "time_unit": args.time_unit,
                         "priors": _priors(args.prior, args.freq),
                         "initial": _initial(args.initial), "n0": args.n0,

@@ -175,7 +175,7 @@ def response_lines(description: dict) -> list[str]:
             text = f"{flag[2:]} = {value:.6g}" + (" rad" if "phase" in name else "")
         groups.setdefault(role, []).append(text)
     lines = ["probe response (Ramsey fringe):"]
-    for role in ("stated", "stated prior", "default prior", "default"):
+    for role in ("stated", "stated prior", "default prior", "default", "absorbed"):
         if groups.get(role):
             lines.append(f"  {ROLE_TEXT[role]}: " + "; ".join(groups[role]))
     return lines

@@ -20,10 +20,12 @@ Two families:
     fitted or left at its default.
 
     Only two combinations of ``V, e0, e1`` enter the likelihood: the fringe's
-    mean ``(1 + e0 - e1)/2`` and half-amplitude ``(1 - e0 - e1) V / 2``.  When all
-    three are fitted their split along that one-dimensional ridge follows the
-    priors; the lifetime and thermal photon number depend only on the two
-    combinations and are unaffected.
+    mean ``(1 + e0 - e1)/2`` and half-amplitude ``(1 - e0 - e1) V / 2``.  So when
+    nothing is stated a fit holds ``V = 1`` and fits *effective* readout errors,
+    which absorb any visibility below 1 (see :meth:`FringeResponse.for_fit`); when
+    a user states priors on all three, their split along the one-dimensional ridge
+    follows the priors.  The lifetime and thermal photon number depend only on the
+    two combinations.
 
 :class:`TableResponse` (calibrated table)
     ``P(1 | n[, s])`` read from a file (:func:`cavchar.io.read_response_table`);
@@ -81,7 +83,9 @@ DEFAULT_FIT_PRIORS: dict[str, Prior] = {
 #: role of a fringe parameter -> plain words (result files store the keys)
 ROLE_TEXT = {"stated": "stated value", "stated prior": "fitted, stated prior",
              "default prior": "fitted, default prior (not stated)",
-             "default": "default value (not stated)"}
+             "default": "default value (not stated)",
+             "absorbed": "not fitted, held at 1 (not stated; the fitted readout errors "
+                         "absorb any visibility below 1)"}
 
 
 @dataclass(frozen=True)
@@ -144,9 +148,21 @@ class FringeResponse:
 
     def for_fit(self) -> FringeResponse:
         """The response a fit uses: unstated V, e0, e1 get :data:`DEFAULT_FIT_PRIORS`
-        (fitted); unstated phases keep their default values (reported as such)."""
+        (fitted); unstated phases keep their default values (reported as such).
+
+        An unstated visibility is not fitted when both readout errors are: only the
+        fringe's mean ``(1 + e0 - e1)/2`` and half-amplitude ``(1 - e0 - e1) V / 2`` are
+        measurable, and ``V = 1`` with effective errors ``e0' = e0 + (1 - e0 - e1)(1 -
+        V)/2``, ``e1' = e1 + (1 - e0 - e1)(1 - V)/2`` gives every fringe any ``(V, e0,
+        e1)`` gives.  Fitting all three would leave a flat ridge in the posterior (slow to
+        sample, its split set by the priors) and change nothing in T_c or n_th.  The
+        visibility's role is then ``"absorbed"``."""
         values = {n: getattr(self, n) for n, _, _ in _FRINGE}
         roles = dict(self.roles)
+        errors_fitted = all(roles[n] != "stated" for n in ("readout_error_0",
+                                                           "readout_error_1"))
+        if roles["visibility"] == "default" and errors_fitted:
+            roles["visibility"] = "absorbed"
         for name, prior in DEFAULT_FIT_PRIORS.items():
             if roles[name] == "default":
                 values[name], roles[name] = prior, "default prior"
