@@ -79,7 +79,7 @@ def poisson_record(n_probes, mean_interval, seed):
 
 @pytest.mark.parametrize("n_levels", [8, 20])  # unrolled kernel (N <= 16) and loop kernel
 def test_grid_route_matches_a_per_interval_expm_product(n_levels):
-    rec = poisson_record(600, 2e-3, seed=5)
+    rec = poisson_record(400, 2e-3, seed=5)
     resp = FringeResponse(**PARITY)
     like = ProbeLikelihood(rec, resp, n_levels=n_levels)
     assert like.steps.kind == "irregular" and np.any(like.steps.step_index < 0)
