@@ -1,0 +1,153 @@
+"""Probe records at irregular times (Poisson probe times, gaps): the grid route.
+
+Outside references named at each check: a brute-force forward recursion with
+one ``scipy.linalg.expm`` matrix per interval (generator and response written
+out here, independently of cavchar); the Poisson tail of ``scipy.stats``; a
+hidden photon path from QuTiP's quantum-jump Monte Carlo solver ``mcsolve``
+(as in tests/test_fit_probes.py) recovered by a whole fit.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy import linalg, stats
+
+from cavchar.fits.probes import fit_probes
+from cavchar.inference import SamplerSettings
+from cavchar.models import hmm_kernels as hk
+from cavchar.models.probes import ProbeLikelihood, probe_steps
+from cavchar.models.response import FringeResponse
+from cavchar.records import JumpRecord, ProbeRecord
+from cavchar.simulate import probes_on_path
+
+PARITY = dict(visibility=0.9, phase_per_photon=math.pi, readout_error_0=0.02,
+              readout_error_1=0.03)
+
+
+def generator(kappa, n_th, n):
+    """Damped-mode birth-death generator on 0..n-1 (textbook rates, written out)."""
+    q = np.zeros((n, n))
+    for m in range(n):
+        if m + 1 < n:
+            q[m, m + 1] = kappa * n_th * (m + 1)
+        if m > 0:
+            q[m, m - 1] = kappa * (1 + n_th) * m
+        q[m, m] = -q[m].sum()
+    return q
+
+
+def brute_force_loglik(time, outcome, setting, starts, lifetime, n_th, n, resp):
+    """Forward recursion with one scipy expm per interval; thermal start law renormalised
+    on 0..n-1; P(1 | m, s) = e0 + (1 - e0 - e1) (1 + V cos(phi0 m + s)) / 2."""
+    q = generator(1.0 / lifetime, n_th, n)
+    m = np.arange(n)
+    r = n_th / (1 + n_th)
+    p0 = r ** m / np.sum(r ** m)
+    total = 0.0
+    for g in range(len(starts) - 1):
+        alpha = None
+        for t in range(starts[g], starts[g + 1]):
+            p1 = resp["readout_error_0"] + (1 - resp["readout_error_0"] - resp["readout_error_1"]) \
+                * (1 + resp["visibility"] * np.cos(resp["phase_per_photon"] * m + setting[t])) / 2
+            e = np.ones(n) if np.isnan(outcome[t]) else (p1 if outcome[t] == 1 else 1 - p1)
+            if alpha is None:
+                alpha = p0 * e
+            else:
+                alpha = (alpha @ linalg.expm(q * (time[t] - time[t - 1]))) * e
+            s = alpha.sum()
+            total += math.log(s)
+            alpha = alpha / s
+    return total
+
+
+def poisson_record(n_probes, mean_interval, seed):
+    """Poisson probe times with 5% lost probes, a long gap (beyond the grid's table), two
+    segments and two interleaved settings; outcomes random (the check is the likelihood)."""
+    rng = np.random.default_rng(seed)
+    dts = rng.exponential(mean_interval, n_probes)
+    dts[n_probes // 3] = 40 * mean_interval
+    time = np.cumsum(dts)
+    outcome = rng.integers(0, 2, n_probes).astype(float)
+    outcome[rng.random(n_probes) < 0.05] = np.nan
+    setting = np.where(np.arange(n_probes) % 2 == 0, 0.0, math.pi / 2)
+    segment = np.where(np.arange(n_probes) < 2 * n_probes // 3, 0, 1)
+    return ProbeRecord(time, outcome, setting, segment)
+
+
+@pytest.mark.parametrize("n_levels", [8, 20])  # unrolled kernel (N <= 16) and loop kernel
+def test_grid_route_matches_a_per_interval_expm_product(n_levels):
+    rec = poisson_record(400, 2e-3, seed=5)
+    resp = FringeResponse(**PARITY)
+    like = ProbeLikelihood(rec, resp, n_levels=n_levels)
+    assert like.steps.kind == "irregular" and np.any(like.steps.step_index < 0)
+    theta = np.array([[0.05, 0.3], [0.02, 1.2], [0.2, 0.05]])
+    got = like(theta)
+    starts = list(rec.bounds)
+    for row, value in zip(theta, got, strict=True):
+        expected = brute_force_loglik(rec.time, rec.outcome, rec.setting, starts, row[0], row[1],
+                                      n_levels, PARITY)
+        assert value == pytest.approx(expected, rel=1e-10, abs=1e-9)
+    # the interval-by-interval eigen route is kept and agrees
+    eig = ProbeLikelihood(rec, resp, n_levels=n_levels, irregular="eigen")(theta)
+    np.testing.assert_allclose(got, eig, rtol=1e-11)
+
+
+def test_grid_split_of_the_intervals():
+    rng = np.random.default_rng(2)
+    time = np.cumsum(rng.exponential(1e-3, 5000))
+    steps = probe_steps(time, [0, time.size])
+    h = steps.grid_step
+    inside = steps.step_index >= 0
+    # dt = j h + r with 0 <= r < h; the table covers the 99.9% quantile of the intervals
+    np.testing.assert_allclose(steps.step_index[inside] * h + steps.remainder[inside],
+                               steps.dts[inside], rtol=1e-12, atol=1e-18)
+    assert np.all((steps.remainder >= 0) & (steps.remainder < h * (1 + 1e-12)))
+    assert 0 < np.mean(~inside) <= 2e-3
+
+
+@pytest.mark.parametrize("z", [1e-6, 1e-3, 0.05, 0.7, 4.0])
+def test_series_length_meets_the_poisson_tail(z):
+    """The uniformization series stops where the Poisson tail (scipy.stats) is below
+    2^-53, and not later than one term after the first such point."""
+    k = int(hk.uniformization_terms(z)[0])
+    assert stats.poisson.sf(k, z) <= hk.SERIES_TOLERANCE
+    assert k == 0 or stats.poisson.sf(k - 2, z) > hk.SERIES_TOLERANCE
+
+
+def mcsolve_path(lifetime, n_th, duration, seed, n_levels=12):
+    """Hidden path from QuTiP's quantum-jump Monte Carlo solver: collapse operators
+    sqrt(kappa (1+n_th)) a (index 0) and sqrt(kappa n_th) a^dag (index 1), H = 0, start in
+    the vacuum; each recorded collapse is a jump (as in tests/test_fit_probes.py)."""
+    qutip = pytest.importorskip("qutip")
+    kappa = 1.0 / lifetime
+    a = qutip.destroy(n_levels)
+    c_ops = [np.sqrt(kappa * (1 + n_th)) * a, np.sqrt(kappa * n_th) * a.dag()]
+    res = qutip.mcsolve(qutip.qzero(n_levels), qutip.basis(n_levels, 0), [0.0, duration],
+                        c_ops, ntraj=1, seeds=[seed],
+                        options={"keep_runs_results": True, "progress_bar": False})
+    times = np.asarray(res.col_times[0], dtype=float)
+    which = np.asarray(res.col_which[0])
+    photons = np.concatenate([[0], np.cumsum(np.where(which == 1, 1, -1))])
+    return JumpRecord(np.concatenate([[0.0], times]), photons, duration)
+
+
+@pytest.mark.slow  # a whole fit of 10^4 irregular probes: over 20 s on 2 cores
+def test_recovery_with_poisson_timed_probes_on_a_qutip_mcsolve_path():
+    # invented scenario: T_c = 50 ms, n_th = 0.25, parity probes at Poisson times (mean
+    # 1 ms) for 10 s, 3% lost; the hidden path comes from QuTiP, not from cavchar
+    lifetime, n_th = 0.05, 0.25
+    path = mcsolve_path(lifetime, n_th, 10.5, seed=7)
+    assert path.photons.max() < 10 and len(path.time) > 100
+    rng = np.random.default_rng(8)
+    times = np.cumsum(rng.exponential(1e-3, 10000))
+    times = times[times < 10.4]
+    resp = FringeResponse(**PARITY)
+    rec, _ = probes_on_path(path, times, resp, seed=9, loss=0.03)
+    result = fit_probes(rec, response=resp, seed=3, mode="exact",
+                        settings=SamplerSettings(n_walkers=12, quiet=True))
+    summary = result.summary()
+    for name, truth in (("lifetime", lifetime), ("n_thermal", n_th)):
+        assert summary.loc[name, "lo95"] <= truth <= summary.loc[name, "hi95"], name
