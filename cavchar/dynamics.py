@@ -272,10 +272,6 @@ class DampedModePropagator:
             out = np.stack([linalg.expm(self.rates * dt) for dt in dts])
         return np.clip(out, 0.0, 1.0)
 
-    def transition_matrix(self, dt: float) -> np.ndarray:
-        """``P(dt)``, shape (N, N)."""
-        return self.transition_matrices([dt])[0]
-
     def populations(self, p0: ArrayLike, times: ArrayLike) -> np.ndarray:
         """Populations ``p(t) = p0 @ P(t)`` at each time; shape (m, N).
 

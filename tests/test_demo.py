@@ -52,13 +52,6 @@ def _truth(name: str) -> dict[str, float]:
     return out
 
 
-def _installed(name: str) -> bool:
-    import importlib.util
-
-    kind = name.split("_")[0]
-    return importlib.util.find_spec(f"cavchar.fits.{kind}") is not None
-
-
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory):
     from cavchar.cli.main import main
@@ -89,12 +82,10 @@ def test_fitted_values_agree_with_the_scenario(demo):
     files = sorted((out / "results").glob("*.json"))
     names = {f.stem for f in files}
     # ring-down and probe record of the first cooldown, jump records of all three,
-    # and the quick sweep at 150 and 110 mK (fit kinds not installed are left out)
+    # and the quick sweep at 150 and 110 mK
     expected = {"ringdown_2031A", "probes_2031A", "jumps_2031A", "jumps_2031B",
                 "jumps_2031C", "jumps_2031C_150mK", "jumps_2031C_110mK"}
-    missing = {n for n in expected if not _installed(n)}
-    assert names == expected - missing
-    assert all(f"{n.split('_')[0]} is not installed" in demo[2] for n in missing)
+    assert names == expected
     quantiles = {}
     for file in files:
         result = FitResult.from_json(file)
@@ -112,7 +103,7 @@ def test_fitted_values_agree_with_the_scenario(demo):
             assert abs(quantiles[file.stem, "effective_temperature"]
                        - quantiles[file.stem, "n_thermal"]) <= 1 / n
     primary = {k: q for k, q in quantiles.items() if k[1] in ("lifetime", "n_thermal")}
-    assert len(primary) == 13 - sum(2 if n.startswith("probes") else 1 for n in missing)
+    assert len(primary) == 13  # lifetime and n_th of 6 fits, lifetime of the ring-down
     outside95 = sorted(k for k, q in primary.items() if not 0.025 <= q <= 0.975)
     outside999 = sorted(k for k, q in primary.items() if not 0.0005 <= q <= 0.9995)
     # 13 independent truths, each outside its 95% interval with probability 0.05 for a
@@ -133,8 +124,8 @@ def test_report_shows_the_whole_job(demo):
     assert not re.search(r"""(src|href)\s*=\s*["']?\s*(https?:|//)""", page, re.I)
     sources = re.findall(r'<img\b[^>]*\bsrc="([^"]*)"', page)
     # comparison, trend, budget; ring-down and 2031-A jump fit (data, corner, traces);
-    # the probe fit's corner and traces when that fit kind is installed
-    least = 10 + 2 * _installed("probes_2031A")
+    # the probe fit's corner and traces
+    least = 12
     assert len(sources) >= least and all(s.startswith("data:image/png;base64,") for s in sources)
     for text in ("Results side by side", "The invented scenario", "Trend across cooldowns",
                  "Qualification after cooldown 2031-A", "Qualification after cooldown 2031-C",
@@ -157,7 +148,7 @@ def test_the_log_holds_every_fit(demo):
     with open_log(out / "cavchar-demo.sqlite", create=False) as log:
         fits = log.fits(cavity="Kestrel")
         assert [c.label for c in log.cooldowns()] == ["2031-A", "2031-B", "2031-C"]
-    assert len(fits) == 7 - (not _installed("probes_2031A"))
+    assert len(fits) == 7
 
 
 def test_a_second_run_needs_force(demo):

@@ -33,6 +33,7 @@ import functools
 import os
 import re
 import shlex
+import shutil
 import subprocess
 import sys
 from dataclasses import dataclass, field
@@ -243,6 +244,8 @@ def test_documented_commands_run(document: str, tmp_path: Path):
     failures: list[str] = []
     log: list[str] = []  # printed when the test fails (pytest shows captured output)
     files = list(FILES.get(document, []))
+    # commands are written from the repository's folder: its examples are there too
+    shutil.copytree(REPO / "examples", tmp_path / "examples")
     for command in commands:
         while files and files[0][0] < command.line:
             _, name, text = files.pop(0)

@@ -49,8 +49,6 @@ def handle(args: argparse.Namespace) -> int:
     outcome = run_demo(args.out, quick=args.quick,
                        seed=DEFAULT_SEED if args.seed is None else args.seed,
                        force=args.force, progress=lambda text: print(text, flush=True))
-    for line in outcome.skipped:
-        print(f"left out: {line}")
     print(f"demo finished in {outcome.elapsed_s:.0f} s")
     print(f"report: {outcome.report.resolve()}")
     return 0

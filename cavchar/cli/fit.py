@@ -24,8 +24,5 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     )
     kinds = parser.add_subparsers(dest="fit_kind", metavar="KIND")
     for name in FIT_MODULES:
-        module_name = f"cavchar.cli.{name}"
-        if importlib.util.find_spec(module_name) is None:
-            continue
-        importlib.import_module(module_name).register_fit(kinds)
+        importlib.import_module(f"cavchar.cli.{name}").register_fit(kinds)
     parser.set_defaults(func=lambda args: (parser.print_help(), 2)[1])

@@ -40,7 +40,7 @@ def scenario_section(scenario: Scenario, jobs: list, quick: bool, notes: list[st
                 "–" if j.realized_n is None else format_quantity_text(j.realized_n,
                                                                       "dimensionless", 3),
                 str(j.seed), Path(j.data_path).name if j.data_path else "–",
-                j.skipped or "fitted"] for j in jobs]
+                "fitted"] for j in jobs]
     html = [
         f"<p>The {esc(scenario.lab)} is an invention of the cavchar demo, as are its cavity "
         f"<b>{esc(scenario.cavity)}</b> and mirror set <b>{esc(scenario.mirror_set)}</b>. "

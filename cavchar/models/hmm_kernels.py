@@ -55,7 +55,6 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-import numba
 import numpy as np
 from numba import njit, prange
 from numpy.typing import ArrayLike
@@ -761,9 +760,3 @@ def viterbi(
     lp = _viterbi(*args, path)
     return path, float(lp)
 
-
-def set_threads(n: int | None) -> int:
-    """Limit the numba threads used by the kernels (None: all); returns the previous value."""
-    previous = numba.get_num_threads()
-    numba.set_num_threads(numba.config.NUMBA_NUM_THREADS if n is None else int(n))
-    return previous

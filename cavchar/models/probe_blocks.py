@@ -110,10 +110,6 @@ class BlockedProbeLikelihood:
         return self.sequence.n_probes
 
     @property
-    def n_patterns(self) -> int:
-        return int(self.patterns.shape[0])
-
-    @property
     def ndim(self) -> int:
         return self.exact.ndim
 
