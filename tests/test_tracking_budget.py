@@ -77,9 +77,9 @@ def test_recovers_hot_fraction_and_temperature():
     p = budget.two_bath.parameters
     # truth inside the 95 % credible intervals (a 5 % miss rate per check for a calibrated
     # posterior; the seed is fixed)
-    assert p["hot_fraction"].low_95 < f < p["hot_fraction"].high_95
-    assert p["hot_temperature"].low_95 < t_hot < p["hot_temperature"].high_95
-    assert p["hot_photons"].low_95 < h < p["hot_photons"].high_95
+    assert p["hot_fraction"].lo95 < f < p["hot_fraction"].hi95
+    assert p["hot_temperature"].lo95 < t_hot < p["hot_temperature"].hi95
+    assert p["hot_photons"].lo95 < h < p["hot_photons"].hi95
     assert budget.two_bath.converged
 
 
@@ -91,8 +91,8 @@ def test_recovers_constant_excess_when_t_hot_is_not_identifiable():
     budget = thermal_budget(series(nu, temps, h, t_hot, 0.05, seed=41), nu, seed=4)
     assert budget.model == MODEL_EXCESS and "not identifiable" in budget.reason
     x = budget.excess.parameters["excess_photons"]
-    assert x.low_95 < h < x.high_95
-    assert x.high_95 / x.low_95 < 1.3  # about 2 % precise from six 5 % points
+    assert x.lo95 < h < x.hi95
+    assert x.hi95 / x.lo95 < 1.3  # about 2 % precise from six 5 % points
     assert not budget.excess_is_upper_limit
     share = budget.two_bath.parameters["excess_share_at_coldest"]
     assert share.median > 0.99  # at 15 mK nearly all of n_th comes from the hot side
@@ -105,14 +105,14 @@ def test_f_zero_reduces_to_the_stage_occupation():
     assert budget.model == MODEL_EXCESS
     assert budget.excess_is_upper_limit
     # the 95 % upper limit on the excess is below the data's resolution at the coldest point
-    limit = budget.excess.parameters["excess_photons"].high_95
+    limit = budget.excess.parameters["excess_photons"].hi95
     assert limit < 3 * s * planck_scipy(nu, temps[0])
     band = budget.predicted(temps)
     # the stated model's n_th(T) is the Planck occupation of the stage, within the
     # per-point precision of the data (3 %; the fit pools six points)
     np.testing.assert_allclose(band["median"], planck_scipy(nu, temps), rtol=s)
     # the lower edge of the band sits on the Planck curve (h reaches down to its prior floor)
-    np.testing.assert_allclose(band["low_95"], planck_scipy(nu, temps), rtol=1e-3)
+    np.testing.assert_allclose(band["lo95"], planck_scipy(nu, temps), rtol=1e-3)
 
 
 def test_likelihood_approximations_agree_for_a_normal_posterior():
@@ -208,7 +208,7 @@ def test_cli_budget_from_the_log(tmp_path, run_cli, monkeypatch):
     assert [c["cooldown"] for c in doc["per_cooldown"]] == ["cd1"]
     assert doc["fit_ids"] == [1, 2, 3, 4]
     x = doc["per_cooldown"][0]["budget"]["stage_plus_excess"]["parameters"]["excess_photons"]
-    assert x["low_95"] < h < x["high_95"]
+    assert x["lo95"] < h < x["hi95"]
     assert (tmp_path / "o" / "budget.png").stat().st_size > 1000
     code, _, err = run_cli("budget", "--cavity", "A", "-o", tmp_path / "o")
     assert code == 2 and "already exists" in err

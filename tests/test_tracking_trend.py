@@ -108,7 +108,7 @@ def test_trend_rows_intervals_and_selection(tmp_path):
         summary = precise.summary()
         for name in ("lifetime", "n_thermal", "effective_temperature"):
             s = row.stats[name]
-            np.testing.assert_allclose([s.median, s.low_68, s.high_68, s.low_95, s.high_95],
+            np.testing.assert_allclose([s.median, s.lo68, s.hi68, s.lo95, s.hi95],
                                        summary.loc[name, ["median", "lo68", "hi68", "lo95",
                                                           "hi95"]].to_numpy(dtype=float))
         each = cooldown_trend(log, "A", each_fit=True)
@@ -116,7 +116,7 @@ def test_trend_rows_intervals_and_selection(tmp_path):
         assert any("mix fit kinds" in n for n in each.notes)
         table = trend.table()
         assert list(table["cooldown"]) == ["cd1", "cd2", "cd3"]
-        assert "lifetime_s_median" in table.columns and "effective_temperature_K_low_95" in table
+        assert "lifetime_s_median" in table.columns and "effective_temperature_K_lo95" in table
         with pytest.raises(InputError, match="unknown cooldown 'cd7'"):
             cooldown_trend(log, "A", reference="cd7")
         log.add_cooldown("empty")

@@ -339,10 +339,10 @@ def test_budget_per_cooldown_recovers_each_excess(scenario):
         x = per[cd].budget.excess.parameters["excess_photons"]
         # the simulated excess inside each cooldown's own 95 % interval (4 points of
         # 5 % precision: a miss has probability 0.05 per cooldown at this fixed seed)
-        assert x.low_95 < truth < x.high_95, (cd, x)
+        assert x.lo95 < truth < x.hi95, (cd, x)
     # the two cooldowns' excesses are told apart
-    assert (per["cd1"].budget.excess.parameters["excess_photons"].high_95
-            < per["cd2"].budget.excess.parameters["excess_photons"].low_95)
+    assert (per["cd1"].budget.excess.parameters["excess_photons"].hi95
+            < per["cd2"].budget.excess.parameters["excess_photons"].lo95)
     # cd1: one fit per stage temperature; at base the jump fit (not the wider probe fit,
     # not the ring-down without n_th)
     used = {i: t for i, t, _ in per["cd1"].selection.used}

@@ -107,7 +107,7 @@ def print_budget(budget, indent: str = "") -> None:
     print(f"{indent}  why: {budget.reason}")
     x = budget.excess.parameters["excess_photons"]
     if budget.excess_is_upper_limit:
-        print(f"{indent}  excess photons n_x < {format_quantity(x.high_95, 'dimensionless')} "
+        print(f"{indent}  excess photons n_x < {format_quantity(x.hi95, 'dimensionless')} "
               "(95% upper limit; no excess detected)")
     else:
         print(f"{indent}  excess photons n_x = {interval_text(x, 'dimensionless')} "
@@ -128,9 +128,9 @@ class _Point:
     """Interval fields from a budget point's flat ``n_thermal_*`` keys."""
 
     def __init__(self, p: dict) -> None:
-        self.median, self.low_68, self.high_68 = (p["n_thermal_median"], p["n_thermal_low_68"],
-                                                  p["n_thermal_high_68"])
-        self.low_95, self.high_95 = p["n_thermal_low_95"], p["n_thermal_high_95"]
+        self.median, self.lo68, self.hi68 = (p["n_thermal_median"], p["n_thermal_lo68"],
+                                                  p["n_thermal_hi68"])
+        self.lo95, self.hi95 = p["n_thermal_lo95"], p["n_thermal_hi95"]
 
 
 def print_budgets(report) -> None:

@@ -84,9 +84,9 @@ def interval_text(stats, dimension: str) -> str:
 
     if stats is None:
         return "-"
-    text = format_interval_row({"median": stats.median, "lo68": stats.low_68,
-                                "hi68": stats.high_68, "lo95": stats.low_95,
-                                "hi95": stats.high_95}, dimension)
+    text = format_interval_row({"median": stats.median, "lo68": stats.lo68,
+                                "hi68": stats.hi68, "lo95": stats.lo95,
+                                "hi95": stats.hi95}, dimension)
     unit = f" {text['unit']}" if text["unit"] else ""
     return f"{text['median']} [{text['interval95']}]{unit}"
 

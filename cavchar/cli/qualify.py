@@ -68,8 +68,8 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 class _Span:
     def __init__(self, v) -> None:
-        self.median, self.low_95, self.high_95 = v.median, v.low_95, v.high_95
-        self.low_68, self.high_68 = v.low_95, v.high_95  # decimals from the 95% interval
+        self.median, self.lo95, self.hi95 = v.median, v.lo95, v.hi95
+        self.lo68, self.hi68 = v.lo95, v.hi95  # decimals from the 95% interval
 
 
 def print_qualification(report) -> None:

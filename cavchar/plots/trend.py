@@ -82,8 +82,8 @@ def plot_trend(trend, fig=None):
                     if s is None:
                         continue
                     ref = row.fit_id == t.reference_fit and name == "lifetime"
-                    ax.plot([x, x], [s.low_95 * scale, s.high_95 * scale], color=colour, lw=1)
-                    ax.plot([x, x], [s.low_68 * scale, s.high_68 * scale], color=colour,
+                    ax.plot([x, x], [s.lo95 * scale, s.hi95 * scale], color=colour, lw=1)
+                    ax.plot([x, x], [s.lo68 * scale, s.hi68 * scale], color=colour,
                             lw=3.5)
                     ax.plot(x, s.median * scale, marker, color=colour,
                             mfc="white" if ref else colour, ms=6,
@@ -91,10 +91,10 @@ def plot_trend(trend, fig=None):
                                                          and name == "lifetime") else None)
                     if name == "lifetime" and row.drop_probability is not None:
                         ax.annotate(f"{100 * row.drop_probability:.0f}%",
-                                    (x, s.high_95 * scale), textcoords="offset points",
+                                    (x, s.hi95 * scale), textcoords="offset points",
                                     xytext=(0, 3), ha="center", fontsize=7)
                     if not single and name == _PANELS[-1][0]:
-                        ax.annotate(_stage(row.stage_temp_k), (x, s.low_95 * scale),
+                        ax.annotate(_stage(row.stage_temp_k), (x, s.lo95 * scale),
                                     textcoords="offset points", xytext=(0, -9), ha="center",
                                     fontsize=6, color=colour)
         for ax, (name, label, _scale) in zip(axes, _PANELS, strict=True):
@@ -153,7 +153,7 @@ def plot_budget(budget, fig=None):
             colour = "0.5" if name == "pooled" else f"C{k % 10}"
             lead = f"{_literal(name)}: " if name else ""
             band = b.predicted(grid)
-            ax.fill_between(grid * 1e3, band["low_95"], band["high_95"], color=colour,
+            ax.fill_between(grid * 1e3, band["lo95"], band["hi95"], color=colour,
                             alpha=0.2, lw=0, label=f"{lead}model 95%")
             ax.plot(grid * 1e3, band["median"], color=colour,
                     label=f"{lead}{b.model} (median)")
@@ -161,14 +161,14 @@ def plot_budget(budget, fig=None):
                 continue
             for p in b.points:
                 t = p["stage_temp_k"] * 1e3
-                ax.plot([t, t], [p["n_thermal_low_95"], p["n_thermal_high_95"]], color=colour,
+                ax.plot([t, t], [p["n_thermal_lo95"], p["n_thermal_hi95"]], color=colour,
                         lw=1)
-                ax.plot([t, t], [p["n_thermal_low_68"], p["n_thermal_high_68"]], color=colour,
+                ax.plot([t, t], [p["n_thermal_lo68"], p["n_thermal_hi68"]], color=colour,
                         lw=3.5)
                 ax.plot(t, p["n_thermal_median"], "o", color=colour, ms=5)
         ax.set_xscale("log")
         ax.set_yscale("log")
-        low = min(p["n_thermal_low_95"] for _, b in series for p in b.points)
+        low = min(p["n_thermal_lo95"] for _, b in series for p in b.points)
         ax.set_ylim(bottom=max(low / 10, 1e-7))
         ax.set_xlabel("stage temperature [mK]")
         ax.set_ylabel("thermal photons n_th")

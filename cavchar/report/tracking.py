@@ -38,8 +38,8 @@ def _styled(plot, obj):
 def _interval_cell(stats: Any, dimension: str) -> str:
     if stats is None:
         return "–"
-    row = {"median": stats.median, "lo68": stats.low_68, "hi68": stats.high_68,
-           "lo95": stats.low_95, "hi95": stats.high_95}
+    row = {"median": stats.median, "lo68": stats.lo68, "hi68": stats.hi68,
+           "lo95": stats.lo95, "hi95": stats.hi95}
     text = format_interval_row(row, dimension)
     unit = f" {text['unit']}" if text["unit"] else ""
     return f"{text['median']} [{text['interval95']}]{unit}"
@@ -177,8 +177,8 @@ def qualification_section(qualification: Any, figure_html: FigureHtml) -> Sectio
         estimate = "–"
         if v.median is not None:
             estimate = (f"{format_quantity_text(v.median, dim, 3)} "
-                        f"[{format_quantity_text(v.low_95, dim, 3)} – "
-                        f"{format_quantity_text(v.high_95, dim, 3)}]")
+                        f"[{format_quantity_text(v.lo95, dim, 3)} – "
+                        f"{format_quantity_text(v.hi95, dim, 3)}]")
         p = "–" if v.probability is None else format_probability_error(v.probability, v.mc_error)
         evidence = v.evidence.description if v.evidence is not None else "none"
         rows.append([esc(v.requirement.describe()), _badge(v.status), esc(p), esc(estimate),
@@ -235,8 +235,8 @@ class _Stats:
 
     def __init__(self, point: dict, prefix: str) -> None:
         self.median = point[prefix + "median"]
-        self.low_68, self.high_68 = point[prefix + "low_68"], point[prefix + "high_68"]
-        self.low_95, self.high_95 = point[prefix + "low_95"], point[prefix + "high_95"]
+        self.lo68, self.hi68 = point[prefix + "lo68"], point[prefix + "hi68"]
+        self.lo95, self.hi95 = point[prefix + "lo95"], point[prefix + "hi95"]
 
 
 def section_for(obj: Any, figure_html: FigureHtml) -> Section:

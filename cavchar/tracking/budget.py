@@ -192,7 +192,7 @@ class Budget:
     @property
     def excess_is_upper_limit(self) -> bool:
         """The excess posterior reaches down to its prior floor: only an upper limit."""
-        return self.excess.parameters["excess_photons"].low_95 < 100 * self.excess_floor
+        return self.excess.parameters["excess_photons"].lo95 < 100 * self.excess_floor
 
     def predicted(self, stage_temp_k: Sequence[float], n_curves: int = 1000
                   ) -> dict[str, np.ndarray]:
@@ -204,7 +204,7 @@ class Budget:
         t_hot = None if fit is self.excess else fit.draws["hot_temperature"][rows, None]
         curves = budget_occupation(self.freq_hz, temps[None, :], h[rows, None], t_hot)
         q = np.quantile(curves, [0.5, 0.16, 0.84, 0.025, 0.975], axis=0)
-        return dict(zip(("median", "low_68", "high_68", "low_95", "high_95"), q, strict=True))
+        return dict(zip(("median", "lo68", "hi68", "lo95", "hi95"), q, strict=True))
 
     def to_dict(self) -> dict:
         def fit_dict(fit: BudgetFit | None) -> dict | None:
@@ -386,24 +386,24 @@ def thermal_budget(points: Sequence[BudgetPoint], freq_hz: float, *,
                                                   "hot_fraction": f}, run_2.converged,
                          run_2.diagnostics)
     t = params["hot_temperature"]
-    identified = (t.high_95 / t.low_95 < 10.0 and t.low_95 > 1.1 * t_lo
-                  and t.high_95 < t_hot_max_k / 1.1)
+    identified = (t.hi95 / t.lo95 < 10.0 and t.lo95 > 1.1 * t_lo
+                  and t.hi95 < t_hot_max_k / 1.1)
     if identified:
         model = MODEL_TWO_BATH
         reason = (f"T_hot is identified: its 95% interval spans a factor "
-                  f"{t.high_95 / t.low_95:.2g} inside the prior range")
+                  f"{t.hi95 / t.lo95:.2g} inside the prior range")
     else:
         from cavchar.units import format_quantity
 
         model = MODEL_EXCESS
         failed = []  # the conditions that did not hold, each said as it is
-        if not t.high_95 / t.low_95 < 10.0:
-            failed.append(f"its 95% interval spans a factor {t.high_95 / t.low_95:.3g} "
+        if not t.hi95 / t.lo95 < 10.0:
+            failed.append(f"its 95% interval spans a factor {t.hi95 / t.lo95:.3g} "
                           "(needs < 10)")
-        if not t.low_95 > 1.1 * t_lo:
+        if not t.lo95 > 1.1 * t_lo:
             failed.append("it reaches down to the prior's lower bound "
                           f"{format_quantity(t_lo, 'temperature')} (the warmest stage)")
-        if not t.high_95 < t_hot_max_k / 1.1:
+        if not t.hi95 < t_hot_max_k / 1.1:
             failed.append("it reaches up to the prior's upper bound "
                           f"{format_quantity(t_hot_max_k, 'temperature')}")
         reason = ("T_hot is not identifiable from these data (" + "; ".join(failed)

@@ -35,6 +35,7 @@ from typing import Any
 import numpy as np
 
 from cavchar.errors import InputError
+from cavchar.quantities import QUANTILES_68
 from cavchar.tracking.records import (
     KEY_PARAMETERS,
     FitEntry,
@@ -108,8 +109,8 @@ def _cell(value: Any, name: str) -> str:
 def _csv_text(doc: dict) -> str:
     cavities = {c["name"]: c for c in doc["cavities"]}
     cooldowns = {c["label"]: c for c in doc["cooldowns"]}
-    stats = ("median", "low_68", "high_68", "low_95", "high_95")
-    quantiles = (0.5, 0.16, 0.84, 0.025, 0.975)
+    stats = ("median", "lo68", "hi68", "lo95", "hi95")
+    quantiles = (0.5, *QUANTILES_68, 0.025, 0.975)
     header = (["fit_id", "cavity"] + [f"cavity_{k}" for k in _CAVITY_FIELDS[1:]]
               + ["cooldown"] + [f"cooldown_{k}" for k in _COOLDOWN_FIELDS[1:]]
               + list(_FIT_FIELDS)

@@ -251,8 +251,8 @@ class Verdict:
     probability: float | None       # P(requirement met | data)
     mc_error: float | None
     median: float | None
-    low_95: float | None
-    high_95: float | None
+    lo95: float | None
+    hi95: float | None
     evidence: Evidence | None
     data_factor: float | None       # times the present data that would decide it
     hint: str
@@ -291,7 +291,7 @@ def _verdict_dict(v: Verdict) -> dict:
     return {"quantity": r.quantity, "bound": r.bound, "threshold_si": r.threshold,
             "unit": QUANTITIES[r.quantity][1], "credibility": r.credibility,
             "status": v.status, "probability_met": v.probability, "mc_error": v.mc_error,
-            "median": v.median, "low_95": v.low_95, "high_95": v.high_95,
+            "median": v.median, "lo95": v.lo95, "hi95": v.hi95,
             "data_factor": v.data_factor, "hint": v.hint,
             "evidence": None if e is None else {
                 "description": e.description, "fit_id": e.fit_id, "kind": e.kind,

@@ -49,15 +49,15 @@ class Interval:
     """Median and equal-tailed 68 % / 95 % interval of a set of draws (their units)."""
 
     median: float
-    low_68: float
-    high_68: float
-    low_95: float
-    high_95: float
+    lo68: float
+    hi68: float
+    lo95: float
+    hi95: float
     n_draws: int
 
     def as_dict(self) -> dict[str, float]:
-        return {"median": self.median, "low_68": self.low_68, "high_68": self.high_68,
-                "low_95": self.low_95, "high_95": self.high_95, "n_draws": self.n_draws}
+        return {"median": self.median, "lo68": self.lo68, "hi68": self.hi68,
+                "lo95": self.lo95, "hi95": self.hi95, "n_draws": self.n_draws}
 
 
 #: median and the 68.27 % / 95 % equal-tailed quantiles, the same as FitResult.summary
@@ -186,7 +186,7 @@ class Trend:
             for name, (_, unit, _dim) in TREND_QUANTITIES.items():
                 tag = f"_{unit}" if unit else ""
                 stats = row.stats.get(name)
-                for key in ("median", "low_68", "high_68", "low_95", "high_95"):
+                for key in ("median", "lo68", "hi68", "lo95", "hi95"):
                     record[f"{name}{tag}_{key}"] = getattr(stats, key) if stats else np.nan
                 source = row.sources.get(name)
                 record[f"{name}_fit_id"] = source.fit_id if source else None
