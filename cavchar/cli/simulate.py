@@ -23,7 +23,8 @@ EXAMPLES = {
 """,
     "probes": """examples:
   cavchar simulate probes --lifetime 25ms --n-thermal 0.08 --duration 5s --interval 100us \\
-      --visibility 0.9 --phase-per-photon 180deg --error0 0.02 --error1 0.04 --truth -o sim
+      --visibility 0.9 --phase-per-photon 180deg --readout-error-0 0.02 \\
+      --readout-error-1 0.04 --truth -o sim
   cavchar simulate probes --lifetime 25ms --n-thermal 0.08 --duration 5s --interval 100us \\
       --phase-per-photon 90deg --setting 0 --setting 90deg --loss 0.01 -o sim
   cavchar simulate probes --lifetime 25ms --n-thermal 0.08 --duration 5s --interval 100us \\
@@ -122,9 +123,9 @@ def _probe_options(sub: argparse.ArgumentParser) -> None:
                        help="fringe phase per photon phi0 (rad, or e.g. 180deg = parity probe)")
     group.add_argument("--phase-offset", type=quantity("phase", minimum=None), default=0.0,
                        help="fringe phase offset phi_r (rad or deg)")
-    group.add_argument("--error0", type=real(0.0, 1.0), default=0.0,
+    group.add_argument("--readout-error-0", dest="error0", type=real(0.0, 1.0), default=0.0,
                        help="readout error e0 = P(read 1 | ideal 0)")
-    group.add_argument("--error1", type=real(0.0, 1.0), default=0.0,
+    group.add_argument("--readout-error-1", dest="error1", type=real(0.0, 1.0), default=0.0,
                        help="readout error e1 = P(read 0 | ideal 1)")
     group.add_argument("--response-table", default=None, metavar="FILE",
                        help="calibrated table with columns photons, p_one[, setting] instead "

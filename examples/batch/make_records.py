@@ -34,8 +34,8 @@ RECORDS = [
     # Harrier: raw parity probes (fringe visibility 0.9, readout errors 0.03 / 0.05)
     ("harrier-probes.csv.gz", ["probes", "--lifetime", "12ms", "--n-thermal", "0.075",
                                "--duration", "6s", "--interval", "1ms", "--visibility", "0.9",
-                               "--phase-per-photon", "180deg", "--error0", "0.03",
-                               "--error1", "0.05", "--freq", "7.412GHz", "--seed", "406"]),
+                               "--phase-per-photon", "180deg", "--readout-error-0", "0.03",
+                               "--readout-error-1", "0.05", "--freq", "7.412GHz", "--seed", "406"]),
     # Harrier: a ring-down in dB
     ("harrier-ringdown-db.csv", ["ringdown", "--signal", "db", "--lifetime", "12ms",
                                  "--duration", "150ms", "--points", "300", "--floor", "1e-4",
