@@ -56,3 +56,20 @@ def test_console_script_runs():
                            "--temp", "50mK"], capture_output=True, text=True)
     assert proc.returncode == 0, proc.stderr
     assert "8.30437e-03" in proc.stdout or "0.00830437" in proc.stdout
+
+
+def test_a_reader_that_stops_early_ends_the_command_quietly():
+    """`cavchar ... | head -1`: the command's later writes meet a closed pipe; it stops with
+    exit 141 (128 + SIGPIPE) and no traceback (more output than a pipe buffer holds)."""
+    import subprocess
+    import sys
+
+    temps = [arg for k in range(1, 3001) for arg in ("--temp", f"{k}mK")]
+    child = subprocess.Popen([sys.executable, "-c", "from cavchar.cli.main import run; run()",
+                              "thermal", "--freq", "6.8GHz", *temps],
+                             stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    child.stdout.readline()
+    child.stdout.close()
+    err = child.stderr.read().decode()
+    assert child.wait(timeout=120) == 141
+    assert "Traceback" not in err and "Exception ignored" not in err, err

@@ -134,6 +134,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         except KeyboardInterrupt:
             print("cavchar: interrupted", file=sys.stderr)
             return 130
+        except BrokenPipeError:  # the reader stopped early (`| head`): see run()
+            raise
         except Exception as exc:  # a bug in cavchar, not the user's fault
             import traceback
 
@@ -153,9 +155,25 @@ def _prog(args: argparse.Namespace) -> str:
     return " ".join(words)
 
 
+#: exit code of a command whose reader closed the pipe (128 + SIGPIPE, as the shell reports)
+EXIT_BROKEN_PIPE = 141
+
+
 def run() -> None:
-    """Console-script entry point."""
-    sys.exit(main())
+    """Console-script entry point.
+
+    A reader that stops early (``cavchar log list | head``) ends the command quietly
+    with :data:`EXIT_BROKEN_PIPE`: standard output is pointed at the null device so the
+    interpreter's final flush raises nothing (the recipe of the Python documentation,
+    module ``signal``, "Note on SIGPIPE")."""
+    try:
+        code = main()
+        sys.stdout.flush()
+    except BrokenPipeError:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        code = EXIT_BROKEN_PIPE
+    sys.exit(code)
 
 
 if __name__ == "__main__":
