@@ -20,8 +20,9 @@ from cavchar.inference import SamplerSettings
 from cavchar.models import hmm_kernels as hk
 from cavchar.models.probes import ProbeLikelihood, probe_steps
 from cavchar.models.response import FringeResponse
-from cavchar.records import JumpRecord, ProbeRecord
+from cavchar.records import ProbeRecord
 from cavchar.simulate import probes_on_path
+from tests.test_fit_probes import mcsolve_path  # hidden path from QuTiP's mcsolve
 
 PARITY = dict(visibility=0.9, phase_per_photon=math.pi, readout_error_0=0.02,
               readout_error_1=0.03)
@@ -115,23 +116,6 @@ def test_series_length_meets_the_poisson_tail(z):
     k = int(hk.uniformization_terms(z)[0])
     assert stats.poisson.sf(k, z) <= hk.SERIES_TOLERANCE
     assert k == 0 or stats.poisson.sf(k - 2, z) > hk.SERIES_TOLERANCE
-
-
-def mcsolve_path(lifetime, n_th, duration, seed, n_levels=12):
-    """Hidden path from QuTiP's quantum-jump Monte Carlo solver: collapse operators
-    sqrt(kappa (1+n_th)) a (index 0) and sqrt(kappa n_th) a^dag (index 1), H = 0, start in
-    the vacuum; each recorded collapse is a jump (as in tests/test_fit_probes.py)."""
-    qutip = pytest.importorskip("qutip")
-    kappa = 1.0 / lifetime
-    a = qutip.destroy(n_levels)
-    c_ops = [np.sqrt(kappa * (1 + n_th)) * a, np.sqrt(kappa * n_th) * a.dag()]
-    res = qutip.mcsolve(qutip.qzero(n_levels), qutip.basis(n_levels, 0), [0.0, duration],
-                        c_ops, ntraj=1, seeds=[seed],
-                        options={"keep_runs_results": True, "progress_bar": False})
-    times = np.asarray(res.col_times[0], dtype=float)
-    which = np.asarray(res.col_which[0])
-    photons = np.concatenate([[0], np.cumsum(np.where(which == 1, 1, -1))])
-    return JumpRecord(np.concatenate([[0.0], times]), photons, duration)
 
 
 @pytest.mark.slow  # a whole fit of 10^4 irregular probes: over 20 s on 2 cores
