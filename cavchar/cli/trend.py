@@ -80,12 +80,10 @@ def _cell(row, name: str, dimension: str) -> str:
     limit = row.limits.get(name)
     if limit is None:
         return interval_text(row.stats.get(name), dimension)
+    from cavchar.tracking.trend import limit_text
     from cavchar.units import format_quantity
 
-    sign = {"lower": ">", "upper": "<"}.get(limit.get("kind"))
-    if sign is None or limit.get("limit") is None:
-        return "not constrained"
-    return f"{sign} {format_quantity(float(limit['limit']), dimension, 3)} (limit)"
+    return limit_text(limit, dimension, format_quantity)
 
 
 def print_trend(trend, why: bool = False) -> None:

@@ -54,10 +54,9 @@ def _row_cell(row: Any, name: str, dimension: str) -> str:
     limit = getattr(row, "limits", {}).get(name)
     if limit is None:
         return _interval_cell(row.stats.get(name), dimension)
-    sign = {"lower": ">", "upper": "<"}.get(limit.get("kind"))
-    if sign is None or limit.get("limit") is None:
-        return "not constrained"
-    return f"{sign} {format_quantity_text(float(limit['limit']), dimension, 3)} (limit)"
+    from cavchar.tracking.trend import limit_text
+
+    return limit_text(limit, dimension, format_quantity_text)
 
 
 def _by_quantity(row: Any, text) -> str:

@@ -22,7 +22,7 @@ draws above ``x_i / (1 - delta)`` and ``b_j`` the fraction of draws below
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 
 import numpy as np
@@ -34,7 +34,8 @@ from cavchar.tracking.store import CooldownLog
 
 __all__ = ["Interval", "TrendRow", "Trend", "interval", "drop_probability", "cooldown_trend",
            "fit_draws", "TREND_QUANTITIES", "exceed_probability", "compare_cavities",
-           "CavityComparison", "ComparisonRow", "cooldown_selections", "summary_interval"]
+           "CavityComparison", "ComparisonRow", "cooldown_selections", "summary_interval",
+           "limit_text"]
 
 #: quantity -> (column, unit symbol, dimension of cavchar.units)
 TREND_QUANTITIES = {
@@ -42,6 +43,19 @@ TREND_QUANTITIES = {
     "n_thermal": ("n_thermal", "", "dimensionless"),
     "effective_temperature": ("effective_temperature", "K", "temperature"),
 }
+
+
+
+def limit_text(limit: Mapping, dimension: str,
+               format_value: Callable[[float, str, int], str]) -> str:
+    """A trend cell of a quantity whose posterior reaches a prior bound: its one-sided
+    limit (``"> 997 s (limit)"``), never a median and interval of the prior's edge.
+    ``format_value(value, dimension, digits)`` writes the number with its unit (the
+    CLI's and the report's own formatter)."""
+    sign = {"lower": ">", "upper": "<"}.get(limit.get("kind"))
+    if sign is None or limit.get("limit") is None:
+        return "not constrained"
+    return f"{sign} {format_value(float(limit['limit']), dimension, 3)} (limit)"
 
 
 @dataclass(frozen=True)
