@@ -270,6 +270,7 @@ file = "garbled.csv"
 kind = "ringdown"
 file = "ringdown.csv"
 signal = "power"
+sampler = "ensemble"
 """
 
 

@@ -49,6 +49,7 @@ BATCH_LEVEL_OPTIONS = {
 
 #: options every kind's fit call reads (besides the kind's own below)
 _COMMON_DESTS = {"freq", "stage_temp", "seed", "walkers", "max_steps", "allow_unconverged",
+                 "sampler",
                  "quiet", "log", "cavity", "cooldown", "log_file", "log_create", "report", "out",
                  "force", "no_figures", "figure_format",
                  "column", "skip_rows", "delimiter", "decimal",  # file layout
@@ -59,7 +60,7 @@ _KIND_DESTS = {
               "stationary_start", "rows_are_changes"},
     "probes": {"record", "response", "response_table", "visibility", "phase_per_photon",
                "phase_offset", "readout_error_0", "readout_error_1", "prior_lifetime",
-               "prior_n_thermal", "mode", "block_probes", "initial_photons", "sampler"},
+               "prior_n_thermal", "mode", "block_probes", "initial_photons"},
     "ringdown": {"traces", "signal", "start_time", "time_unit", "initial", "n0",
                  "allow_negative", "no_compare", "prior", "trace"},
 }
@@ -208,7 +209,7 @@ def fit_arguments(kind: str, argv: list[str], seed: int, check_every: int | None
     command = command_text(kind, argv, seed)
     settings = _settings(args, kind, check_every)
     common = {"freq_hz": args.freq, "stage_temp_k": args.stage_temp, "settings": settings,
-              "command": command}
+              "sampler": args.sampler, "command": command}
     base = KINDS[kind][0]
     if base == "jumps":
         from cavchar.fits.jumps import JumpPriors
@@ -224,7 +225,7 @@ def fit_arguments(kind: str, argv: list[str], seed: int, check_every: int | None
         if args.block_probes is not None and args.block_probes < 1:
             raise InputError("option block_probes must be at least 1")
         return "probes", {"record": laid_out(args.record, args),
-                          "response": build_response(args), "sampler": args.sampler,
+                          "response": build_response(args),
                           "priors": rate_priors_from_args(args, ProbePriors),
                           "mode": args.mode, "block_probes": args.block_probes,
                           "initial": ("stationary" if args.initial_photons is None

@@ -109,6 +109,10 @@ def add_sampler_options(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--allow-unconverged", action="store_true",
                         help="keep an unconverged chain (exit 0 with a warning instead of 3)")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
+    parser.add_argument("--sampler", choices=("importance", "ensemble"), default="importance",
+                        help="importance: Pareto-smoothed importance sampling from the Laplace "
+                        "approximation (falls back to the ensemble when its k-hat diagnostic "
+                        "says the approximation is poor); ensemble: emcee throughout")
 
 
 def add_fit_context_options(parser: argparse.ArgumentParser) -> None:

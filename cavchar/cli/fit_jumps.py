@@ -79,6 +79,7 @@ def handle(args: argparse.Namespace) -> int:
         priors=priors,
         stationary_start=args.stationary_start,
         settings=settings_from_args(args),
+        sampler=args.sampler,
         command="cavchar " + shlex.join(sys.argv[1:]) if sys.argv else None,
     )
     return finish_fit_command(result, args)

@@ -101,10 +101,6 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
                         metavar="N",
                         help="segments start in Fock state N; unset: thermal equilibrium")
     add_layout_options(parser)
-    parser.add_argument("--sampler", choices=("importance", "ensemble"), default="importance",
-                        help="importance: Pareto-smoothed importance sampling from the Laplace "
-                        "approximation (falls back to the ensemble when its k-hat diagnostic "
-                        "says the approximation is poor); ensemble: emcee throughout")
     add_fit_context_options(parser)
     add_sampler_options(parser)
     add_output_options(parser)

@@ -151,6 +151,7 @@ def handle(args: argparse.Namespace) -> int:
         n0=args.n0,
         allow_negative_power=args.allow_negative,
         compare=not args.no_compare,
+        sampler=args.sampler,
         command="cavchar " + shlex.join(sys.argv[1:]) if sys.argv else None,
     )
     code = finish_fit_command(result, args)

@@ -19,7 +19,8 @@ import numpy as np
 
 from cavchar.errors import InputError, ModelMisfitWarning, PriorDominatedWarning
 from cavchar.fits.common import FitContext, finish_fit, sampler_settings
-from cavchar.inference import SamplerSettings, sample_posterior
+from cavchar.inference import SamplerSettings
+from cavchar.inference.importance import sample_posterior_auto
 from cavchar.models.jumps import (
     dwell_times,
     exact_log_likelihood,
@@ -128,6 +129,7 @@ def fit_jumps(
     columns: dict[str, str] | None = None,
     layout=None,
     exact_rows: bool = False,
+    sampler: str = "importance",
 ):
     """Posterior of the energy lifetime and thermal photon number from a jump record.
 
@@ -159,6 +161,10 @@ def fit_jumps(
         How to read a file: column mapping ``{"time": "Time (s)", ...}`` and a
         :class:`~cavchar.io.tables.layout.FileLayout` (rows to skip, delimiter,
         decimal mark); see docs/data-formats.md.
+    sampler
+        ``"importance"`` (Pareto-smoothed importance sampling from the Laplace
+        approximation, falling back to the ensemble sampler when its k-hat says the
+        approximation is poor; :mod:`cavchar.inference.importance`) or ``"ensemble"``.
     exact_rows
         Read a file's rows as exact change points even when they are evenly
         spaced and repeat photon numbers (which otherwise says "use sampled").
@@ -176,11 +182,11 @@ def fit_jumps(
     context = FitContext(record=record, freq_hz=freq_hz, stage_temp_k=stage_temp_k,
                          command=command)
     if isinstance(record, JumpRecord):
-        return _fit_exact(record, specs, settings, initial, context)
-    return _fit_sampled(record, specs, settings, initial, context)
+        return _fit_exact(record, specs, settings, initial, context, sampler)
+    return _fit_sampled(record, specs, settings, initial, context, sampler)
 
 
-def _fit_exact(record, specs, settings, initial, context):
+def _fit_exact(record, specs, settings, initial, context, sampler):
     stats = jump_statistics(record.time, record.photons, record.end_time, record.segment)
     if stats.up + stats.down == 0:
         warnings.warn(f"{record.source or 'the record'} has no jumps: the posterior mostly "
@@ -190,7 +196,7 @@ def _fit_exact(record, specs, settings, initial, context):
     def log_likelihood(theta: np.ndarray) -> np.ndarray:
         return exact_log_likelihood(stats, theta[:, 0], theta[:, 1], initial=initial)
 
-    run = sample_posterior(log_likelihood, specs, _exact_guess(stats), settings)
+    run = sample_posterior_auto(log_likelihood, specs, _exact_guess(stats), settings, sampler)
     durations, states, complete = dwell_times(record.time, record.photons, record.end_time,
                                               record.segment)
     rng = np.random.default_rng(np.random.SeedSequence(run.settings.seed).spawn(4)[3])
@@ -209,7 +215,8 @@ def _fit_exact(record, specs, settings, initial, context):
         "dwell_excerpt": _dwell_excerpt(durations, states, complete, rng),
     }
     return finish_fit("jumps-exact", run, context, checks={"dwell_times": check},
-                      extras=extras, model_settings={"initial_state": initial})
+                      extras=extras, model_settings={"initial_state": initial,
+                                                     "sampler": sampler})
 
 
 #: change points / dwells per photon number kept in the result for its figures
@@ -273,7 +280,7 @@ def _too_many_levels(trans, points: np.ndarray) -> InputError:
         hint="give a narrower --prior-n-thermal (e.g. loguniform:1e-6,3), or a longer record")
 
 
-def _fit_sampled(record, specs, settings, initial, context):
+def _fit_sampled(record, specs, settings, initial, context, sampler):
     trans = sampled_transitions(record.time, record.photons, record.segment)
     if trans.n_transitions == 0:
         raise InputError("the sampled record has fewer than two samples in every segment",
@@ -287,7 +294,7 @@ def _fit_sampled(record, specs, settings, initial, context):
             return sampled_log_likelihood(trans, theta[:, 0], theta[:, 1], n_levels,
                                           initial=initial)
 
-        run = sample_posterior(log_likelihood, specs, guess, settings)
+        run = sample_posterior_auto(log_likelihood, specs, guess, settings, sampler)
         # check the truncation where the posterior reaches its largest n_th
         extreme = run.draws[np.argsort(run.draws[:, 1])[-20:]]
         needed, error = _levels_for(trans, np.vstack([extreme, run.map]), initial, n_levels)
@@ -318,4 +325,5 @@ def _fit_sampled(record, specs, settings, initial, context):
     }
     return finish_fit("jumps-sampled", run, context, checks={"truncation": truncation},
                       extras=extras, model_settings={"initial_state": initial,
-                                                     "levels": int(n_levels)})
+                                                     "levels": int(n_levels),
+                                                     "sampler": sampler})

@@ -12,7 +12,7 @@ from cavchar.errors import InputError
 from cavchar.io.atomic import check_can_write
 from cavchar.result import FitResult
 
-__all__ = ["print_summary", "summary_text", "planck_statement", "write_fit_outputs",
+__all__ = ["print_summary", "summary_text", "sampler_text", "planck_statement", "write_fit_outputs",
            "fit_figures"]
 
 #: kind prefix -> module with ``figures(result) -> dict[name, Figure]``
@@ -35,6 +35,7 @@ def summary_text(result: FitResult) -> str:
     table = result.summary()
     lines = [f"{result.kind} fit ({'converged' if result.converged else 'NOT converged'}; "
              f"{len(result.samples)} draws, seed {result.seed})",
+             "  sampler: " + sampler_text(result.diagnostics),
              f"  {'quantity':<34}{'median':>14}{'68% interval':>30}{'95% interval':>30}"]
     names = [n for n in PRINTED if n in table.index]
     names += [n for n in result.parameter_names if n not in names]
@@ -68,6 +69,27 @@ def summary_text(result: FitResult) -> str:
     for message in result.checks.get("prior_bounds", {}).get("flags", []):
         lines.append("  prior bound: " + message)
     return "\n".join(lines)
+
+
+def sampler_text(diagnostics: dict) -> str:
+    """Which sampler made the draws, in words, with its own check: k-hat and effective
+    sample size for importance sampling, walkers and steps for the ensemble."""
+    importance = diagnostics.get("importance") or {}
+    if diagnostics.get("sampler") == "importance" and importance:
+        k_hat = importance.get("k_hat")  # None: no spread in the weights' tail
+        k_text = "-" if k_hat is None else f"{k_hat:.2f}"
+        return (f"importance sampling from the Laplace approximation (Pareto k-hat "
+                f"{k_text} < {importance['k_hat_limit']:.2f}; effective "
+                f"sample size {importance['ess_weights']:,.0f} of "
+                f"{importance['n_proposal_draws']:,} proposal draws)")
+    walkers, steps = diagnostics.get("n_walkers"), diagnostics.get("n_steps")
+    text = "ensemble (emcee)"
+    if walkers and steps:
+        text += f", {walkers} walkers x {steps:,} steps"
+    if importance and not importance.get("used", True):
+        text += (" because importance sampling was not accurate enough: "
+                 f"{importance.get('reason', 'its checks failed')}")
+    return text
 
 
 def planck_statement(planck: dict) -> str:

@@ -28,7 +28,8 @@ from cavchar.errors import CavcharWarning, InputError, ModelMisfitWarning
 from cavchar.fits.common import FitContext, finish_fit
 from cavchar.fits.ringdown_checks import posterior_curves, residual_diagnostics
 from cavchar.fits.ringdown_data import RingdownData, decay_check, prepare
-from cavchar.inference import SamplerSettings, sample_posterior
+from cavchar.inference import SamplerSettings
+from cavchar.inference.importance import sample_posterior_auto
 from cavchar.parameters import ParameterSpec
 from cavchar.priors import LogUniform, Prior, Uniform
 from cavchar.records import RingdownTrace
@@ -183,6 +184,7 @@ def fit_ringdown(
     allow_negative_power: bool = False,
     compare: bool = True,
     command: str | None = None,
+    sampler: str = "importance",
 ):
     """Posterior of the energy lifetime (and n_th) from one or more ring-down traces.
 
@@ -222,6 +224,10 @@ def fit_ringdown(
         For a single power trace, compare with two exponentials (BIC) and store it.
     command
         The command line, stored in the provenance.
+    sampler
+        ``"importance"`` (Pareto-smoothed importance sampling from the Laplace
+        approximation, falling back to the ensemble sampler when its k-hat says the
+        approximation is poor; :mod:`cavchar.inference.importance`) or ``"ensemble"``.
 
     Returns
     -------
@@ -243,8 +249,8 @@ def fit_ringdown(
     units = data_units(data.signal, value_units.pop() if len(value_units) == 1 else None)
     specs = _specs(model, priors, units)
     settings = ringdown_settings(settings, seed)
-    run = sample_posterior(model.log_likelihood, specs, _inside(model.initial_guess(), specs),
-                           settings)
+    run = sample_posterior_auto(model.log_likelihood, specs,
+                                _inside(model.initial_guess(), specs), settings, sampler)
     seeds = np.random.SeedSequence(run.settings.seed).spawn(7)
     nuisance = model.draw_nuisance(run.draws, np.random.default_rng(seeds[4]))
     point = np.median(run.draws, axis=0)

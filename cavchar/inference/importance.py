@@ -52,6 +52,7 @@ from cavchar.inference.sampler import (
     SamplerSettings,
     _Posterior,
     _resolve_seed,
+    refuse_point_posterior,
     sample_posterior,
 )
 from cavchar.inference.start import find_map, local_covariance
@@ -305,6 +306,9 @@ def sample_importance(
     u0 = space.to_sampler(np.asarray(initial_guess, dtype=float).reshape(ndim))
     u_map, lp_map, map_info = find_map(logpost, u0, space, np.random.default_rng(seeds[0]))
     cov, scale_method = local_covariance(logpost, u_map, lp_map, space)
+    # a spread of a few hundred units in the last place cannot be sampled or summarized
+    resolution = 1e-13 * np.maximum(1.0, np.abs(u_map))
+    refuse_point_posterior(specs, ~(np.sqrt(np.diag(cov)) > resolution))
     rng = np.random.default_rng(seeds[1])
 
     proposal = _Proposal(u_map, cov, imp.df)

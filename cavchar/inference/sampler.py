@@ -326,6 +326,19 @@ def _as_dict(names: list[str], values: ArrayLike | None) -> dict[str, float] | N
 
 
 
+def refuse_point_posterior(specs: Sequence[ParameterSpec], flat: ArrayLike) -> None:
+    """Raise the one clear InputError for parameters whose posterior is narrower than the
+    floating-point resolution around the MAP (``flat``: one bool per parameter), which
+    neither sampler can represent: the data follow the model exactly."""
+    flat = np.asarray(flat, dtype=bool)
+    if flat.any():
+        names = ", ".join(spec.name for spec, bad in zip(specs, flat, strict=True) if bad)
+        raise InputError(f"the posterior of {names} is narrower than the floating-point "
+                         "resolution around its best value: the data follow the model "
+                         "exactly (noise-free, e.g. a computed curve rather than a "
+                         "measurement)", hint="fit measured data, or simulate with noise")
+
+
 def sample_posterior(
     log_likelihood: LogLikelihood,
     specs: Sequence[ParameterSpec],
@@ -377,12 +390,7 @@ def sample_posterior(
     walkers0 = initial_ball(logpost, u_map, cov, settings.n_walkers, settings.init_scale,
                             np.random.default_rng(seeds[1]))
     flat = ~np.all(np.isfinite(walkers0), axis=0) | (np.ptp(walkers0, axis=0) == 0)
-    if flat.any():  # an ensemble cannot move along a direction without spread
-        names = ", ".join(spec.name for spec, bad in zip(specs, flat, strict=True) if bad)
-        raise InputError(f"the posterior of {names} is narrower than the floating-point "
-                         "resolution around its best value: the data follow the model "
-                         "exactly (noise-free, e.g. a computed curve rather than a "
-                         "measurement)", hint="fit measured data, or simulate with noise")
+    refuse_point_posterior(specs, flat)  # an ensemble cannot move without spread
 
     sampler = emcee.EnsembleSampler(settings.n_walkers, ndim, logpost, vectorize=True,
                                     moves=_make_moves(settings.moves))
