@@ -162,7 +162,7 @@ def test_cli_bad_inputs_exit_2(tmp_path, run_cli):
     assert code == 2 and "one photon at a time" in stderr and "--sampled" in stderr
     code, _, stderr = run_cli("fit", "jumps", tmp_path / "missing.csv", "--quiet")
     assert code == 2 and "Traceback" not in stderr
-    code, _, stderr = run_cli("fit", "jumps", bad, "--prior-lifetime", "loguniform:1s,1ms")
+    code, _, stderr = run_cli("fit", "jumps", bad, "--prior", "lifetime=loguniform:1s,1ms")
     assert code == 2 and "Traceback" not in stderr
 
 

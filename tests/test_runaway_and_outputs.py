@@ -65,7 +65,7 @@ def test_tiny_sampled_record_is_refused_not_run_for_hours(tmp_path):
     assert run.returncode == 2, run.stderr
     assert "Traceback" not in run.stderr
     error = [line for line in run.stderr.splitlines() if "error:" in line]
-    assert len(error) == 1 and "--prior-n-thermal" in error[0] and "150 levels" in error[0]
+    assert len(error) == 1 and "prior on n_thermal" in error[0] and "150 levels" in error[0]
     if peak_kib > before:  # the largest child so far is this one
         assert peak_kib * 1024 < CHILD_MEMORY_LIMIT
     assert sorted(p.name for p in tmp_path.iterdir()) == ["three.csv"]

@@ -49,20 +49,20 @@ BATCH_LEVEL_OPTIONS = {
 
 #: options every kind's fit call reads (besides the kind's own below)
 _COMMON_DESTS = {"freq", "stage_temp", "seed", "walkers", "max_steps", "allow_unconverged",
-                 "sampler",
+                 "sampler", "prior",
                  "quiet", "log", "cavity", "cooldown", "log_file", "log_create", "report", "out",
                  "force", "no_figures", "figure_format",
                  "column", "skip_rows", "delimiter", "decimal",  # file layout
                  "func", "help"}
 #: the options :func:`fit_from_argv` passes to each fit (others are refused, never ignored)
 _KIND_DESTS = {
-    "jumps": {"record", "sampled", "end_time", "prior_lifetime", "prior_n_thermal",
+    "jumps": {"record", "sampled", "end_time",
               "stationary_start", "rows_are_changes"},
     "probes": {"record", "response", "response_table", "visibility", "phase_per_photon",
-               "phase_offset", "readout_error_0", "readout_error_1", "prior_lifetime",
-               "prior_n_thermal", "mode", "block_probes", "initial_photons"},
+               "phase_offset", "readout_error_0", "readout_error_1", "mode",
+               "block_probes", "initial_photons"},
     "ringdown": {"traces", "signal", "start_time", "time_unit", "initial", "n0",
-                 "allow_negative", "no_compare", "prior", "trace"},
+                 "allow_negative", "no_compare", "trace"},
 }
 
 
@@ -230,12 +230,13 @@ def fit_arguments(kind: str, argv: list[str], seed: int, check_every: int | None
                           "mode": args.mode, "block_probes": args.block_probes,
                           "initial": ("stationary" if args.initial_photons is None
                                       else args.initial_photons), **common}
-    from cavchar.cli.fit_ringdown import _initial, _priors
+    from cavchar.cli.common import priors_from_args
+    from cavchar.cli.fit_ringdown import _initial
 
     return "ringdown", {"traces": [laid_out(path, args) for path in args.traces],
                         "signal": args.signal,
                         "start_time": args.start_time, "time_unit": args.time_unit,
-                        "priors": _priors(args.prior, args.freq),
+                        "priors": priors_from_args(args),
                         "initial": _initial(args.initial), "n0": args.n0,
                         "allow_negative_power": args.allow_negative,
                         "compare": not args.no_compare, **common}

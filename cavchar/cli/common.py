@@ -9,7 +9,8 @@ from cavchar.units import parse_quantity
 
 __all__ = ["quantity", "add_output_options", "add_sampler_options", "add_fit_context_options",
            "settings_from_args", "rate_priors_from_args", "check_input_files", "check_outputs",
-           "finish_fit_command", "HelpFormatter", "add_layout_options", "laid_out", "for_option"]
+           "finish_fit_command", "HelpFormatter", "add_layout_options", "laid_out", "for_option",
+           "add_prior_option", "priors_from_args"]
 
 
 class HelpFormatter(argparse.ArgumentDefaultsHelpFormatter, argparse.RawDescriptionHelpFormatter):
@@ -183,7 +184,7 @@ def laid_out(path: str, args: argparse.Namespace):
 
 def for_option(flag: str, function: Callable, *args, **kwargs):
     """``function(*args, **kwargs)``; an :class:`InputError` it raises names ``flag``
-    (``--prior-lifetime: cannot read prior ...``), so the user knows which option to fix."""
+    (``--prior lifetime: cannot read prior ...``), so the user knows which option to fix."""
     from cavchar.errors import InputError
 
     try:
@@ -202,26 +203,58 @@ def settings_from_args(args: argparse.Namespace):
                            allow_unconverged=args.allow_unconverged, quiet=args.quiet)
 
 
-def rate_priors_from_args(args: argparse.Namespace, priors_class):
-    """``priors_class(lifetime=..., n_thermal=...)`` from ``--prior-lifetime`` and
-    ``--prior-n-thermal`` (``stage``: log-normal around the stage's Planck occupation);
-    options not given keep the class defaults."""
+#: dimension of each parameter a ``--prior`` may name (others are dimensionless)
+PRIOR_DIMENSIONS = {"lifetime": "time", "lifetime_fast": "time", "detuning": "frequency",
+                    "n_thermal": "dimensionless"}
+
+
+def add_prior_option(parser: argparse.ArgumentParser, names: str, defaults: str) -> None:
+    """The one prior option of every fit command: ``--prior NAME=SPEC``, repeatable."""
+    parser.add_argument("--prior", action="append", default=[], metavar="NAME=SPEC",
+                        help=f"prior of a parameter ({names}), e.g. "
+                        "lifetime=loguniform:10us,1s, lifetime=normal:1.2ms,0.1ms, "
+                        "n_thermal=uniform:0,0.5 or n_thermal=stage (log-normal around the "
+                        f"stage's Planck occupation; needs --freq, --stage-temp); repeatable; "
+                        f"unset: {defaults}")
+
+
+def priors_from_args(args: argparse.Namespace, names: tuple[str, ...] | None = None) -> dict:
+    """``{name: Prior}`` from the ``--prior NAME=SPEC`` options (:func:`add_prior_option`);
+    ``names`` are the parameters this fit kind accepts (None: the fit checks the names
+    against its model); ``n_thermal=stage`` is the log-normal around the stage's Planck
+    occupation."""
     from cavchar.errors import InputError
     from cavchar.priors import parse_prior, stage_occupation_prior
 
-    priors = priors_class()
-    lifetime, n_thermal = priors.lifetime, priors.n_thermal
-    if args.prior_lifetime:
-        lifetime = for_option("--prior-lifetime", parse_prior, args.prior_lifetime, "time")
-    if args.prior_n_thermal:
-        if args.prior_n_thermal.strip().lower() == "stage":
+    out: dict = {}
+    for item in args.prior or []:
+        name, sep, text = item.partition("=")
+        name, text = name.strip(), text.strip()
+        if not sep or not name or not text:
+            raise InputError(f"cannot read --prior {item!r}",
+                             hint="NAME=SPEC, e.g. lifetime=loguniform:10us,1s")
+        if names is not None and name not in names:
+            raise InputError(f"--prior names {name!r}, which this fit does not have",
+                             hint=f"the parameters here: {', '.join(names)}")
+        if name in out:
+            raise InputError(f"--prior {name} is given twice", hint="give each prior once")
+        if name == "n_thermal" and text.lower() == "stage":
             if args.freq is None or args.stage_temp is None:
-                raise InputError("--prior-n-thermal stage needs --freq and --stage-temp")
-            n_thermal = stage_occupation_prior(args.freq, args.stage_temp)
-        else:
-            n_thermal = for_option("--prior-n-thermal", parse_prior, args.prior_n_thermal,
-                                   "dimensionless", freq_hz=args.freq)
-    return priors_class(lifetime=lifetime, n_thermal=n_thermal)
+                raise InputError("--prior n_thermal=stage needs --freq and --stage-temp")
+            out[name] = stage_occupation_prior(args.freq, args.stage_temp)
+            continue
+        out[name] = for_option(f"--prior {name}", parse_prior, text,
+                               PRIOR_DIMENSIONS.get(name, "dimensionless"), freq_hz=args.freq)
+    return out
+
+
+def rate_priors_from_args(args: argparse.Namespace, priors_class):
+    """``priors_class(lifetime=..., n_thermal=...)`` from ``--prior lifetime=...`` and
+    ``--prior n_thermal=...``; parameters not named keep the class defaults."""
+    priors = priors_class()
+    given = priors_from_args(args, ("lifetime", "n_thermal"))
+    return priors_class(lifetime=given.get("lifetime", priors.lifetime),
+                        n_thermal=given.get("n_thermal", priors.n_thermal))
 
 
 def check_input_files(paths) -> None:

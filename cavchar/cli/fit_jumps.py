@@ -11,6 +11,7 @@ from cavchar.cli.common import (
     add_fit_context_options,
     add_layout_options,
     add_output_options,
+    add_prior_option,
     add_sampler_options,
     check_input_files,
     check_outputs,
@@ -24,7 +25,7 @@ from cavchar.cli.common import (
 EXAMPLES = """examples:
   cavchar fit jumps record.csv --freq 6.8GHz --stage-temp 20mK -o fit_out
   cavchar fit jumps samples.csv --sampled --freq 6.8GHz -o fit_out --force
-  cavchar fit jumps record.csv --end-time 2.5s --prior-lifetime loguniform:10us,1s
+  cavchar fit jumps record.csv --end-time 2.5s --prior lifetime=loguniform:10us,1s
 
 The record formats are described in docs/data-formats.md.  An exact record holds
 change points (time, photons) and its end time; --sampled reads photon numbers at
@@ -48,12 +49,8 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
                         help="photon numbers at probe times (not exact change points)")
     parser.add_argument("--end-time", type=quantity("time", minimum=None), default=None,
                         help="end of an exact record when the file does not give it, e.g. 2.5s")
-    parser.add_argument("--prior-lifetime", default=None, metavar="PRIOR",
-                        help="prior on T_c, e.g. loguniform:1us,1000s (the default), "
-                        "normal:1.2ms,0.1ms, lognormal:1ms,0.5")
-    parser.add_argument("--prior-n-thermal", default=None, metavar="PRIOR",
-                        help="prior on n_th, e.g. loguniform:1e-6,100 (the default), "
-                        "stage (log-normal around the stage's Planck occupation)")
+    add_prior_option(parser, "lifetime, n_thermal",
+                     "lifetime=loguniform:1us,1000s, n_thermal=loguniform:1e-6,100")
     parser.add_argument("--stationary-start", action="store_true",
                         help="score each segment's first photon number with the thermal "
                         "(Bose-Einstein) law; only for records starting in equilibrium")

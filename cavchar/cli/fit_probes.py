@@ -12,6 +12,7 @@ from cavchar.cli.common import (
     add_fit_context_options,
     add_layout_options,
     add_output_options,
+    add_prior_option,
     add_sampler_options,
     check_input_files,
     check_outputs,
@@ -82,11 +83,8 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
                         help="calibrated P(1 | n[, setting]): columns photons, p_one, setting")
     for _, flag, _, text in _FRINGE_OPTIONS:
         parser.add_argument(flag, default=None, metavar="VALUE|PRIOR", help=text)
-    parser.add_argument("--prior-lifetime", default=None, metavar="PRIOR",
-                        help="prior on T_c; unset: loguniform:1us,1000s")
-    parser.add_argument("--prior-n-thermal", default=None, metavar="PRIOR",
-                        help="prior on n_th; unset: loguniform:1e-6,20; 'stage': log-normal "
-                        "around the stage's Planck occupation")
+    add_prior_option(parser, "lifetime, n_thermal",
+                     "lifetime=loguniform:1us,1000s, n_thermal=loguniform:1e-6,20")
     mode = parser.add_mutually_exclusive_group()
     mode.add_argument("--exact", action="store_const", dest="mode", const="exact",
                       help="forward algorithm over every probe")

@@ -12,12 +12,14 @@ from cavchar.cli.common import (
     add_fit_context_options,
     add_layout_options,
     add_output_options,
+    add_prior_option,
     add_sampler_options,
     check_input_files,
     check_outputs,
     finish_fit_command,
     for_option,
     laid_out,
+    priors_from_args,
     quantity,
     real,
     settings_from_args,
@@ -75,10 +77,9 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
                         help="accept negative linear power (background-subtracted traces)")
     parser.add_argument("--no-compare", action="store_true",
                         help="skip the comparison of a power trace with two exponentials")
-    parser.add_argument("--prior", action="append", default=[], metavar="NAME=PRIOR",
-                        help="prior of a parameter, e.g. lifetime=loguniform:10us,1s or "
-                        "n_thermal=uniform:0,0.5 (repeatable; others default to wide "
-                        "log-uniform ranges)")
+    add_prior_option(parser, "lifetime, n_thermal, lifetime_fast, detuning, ... as the "
+                     "signal's model has them", "wide log-uniform ranges (uniform for signed "
+                     "or bounded parameters)")
     add_layout_options(parser, trace=True)
     add_fit_context_options(parser)
     add_sampler_options(parser)
@@ -111,24 +112,6 @@ def _initial(text: str | None):
     return parts
 
 
-def _priors(items: list[str], freq_hz: float | None) -> dict:
-    from cavchar.errors import InputError
-    from cavchar.priors import parse_prior
-
-    dimensions = {"lifetime": "time", "lifetime_fast": "time", "detuning": "frequency",
-                  "n_thermal": "dimensionless"}
-    out = {}
-    for item in items:
-        name, sep, text = item.partition("=")
-        if not sep or not name.strip():
-            raise InputError(f"cannot read --prior {item!r}",
-                             hint="NAME=PRIOR, e.g. lifetime=loguniform:10us,1s")
-        name = name.strip()
-        out[name] = for_option(f"--prior {name}", parse_prior, text.strip(),
-                               dimensions.get(name, "dimensionless"), freq_hz=freq_hz)
-    return out
-
-
 def handle(args: argparse.Namespace) -> int:
     check_input_files(args.traces)
     from cavchar.fits.ringdown import DEFAULT_SETTINGS, fit_ringdown
@@ -145,7 +128,7 @@ def handle(args: argparse.Namespace) -> int:
         stage_temp_k=args.stage_temp,
         start_time=args.start_time,
         time_unit=args.time_unit,
-        priors=_priors(args.prior, args.freq),
+        priors=priors_from_args(args),
         settings=settings,
         initial=_initial(args.initial),
         n0=args.n0,

@@ -277,7 +277,8 @@ def _too_many_levels(trans, points: np.ndarray) -> InputError:
         f"{format_quantity(float(worst[0]), 'time')}), where the photon-number truncation "
         f"would need more than {MAX_SAMPLED_LEVELS} levels: the record "
         f"({trans.n_transitions} transitions between samples) does not constrain n_th",
-        hint="give a narrower --prior-n-thermal (e.g. loguniform:1e-6,3), or a longer record")
+        hint="give a narrower prior on n_thermal (e.g. n_thermal=loguniform:1e-6,3), or "
+             "a longer record")
 
 
 def _fit_sampled(record, specs, settings, initial, context, sampler):
