@@ -54,7 +54,7 @@ def absurd_result(absurd):
 
 
 def test_prior_bound_is_a_limit_in_cli_result_and_report(absurd, absurd_result):
-    from cavchar.fits.outputs import summary_text
+    from cavchar.outputs import summary_text
     from cavchar.report import render_report
     from cavchar.result import FitResult
 
@@ -215,9 +215,9 @@ def test_interval_texts_follow_the_pdg_rule():
 
 
 def test_iq_detuning_prints_the_digits_its_interval_needs():
-    from cavchar.fits.outputs import summary_text
     from cavchar.fits.ringdown import fit_ringdown
     from cavchar.inference import SamplerSettings
+    from cavchar.outputs import summary_text
     from cavchar.simulate import simulate_ringdown
 
     trace = simulate_ringdown("iq", np.linspace(0.0, 8e-3, 400), 2e-3, noise=0.05,
@@ -241,10 +241,10 @@ def test_iq_detuning_prints_the_digits_its_interval_needs():
 
 
 def test_every_parameter_carries_its_unit(tmp_path):
-    from cavchar.fits.outputs import summary_text
     from cavchar.fits.ringdown import fit_ringdown
     from cavchar.inference import SamplerSettings
     from cavchar.io.writers import write_ringdown, write_table
+    from cavchar.outputs import summary_text
     from cavchar.report import render_report
     from cavchar.result import FitResult
     from cavchar.simulate import simulate_ringdown

@@ -65,7 +65,7 @@ def test_the_fixture_loads_and_its_summary_works(tmp_path, capsys):
     result = FitResult.from_json(_write(tmp_path / "ok.json", BASE))
     assert result.n_draws == len(BASE["samples"]["lifetime"])
     assert "T_c" in result.one_line("lifetime")
-    from cavchar.fits.outputs import print_summary
+    from cavchar.outputs import print_summary
 
     print_summary(result)  # the fixture's partial Planck block is said, not a KeyError
     assert "Planck check: incomplete" in capsys.readouterr().out
@@ -78,7 +78,7 @@ def test_every_field_with_every_wrong_kind_loads_or_is_refused(tmp_path, capsys,
     """Hundreds of crafted files: each loads (a free-text field) or raises InputError
     naming the file; never another exception.  What loads must give its printed summary
     without an exception too."""
-    from cavchar.fits.outputs import print_summary
+    from cavchar.outputs import print_summary
 
     paths = sorted(set(_leaves(BASE)), key=str)
     tried = refused = loaded = 0

@@ -172,7 +172,7 @@ def _complete() -> list[str]:
 KILLER = textwrap.dedent("""
     import os, signal, sys
     from cavchar.result import FitResult
-    from cavchar.fits import outputs
+    from cavchar import outputs
 
     real = os.replace
     calls = []
@@ -189,7 +189,7 @@ KILLER = textwrap.dedent("""
 
 
 def test_kill_while_writing_leaves_no_result_without_its_set(tmp_path):
-    from cavchar.fits.outputs import INCOMPLETE_MARKER, write_fit_outputs
+    from cavchar.outputs import INCOMPLETE_MARKER, write_fit_outputs
 
     out = tmp_path / "out"
     run = subprocess.run([sys.executable, "-c", KILLER, str(FIXTURE), str(out)],
@@ -205,7 +205,7 @@ def test_kill_while_writing_leaves_no_result_without_its_set(tmp_path):
 
 def test_full_disk_leaves_a_set_a_rerun_finishes(tmp_path, monkeypatch):
     from cavchar.errors import InputError
-    from cavchar.fits.outputs import INCOMPLETE_MARKER, write_fit_outputs
+    from cavchar.outputs import INCOMPLETE_MARKER, write_fit_outputs
 
     out = tmp_path / "out"
     real = os.replace
@@ -246,7 +246,7 @@ def test_live_writers_temporaries_are_left_alone(tmp_path):
 @pytest.mark.slow  # writes the figures (several seconds)
 def test_command_line_outputs_after_a_crash(tmp_path, run_cli, monkeypatch):
     """A leftover marker from a crashed run: the fit command reruns without --force."""
-    from cavchar.fits.outputs import INCOMPLETE_MARKER
+    from cavchar.outputs import INCOMPLETE_MARKER
 
     monkeypatch.chdir(tmp_path)
     out = tmp_path / "fit_out"

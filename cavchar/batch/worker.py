@@ -1,7 +1,7 @@
 """What a Dask worker runs for one batch entry: the fit and its output files, as data.
 
 The worker writes nothing the user keeps: it fits, renders the single-fit outputs
-(:func:`cavchar.fits.outputs.write_fit_outputs`) into a private temporary folder,
+(:func:`cavchar.outputs.write_fit_outputs`) into a private temporary folder,
 reads them back as bytes and returns them with the result object.  The client
 writes them into the entry's folder and the log, so a cluster needs no shared
 output folder and the log has one writer.  Every failure of the fit becomes data
@@ -132,7 +132,7 @@ def run_entry(task: dict[str, Any]) -> dict[str, Any]:
 
 def _render(result, trajectory, figures: bool) -> dict[str, bytes]:
     """The single-fit output files as bytes (written into a private temporary folder)."""
-    from cavchar.fits.outputs import write_fit_outputs
+    from cavchar.outputs import write_fit_outputs
 
     with tempfile.TemporaryDirectory(prefix="cavchar-batch-") as tmp:
         folder = Path(tmp)

@@ -323,7 +323,7 @@ def check_log_target(args: argparse.Namespace) -> None:
 
 def finish_fit_command(result, args: argparse.Namespace) -> int:
     """Print the summary, write the outputs, log and report; return the exit code."""
-    from cavchar.fits.outputs import print_summary, write_fit_outputs
+    from cavchar.outputs import print_summary, write_fit_outputs
 
     print_summary(result)
     if args.out:

@@ -63,7 +63,7 @@ def _loop(batch: Path, out: Path) -> tuple[float, float]:
     """Wall time and CPU time (s) of the plain loop of in-process fits."""
     from cavchar.batch import read_batch_file
     from cavchar.batch.options import fit_from_argv
-    from cavchar.fits.outputs import write_fit_outputs
+    from cavchar.outputs import write_fit_outputs
 
     start, cpu = time.perf_counter(), time.process_time()
     for entry in read_batch_file(batch).entries:

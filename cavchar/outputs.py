@@ -12,7 +12,8 @@ from cavchar.errors import InputError
 from cavchar.io.atomic import check_can_write
 from cavchar.result import FitResult
 
-__all__ = ["print_summary", "summary_text", "sampler_text", "planck_statement", "write_fit_outputs",
+__all__ = ["print_summary", "summary_text", "sampler_text", "planck_statement",
+           "write_fit_outputs",
            "fit_figures"]
 
 #: kind prefix -> module with ``figures(result) -> dict[name, Figure]``
