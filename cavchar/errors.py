@@ -75,8 +75,11 @@ class ConvergenceError(CavcharError):
 
     exit_code = 3
 
-    def __init__(self, message: str, *, diagnostics: dict | None = None) -> None:
+    def __init__(self, message: str, *, diagnostics: dict | None = None,
+                 suggested_max_steps: int | None = None) -> None:
         self.diagnostics = diagnostics or {}
+        #: a step budget that would likely suffice (None: more steps would not help)
+        self.suggested_max_steps = suggested_max_steps
         super().__init__(message)
 
 

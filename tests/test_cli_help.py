@@ -108,3 +108,18 @@ def test_signal_words_are_the_same_in_every_command():
     fit = choices.pop("cavchar fit ringdown")
     for name, words in choices.items():
         assert words <= fit, f"{name} --signal: {sorted(words - fit)} not a fit word"
+
+
+@pytest.mark.parametrize("name", ["cavchar fit jumps", "cavchar fit ringdown",
+                                  "cavchar fit probes"])
+def test_sampler_defaults_in_help_are_those_of_the_settings(name):
+    """The defaults live in SamplerSettings; the help states them without importing the
+    sampler (--help stays light), so this test keeps the two in step."""
+    from cavchar.inference import SamplerSettings
+
+    kind = name.split()[-1]
+    settings = SamplerSettings.for_fit(kind)
+    actions = {a.dest: a for a in dict(PARSERS)[name]._actions}
+    assert actions["walkers"].default is None and actions["max_steps"].default is None
+    assert f"(unset: {settings.n_walkers})" in actions["walkers"].help
+    assert f"(unset: {settings.max_steps})" in actions["max_steps"].help

@@ -137,7 +137,10 @@ def test_too_few_steps_raise_convergence_error():
         sample_posterior(gauss_loglike, GAUSS_SPECS, [0.0, 0.0],
                          SamplerSettings(seed=1, max_steps=100, quiet=True))
     assert info.value.exit_code == 3
-    assert "--max-steps" in str(info.value) and "autocorrelation" in str(info.value)
+    # the sampler speaks of settings; the command line adds its option names
+    assert "--" not in str(info.value) and "autocorrelation" in str(info.value)
+    suggested = info.value.suggested_max_steps
+    assert suggested > 100 and f"{suggested} steps at most" in str(info.value)
     assert info.value.diagnostics["n_steps"] == 100
 
 

@@ -175,12 +175,7 @@ def command_text(kind: str, argv: list[str], seed: int) -> str:
 def _settings(args: argparse.Namespace, kind: str, check_every: int | None):
     from cavchar.cli.common import settings_from_args
 
-    settings = settings_from_args(args)
-    if kind == "ringdown":
-        from cavchar.fits.ringdown import DEFAULT_SETTINGS
-
-        settings = dataclasses.replace(settings, chunk=DEFAULT_SETTINGS.chunk,
-                                       target_ess=DEFAULT_SETTINGS.target_ess)
+    settings = settings_from_args(args, KINDS[kind][0])
     if check_every is not None:
         settings = dataclasses.replace(settings, chunk=int(check_every))
     return dataclasses.replace(settings, quiet=True)

@@ -103,10 +103,10 @@ def add_sampler_options(parser: argparse.ArgumentParser) -> None:
     """Seed and convergence options common to every fit."""
     parser.add_argument("--seed", type=whole(0, MAX_SEED), default=1,
                         help="random seed (stored in the result)")
-    parser.add_argument("--walkers", type=whole(4, MAX_WALKERS), default=32,
-                        help="number of ensemble walkers")
-    parser.add_argument("--max-steps", type=whole(100, MAX_STEPS), default=20000,
-                        help="largest number of sampler steps per walker")
+    parser.add_argument("--walkers", type=whole(4, MAX_WALKERS), default=None,
+                        help="number of ensemble walkers (unset: 32)")
+    parser.add_argument("--max-steps", type=whole(100, MAX_STEPS), default=None,
+                        help="largest number of sampler steps per walker (unset: 20000)")
     parser.add_argument("--allow-unconverged", action="store_true",
                         help="keep an unconverged chain (exit 0 with a warning instead of 3)")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
@@ -195,12 +195,15 @@ def for_option(flag: str, function: Callable, *args, **kwargs):
         raise InputError(f"{flag}: {exc.message}", line=exc.line, hint=exc.hint) from None
 
 
-def settings_from_args(args: argparse.Namespace):
-    """:class:`cavchar.inference.SamplerSettings` from the sampler options."""
+def settings_from_args(args: argparse.Namespace, kind: str | None = None):
+    """:class:`cavchar.inference.SamplerSettings` of fit ``kind`` from the sampler options:
+    options left unset keep the defaults of :meth:`SamplerSettings.for_fit`."""
     from cavchar.inference import SamplerSettings
 
-    return SamplerSettings(n_walkers=args.walkers, max_steps=args.max_steps, seed=args.seed,
-                           allow_unconverged=args.allow_unconverged, quiet=args.quiet)
+    given = {"n_walkers": args.walkers, "max_steps": args.max_steps}
+    return SamplerSettings.for_fit(kind, seed=args.seed, allow_unconverged=args.allow_unconverged,
+                                   quiet=args.quiet,
+                                   **{k: v for k, v in given.items() if v is not None})
 
 
 #: dimension of each parameter a ``--prior`` may name (others are dimensionless)

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import dataclasses
 import shlex
 import sys
 
@@ -114,13 +113,12 @@ def _initial(text: str | None):
 
 def handle(args: argparse.Namespace) -> int:
     check_input_files(args.traces)
-    from cavchar.fits.ringdown import DEFAULT_SETTINGS, fit_ringdown
+    from cavchar.fits.ringdown import fit_ringdown
     from cavchar.fits.ringdown_data import time_factor
 
     check_outputs(args)
     for_option("--time-unit", time_factor, args.time_unit)
-    settings = dataclasses.replace(settings_from_args(args), chunk=DEFAULT_SETTINGS.chunk,
-                                   target_ess=DEFAULT_SETTINGS.target_ess)
+    settings = settings_from_args(args, "ringdown")
     result = fit_ringdown(
         [laid_out(path, args) for path in args.traces],
         signal=args.signal,

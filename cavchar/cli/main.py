@@ -28,7 +28,7 @@ for _variable in ("OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
 
 from cavchar import __version__  # noqa: E402
 from cavchar.cli.common import HelpFormatter  # noqa: E402
-from cavchar.errors import CavcharError, CavcharWarning  # noqa: E402
+from cavchar.errors import CavcharError, CavcharWarning, ConvergenceError  # noqa: E402
 
 #: sub-command modules, in the order ``--help`` lists them
 COMMAND_MODULES = (
@@ -120,7 +120,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         try:
             return int(args.func(args) or 0)
         except CavcharError as exc:
-            print(f"{_prog(args)}: error: {clean_text(str(exc))}", file=sys.stderr)
+            print(f"{_prog(args)}: error: {clean_text(str(exc))}{_option_hint(exc)}",
+                  file=sys.stderr)
             return exc.exit_code
         except RecursionError:
             print(f"{_prog(args)}: error: an input file is nested too deeply to read "
@@ -143,6 +144,16 @@ def main(argv: Sequence[str] | None = None) -> int:
             print(f"cavchar: internal error ({type(exc).__name__}); please report it with the "
                   "traceback above", file=sys.stderr)
             return 1
+
+
+def _option_hint(exc: CavcharError) -> str:
+    """The command-line options that answer an unconverged run (the sampler's message
+    speaks of settings, not of options)."""
+    if not isinstance(exc, ConvergenceError):
+        return ""
+    steps = exc.suggested_max_steps
+    return (f" [on the command line: --max-steps {steps}, or --allow-unconverged]"
+            if steps else " [on the command line: --allow-unconverged]")
 
 
 def _prog(args: argparse.Namespace) -> str:

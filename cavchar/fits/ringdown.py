@@ -37,7 +37,7 @@ from cavchar.records import RingdownTrace
 __all__ = ["fit_ringdown", "ringdown_settings", "build_ringdown_model", "DEFAULT_SETTINGS"]
 
 #: sampler defaults of ring-down fits: >= 2000 effective draws, frequent convergence checks
-DEFAULT_SETTINGS = SamplerSettings(chunk=200, target_ess=2000)
+DEFAULT_SETTINGS = SamplerSettings.for_fit("ringdown")
 #: BIC difference above which a power fit warns that two exponentials describe it better
 TWO_EXPONENTIAL_WARNING = 10.0
 

@@ -50,6 +50,11 @@ LogLikelihood = Callable[[np.ndarray], np.ndarray]
 _MOVES = ("de", "stretch", "de-snooker")
 
 
+#: sampler settings that differ from the :class:`SamplerSettings` defaults, per fit kind
+#: (ring-down posteriors are cheap and well-shaped: frequent checks, more effective draws)
+FIT_KIND_DEFAULTS: dict[str, dict[str, Any]] = {"ringdown": {"chunk": 200, "target_ess": 2000}}
+
+
 @dataclass(frozen=True)
 class SamplerSettings:
     """Settings of :func:`sample_posterior` (all stored in the result).
@@ -107,13 +112,20 @@ class SamplerSettings:
     allow_unconverged: bool = False
     quiet: bool = False
 
+    @classmethod
+    def for_fit(cls, kind: str | None = None, **changes: Any) -> SamplerSettings:
+        """The defaults of a fit kind (:data:`FIT_KIND_DEFAULTS`, e.g. ring-down fits check
+        convergence more often and want 2,000 effective draws) with ``changes`` applied;
+        the one place where sampler defaults live."""
+        return cls(**{**FIT_KIND_DEFAULTS.get(kind or "", {}), **changes})
+
     def __post_init__(self) -> None:
         def bad(message: str, hint: str | None = None) -> InputError:
             return InputError(f"sampler settings: {message}", hint=hint)
 
         if int(self.n_walkers) != self.n_walkers or self.n_walkers < 4 or self.n_walkers % 2:
             raise bad(f"the number of walkers must be an even integer >= 4, got "
-                      f"{self.n_walkers}", hint="e.g. --walkers 32")
+                      f"{self.n_walkers}", hint="e.g. 32 walkers")
         if int(self.max_steps) != self.max_steps or self.max_steps < 1:
             raise bad(f"max_steps must be a positive integer, got {self.max_steps}")
         if int(self.chunk) != self.chunk or self.chunk < 1:
@@ -478,9 +490,10 @@ def sample_posterior(
         warnings.warn(f"low mean acceptance fraction {acc.mean():.3f}: the posterior may be "
                       "multimodal or badly scaled", ConvergenceWarning, stacklevel=2)
     if not converged:
-        message = _failure_message(check["failed"], n_steps, tau, settings)
+        message, suggestion = _failure_message(check["failed"], n_steps, tau, settings)
         if not settings.allow_unconverged:
-            raise ConvergenceError(message, diagnostics=diagnostics)
+            raise ConvergenceError(message, diagnostics=diagnostics,
+                                   suggested_max_steps=suggestion)
         warnings.warn(message + " (kept because unconverged runs are allowed)",
                       ConvergenceWarning, stacklevel=2)
     return PosteriorRun(specs=space.specs, draws=draws, log_posterior=flat_lp,
@@ -490,17 +503,20 @@ def sample_posterior(
 
 
 def _failure_message(failed: list[str], n_steps: int, tau: np.ndarray,
-                     settings: SamplerSettings) -> str:
+                     settings: SamplerSettings) -> tuple[str, int | None]:
+    """The message of an unconverged run (in the sampler's own terms; the command line
+    adds its option names) and a step budget that would likely suffice."""
     finite = tau[np.isfinite(tau)]
     text = f"the sampler did not converge in {n_steps} steps: " + "; ".join(failed) + "."
+    suggestion = None
     if finite.size:
         need = (settings.min_tau_multiple + settings.burn_in_taus) * finite.max()
         suggestion = _round_up(max(2 * n_steps, 1.5 * need))
-        text += f" Run longer, e.g. --max-steps {suggestion}"
+        text += f" Run longer, e.g. {suggestion} steps at most"
     else:
         text += " Check the model and priors (a parameter does not move)"
-    text += ", or pass --allow-unconverged to keep this chain anyway."
-    return text
+    text += ", or allow unconverged runs to keep this chain anyway."
+    return text, suggestion
 
 
 def _round_up(value: float) -> int:
