@@ -31,7 +31,7 @@ from cavchar.fits.ringdown_data import RingdownData, decay_check, prepare
 from cavchar.inference import SamplerSettings
 from cavchar.inference.importance import sample_posterior_auto
 from cavchar.parameters import ParameterSpec
-from cavchar.priors import LogUniform, Prior, Uniform
+from cavchar.priors import Prior
 from cavchar.records import RingdownTrace
 
 __all__ = ["fit_ringdown", "ringdown_settings", "build_ringdown_model", "DEFAULT_SETTINGS"]
@@ -104,20 +104,18 @@ def _unit_of(name: str, units: Mapping[str, str]) -> str | None:
 def _specs(model, priors: Mapping[str, Prior] | None,
            units: Mapping[str, str] | None = None) -> list[ParameterSpec]:
     priors = dict(priors or {})
-    names = [p.name for p in model.parameters]
+    names = [s.name for s in model.specs]
     unknown = sorted(set(priors) - set(names))
     if unknown:
         raise InputError(f"no parameter {', '.join(unknown)} in this model",
                          hint=f"parameters: {', '.join(names)}")
     specs = []
-    for info in model.parameters:
-        prior = priors.get(info.name)
-        if prior is None:
-            prior = (LogUniform(info.low, info.high) if info.log_scale
-                     else Uniform(info.low, info.high))
-        log_scale = info.log_scale and prior.support[0] >= 0
-        unit = info.unit or _unit_of(info.name, units or {}) or ""
-        specs.append(ParameterSpec(info.name, unit, info.label, prior, log_scale=log_scale))
+    for default in model.specs:
+        prior = priors.get(default.name, default.prior)
+        log_scale = default.log_scale and prior.support[0] >= 0
+        unit = default.unit or _unit_of(default.name, units or {}) or ""
+        specs.append(ParameterSpec(default.name, unit, default.label, prior,
+                                   log_scale=log_scale))
     return specs
 
 
@@ -210,7 +208,8 @@ def fit_ringdown(
     priors
         Priors by parameter name (e.g. ``{"lifetime": LogUniform(1e-4, 1)}``);
         the others default to log-uniform (uniform for signed or bounded
-        parameters) on the ranges of :class:`~cavchar.models.ringdown_base.ParameterInfo`.
+        parameters) on the ranges of each model's ``specs``
+        (:func:`cavchar.models.ringdown_base.default_spec`).
     settings, seed
         Sampler settings (default :data:`DEFAULT_SETTINGS`); ``seed`` overrides theirs.
     initial

@@ -16,8 +16,9 @@ signal          model                                                 module
 
 Every model offers the same interface:
 
-* ``parameters``: tuple of :class:`~cavchar.models.ringdown_base.ParameterInfo`
-  (sampled parameters, physical units, default prior bounds);
+* ``specs``: tuple of :class:`~cavchar.parameters.ParameterSpec` (sampled
+  parameters, physical units, default priors; see
+  :func:`~cavchar.models.ringdown_base.default_spec`);
 * ``log_likelihood(theta)``: batched ``(k, ndim) -> (k,)``, ``-inf`` outside the
   support, never NaN;
 * ``initial_guess()``: the least-squares start (variable projection where
@@ -35,7 +36,7 @@ from typing import Any
 
 import numpy as np
 
-from cavchar.models.ringdown_base import DecaySeries, ParameterInfo
+from cavchar.models.ringdown_base import DecaySeries, default_spec
 from cavchar.models.ringdown_complex import IQDecay, MagnitudeDecay, rice_logpdf
 from cavchar.models.ringdown_counts import MeanPhotonDecay, PopulationDecay, fock_populations
 from cavchar.models.ringdown_db import DecibelDecay
@@ -50,7 +51,7 @@ __all__ = [
     "SIGNALS",
     "build_model",
     "DecaySeries",
-    "ParameterInfo",
+    "default_spec",
     "PowerDecay",
     "TwoExponentialPower",
     "DecibelDecay",

@@ -1,5 +1,5 @@
-"""Pieces shared by the ring-down models: the data container, parameter
-descriptions and numerically safe Gaussian / Student-t interval probabilities."""
+"""Pieces shared by the ring-down models: the data container, the default parameter
+specifications and numerically safe Gaussian / Student-t interval probabilities."""
 
 from __future__ import annotations
 
@@ -11,7 +11,10 @@ import numpy as np
 from numpy.typing import ArrayLike
 from scipy import special
 
-__all__ = ["DecaySeries", "ParameterInfo", "log_interval_probability", "draw_truncated",
+from cavchar.parameters import ParameterSpec
+from cavchar.priors import LogUniform, Uniform
+
+__all__ = ["DecaySeries", "default_spec", "log_interval_probability", "draw_truncated",
            "as_batch", "amplitude_bound"]
 
 
@@ -64,21 +67,13 @@ class DecaySeries:
         return np.ones(self.n) if self.sigma is None else 1.0 / self.sigma**2
 
 
-@dataclass(frozen=True)
-class ParameterInfo:
-    """Description of one sampled parameter (the fit layer turns it into a ParameterSpec).
-
-    ``low`` and ``high`` are the default prior bounds (physical units);
-    ``log_scale`` says the default prior is log-uniform on them.
-    """
-
-    name: str
-    unit: str
-    label: str
-    low: float
-    high: float
-    log_scale: bool = True
-    description: str = ""
+def default_spec(name: str, unit: str, label: str, low: float, high: float,
+                 log_scale: bool = True) -> ParameterSpec:
+    """A sampled parameter of a ring-down model with its default prior: log-uniform on
+    ``[low, high]`` (physical units) when ``log_scale``, else uniform.  The fit layer
+    replaces the prior with the user's and fills in a data unit where ``unit`` is empty."""
+    prior = LogUniform(low, high) if log_scale else Uniform(low, high)
+    return ParameterSpec(name, unit, label, prior, log_scale=log_scale)
 
 
 def as_batch(theta: ArrayLike, ndim: int) -> np.ndarray:

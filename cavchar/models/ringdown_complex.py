@@ -55,9 +55,9 @@ from scipy import optimize, special
 from cavchar.decay import rice_logpdf
 from cavchar.models.ringdown_base import (
     DecaySeries,
-    ParameterInfo,
     amplitude_bound,
     as_batch,
+    default_spec,
 )
 from cavchar.models.ringdown_lsq import fit_exponentials
 from cavchar.models.ringdown_power import default_lifetime_bounds
@@ -88,15 +88,12 @@ class MagnitudeDecay:
         low, high = default_lifetime_bounds([series])
         top = float(self.m.max())
         params = [
-            ParameterInfo("lifetime", "s", "T_c", low, high, True,
-                          "energy lifetime 1/kappa (the magnitude decays in 2 T_c)"),
-            ParameterInfo("amplitude", "", "a", 1e-6 * top, 1e3 * top, True,
-                          "field magnitude at t0 (data units)"),
+            default_spec("lifetime", "s", "T_c", low, high, True),
+            default_spec("amplitude", "", "a", 1e-6 * top, 1e3 * top, True),
         ]
         if self.fitted_sigma:
-            params.append(ParameterInfo("sigma", "", "sigma", 1e-6 * top, 1e2 * top, True,
-                                        "noise sd per quadrature (data units)"))
-        self.parameters = tuple(params)
+            params.append(default_spec("sigma", "", "sigma", 1e-6 * top, 1e2 * top, True))
+        self.specs = tuple(params)
 
     @property
     def ndim(self) -> int:
@@ -213,15 +210,12 @@ class IQDecay:
         nyquist = 0.5 / float(np.median(np.diff(np.sort(self.tau))))
         top = float(np.abs(self.z).max())
         params = [
-            ParameterInfo("lifetime", "s", "T_c", low, high, True,
-                          "energy lifetime 1/kappa (the field decays in 2 T_c)"),
-            ParameterInfo("detuning", "Hz", "delta", -nyquist, nyquist, False,
-                          "frequency of the mode relative to the demodulation frequency"),
+            default_spec("lifetime", "s", "T_c", low, high, True),
+            default_spec("detuning", "Hz", "delta", -nyquist, nyquist, False),
         ]
         if self.fitted_sigma:
-            params.append(ParameterInfo("sigma", "", "sigma", 1e-6 * top, 1e2 * top, True,
-                                        "noise sd per quadrature (data units)"))
-        self.parameters = tuple(params)
+            params.append(default_spec("sigma", "", "sigma", 1e-6 * top, 1e2 * top, True))
+        self.specs = tuple(params)
 
     @property
     def ndim(self) -> int:

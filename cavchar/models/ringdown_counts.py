@@ -50,7 +50,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 from scipy import special
 
-from cavchar.models.ringdown_base import DecaySeries, ParameterInfo, as_batch
+from cavchar.models.ringdown_base import DecaySeries, as_batch, default_spec
 from cavchar.models.ringdown_lsq import fit_exponentials
 from cavchar.models.ringdown_power import RATE_HEADROOM, default_lifetime_bounds
 from cavchar.models.ringdown_shared import fit_shared_rate
@@ -93,10 +93,9 @@ class MeanPhotonDecay:
         top = max(float(np.max(s.values)) for s in self.series)
         self.start = np.array([1.0 / rate, max(floor, 1e-3 * max(top, 1e-3))])
         low, high = default_lifetime_bounds(self.series)
-        self.parameters = (
-            ParameterInfo("lifetime", "s", "T_c", low, high, True, "energy lifetime 1/kappa"),
-            ParameterInfo("n_thermal", "", "n_th", 1e-6, max(10.0, 10 * top), True,
-                          "mean thermal photon number"),
+        self.specs = (
+            default_spec("lifetime", "s", "T_c", low, high, True),
+            default_spec("n_thermal", "", "n_th", 1e-6, max(10.0, 10 * top), True),
         )
         self._const = []
         for s, fitted in zip(self.series, self.fitted_sigma, strict=True):
@@ -285,10 +284,9 @@ class PopulationDecay:
             t_start, n_start = 0.3 * float(np.ptp(self.tau)) or 1.0, 0.05
         self.start = np.array([t_start, n_start])
         low, high = default_lifetime_bounds([start_series])
-        self.parameters = (
-            ParameterInfo("lifetime", "s", "T_c", low, high, True, "energy lifetime 1/kappa"),
-            ParameterInfo("n_thermal", "", "n_th", 1e-6, 10.0, True,
-                          "mean thermal photon number"),
+        self.specs = (
+            default_spec("lifetime", "s", "T_c", low, high, True),
+            default_spec("n_thermal", "", "n_th", 1e-6, 10.0, True),
         )
 
     @property

@@ -23,7 +23,7 @@ import math
 import numpy as np
 from scipy import optimize, special
 
-from cavchar.models.ringdown_base import DecaySeries, ParameterInfo, as_batch
+from cavchar.models.ringdown_base import DecaySeries, as_batch, default_spec
 from cavchar.models.ringdown_lsq import fit_exponentials
 from cavchar.models.ringdown_power import default_lifetime_bounds
 
@@ -65,12 +65,10 @@ class DecibelDecay:
         low, high = default_lifetime_bounds([series])
         peak = float(10 ** (self.y.max() / 10))
         base = float(10 ** (self.y.min() / 10))
-        self.parameters = (
-            ParameterInfo("lifetime", "s", "T_c", low, high, True, "energy lifetime 1/kappa"),
-            ParameterInfo("amplitude", "", "A", 1e-6 * peak, 1e3 * peak, True,
-                          "power at t0 above the floor, linear units of the dB reference"),
-            ParameterInfo("floor", "", "F", 1e-9 * base, 1e3 * peak, True,
-                          "noise floor, linear units of the dB reference"),
+        self.specs = (
+            default_spec("lifetime", "s", "T_c", low, high, True),
+            default_spec("amplitude", "", "A", 1e-6 * peak, 1e3 * peak, True),
+            default_spec("floor", "", "F", 1e-9 * base, 1e3 * peak, True),
         )
 
     @property

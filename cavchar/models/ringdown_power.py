@@ -59,9 +59,9 @@ from scipy import special
 
 from cavchar.models.ringdown_base import (
     DecaySeries,
-    ParameterInfo,
     amplitude_bound,
     as_batch,
+    default_spec,
     draw_truncated,
     log_interval_probability,
 )
@@ -142,7 +142,7 @@ class PowerDecay:
 
     Attributes
     ----------
-    parameters : tuple of ParameterInfo
+    parameters : tuple of default_spec
         ``lifetime`` (``T_c``, s) only.
     start : ExponentialFit or SharedRateFit
         The least-squares fit the model was set up from.
@@ -193,8 +193,7 @@ class PowerDecay:
         self._const = np.array([self._constant(s, f) for s, f in
                                 zip(self.series, fitted, strict=True)])
         low, high = default_lifetime_bounds(self.series)
-        self.parameters = (ParameterInfo("lifetime", "s", "T_c", low, high, True,
-                                         "energy lifetime 1/kappa"),)
+        self.specs = (default_spec("lifetime", "s", "T_c", low, high, True),)
 
     @staticmethod
     def _constant(s: DecaySeries, fitted: bool) -> float:

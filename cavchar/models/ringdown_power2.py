@@ -15,7 +15,7 @@ import numpy as np
 from numba import njit
 from scipy import special
 
-from cavchar.models.ringdown_base import DecaySeries, ParameterInfo, amplitude_bound, as_batch
+from cavchar.models.ringdown_base import DecaySeries, amplitude_bound, as_batch, default_spec
 from cavchar.models.ringdown_lsq import fit_exponentials
 from cavchar.models.ringdown_power import default_lifetime_bounds
 from cavchar.models.ringdown_sums import ExponentialSums
@@ -73,14 +73,11 @@ class TwoExponentialPower:
         self.sums = ExponentialSums(series.tau, series.values - self._shift, series.weights(),
                                     rate_limit=limit)
         low, high = default_lifetime_bounds([series])
-        self.parameters = (
-            ParameterInfo("lifetime", "s", "T_1", low, high, True,
-                          "slower energy lifetime (the column named lifetime)"),
-            ParameterInfo("lifetime_fast", "s", "T_2", low, high, True, "faster energy lifetime"),
-            ParameterInfo("amplitude", "", "A_1", 0.0, self.amplitude_max, False,
-                          "amplitude of the slower decay at t0"),
-            ParameterInfo("amplitude_fast", "", "A_2", 0.0, self.amplitude_max, False,
-                          "amplitude of the faster decay at t0"),
+        self.specs = (
+            default_spec("lifetime", "s", "T_1", low, high, True),
+            default_spec("lifetime_fast", "s", "T_2", low, high, True),
+            default_spec("amplitude", "", "A_1", 0.0, self.amplitude_max, False),
+            default_spec("amplitude_fast", "", "A_2", 0.0, self.amplitude_max, False),
         )
         n = series.n
         if self.fitted_sigma:

@@ -67,13 +67,8 @@ def bench_least_squares(n: int, repeats: int) -> float:
 def _posterior(t, y, seed, compress=True):
     from cavchar.inference import SamplerSettings, sample_posterior
     from cavchar.models.ringdown import DecaySeries, PowerDecay
-    from cavchar.parameters import ParameterSpec
-    from cavchar.priors import LogUniform
-
     model = PowerDecay([DecaySeries.from_times(t, y, None)], compress=compress)
-    info = model.parameters[0]
-    spec = ParameterSpec(info.name, info.unit, info.label, LogUniform(info.low, info.high),
-                         info.log_scale)
+    spec = model.specs[0]
     settings = SamplerSettings(seed=seed, quiet=True, target_ess=2000, chunk=200)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
