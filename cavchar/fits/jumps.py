@@ -22,8 +22,9 @@ from cavchar.fits.common import FitContext, finish_fit, sampler_settings
 from cavchar.inference import SamplerSettings
 from cavchar.inference.importance import sample_posterior_auto
 from cavchar.models.jumps import (
+    ExactJumpModel,
+    SampledJumpModel,
     dwell_times,
-    exact_log_likelihood,
     jump_statistics,
     sampled_log_likelihood,
     sampled_transitions,
@@ -85,16 +86,6 @@ def _read(record, sampled: bool, end_time: float | None, columns=None, layout=No
         return read_sampled_record(record, columns=columns, layout=layout)
     return read_jump_record(record, end_time=end_time, columns=columns, layout=layout,
                             exact_rows=exact_rows or None)
-
-
-def _exact_guess(stats) -> tuple[float, float]:
-    """Maximum-likelihood start: a = U / A_1, b = D / A_0, kappa = b - a, n_th = a / kappa."""
-    a = max(stats.up, 0.5) / stats.time_n_plus_1
-    b = max(stats.down, 0.5) / max(stats.time_n, 1e-300)
-    if not (math.isfinite(b) and b > 2 * a):
-        b = 2 * a + 1.0 / stats.duration
-    kappa = b - a
-    return 1.0 / kappa, a / kappa
 
 
 def _sampled_guess(record: SampledRecord) -> tuple[float, float]:
@@ -193,10 +184,9 @@ def _fit_exact(record, specs, settings, initial, context, sampler):
                       "reflects the prior (the intervals below say how little is known)",
                       PriorDominatedWarning, stacklevel=3)
 
-    def log_likelihood(theta: np.ndarray) -> np.ndarray:
-        return exact_log_likelihood(stats, theta[:, 0], theta[:, 1], initial=initial)
-
-    run = sample_posterior_auto(log_likelihood, specs, _exact_guess(stats), settings, sampler)
+    model = ExactJumpModel(stats, tuple(specs), initial)
+    run = sample_posterior_auto(model.log_likelihood, specs, model.initial_guess(), settings,
+                                sampler)
     durations, states, complete = dwell_times(record.time, record.photons, record.end_time,
                                               record.segment)
     rng = np.random.default_rng(np.random.SeedSequence(run.settings.seed).spawn(4)[3])
@@ -290,12 +280,9 @@ def _fit_sampled(record, specs, settings, initial, context, sampler):
     probe = np.array([guess, (guess[0], 3.0 * guess[1]), (0.3 * guess[0], guess[1])])
     n_levels, _ = _levels_for(trans, probe, initial, trans.n_max + 3)
     for _attempt in range(3):
-
-        def log_likelihood(theta: np.ndarray, n_levels=n_levels) -> np.ndarray:
-            return sampled_log_likelihood(trans, theta[:, 0], theta[:, 1], n_levels,
-                                          initial=initial)
-
-        run = sample_posterior_auto(log_likelihood, specs, guess, settings, sampler)
+        model = SampledJumpModel(trans, tuple(specs), n_levels, guess, initial)
+        run = sample_posterior_auto(model.log_likelihood, specs, model.initial_guess(),
+                                    settings, sampler)
         # check the truncation where the posterior reaches its largest n_th
         extreme = run.draws[np.argsort(run.draws[:, 1])[-20:]]
         needed, error = _levels_for(trans, np.vstack([extreme, run.map]), initial, n_levels)

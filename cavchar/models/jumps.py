@@ -33,12 +33,14 @@ every step.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import ArrayLike
 
 from cavchar.dynamics import bose_einstein, symmetric_eigen_batch
+from cavchar.parameters import ParameterSpec
 
 __all__ = [
     "JumpStatistics",
@@ -50,6 +52,8 @@ __all__ = [
     "sampled_log_likelihood",
     "dwell_times",
     "exact_fisher_information",
+    "ExactJumpModel",
+    "SampledJumpModel",
 ]
 
 
@@ -300,6 +304,52 @@ def sampled_log_likelihood(
         raise ValueError("initial must be 'conditional' or 'stationary'")
     out[ok] = np.where(np.isnan(total), -np.inf, total)
     return out
+
+
+@dataclass(frozen=True)
+class ExactJumpModel:
+    """Likelihood model of an exact record (:mod:`cavchar.models.protocol`): parameters
+    ``(T_c [s], n_th)``, :func:`exact_log_likelihood` of the record's statistics."""
+
+    stats: JumpStatistics
+    specs: tuple[ParameterSpec, ...]
+    initial: str = "conditional"
+
+    def log_likelihood(self, theta: np.ndarray) -> np.ndarray:
+        theta = np.asarray(theta, dtype=float)
+        return exact_log_likelihood(self.stats, theta[:, 0], theta[:, 1], initial=self.initial)
+
+    def initial_guess(self) -> np.ndarray:
+        """Maximum-likelihood rates ``a = U / A_1``, ``b = D / A_0`` (half a jump when
+        there is none), then ``kappa = b - a``, ``n_th = a / kappa``."""
+        stats = self.stats
+        a = max(stats.up, 0.5) / stats.time_n_plus_1
+        b = max(stats.down, 0.5) / max(stats.time_n, 1e-300)
+        if not (math.isfinite(b) and b > 2 * a):
+            b = 2 * a + 1.0 / stats.duration
+        kappa = b - a
+        return np.array([1.0 / kappa, a / kappa])
+
+
+@dataclass(frozen=True)
+class SampledJumpModel:
+    """Likelihood model of a sampled record (:mod:`cavchar.models.protocol`): parameters
+    ``(T_c [s], n_th)``, :func:`sampled_log_likelihood` with ``n_levels`` levels;
+    ``guess`` is the start the fit computed from the record's mean relaxation."""
+
+    transitions: SampledTransitions
+    specs: tuple[ParameterSpec, ...]
+    n_levels: int
+    guess: tuple[float, float]
+    initial: str = "conditional"
+
+    def log_likelihood(self, theta: np.ndarray) -> np.ndarray:
+        theta = np.asarray(theta, dtype=float)
+        return sampled_log_likelihood(self.transitions, theta[:, 0], theta[:, 1],
+                                      self.n_levels, initial=self.initial)
+
+    def initial_guess(self) -> np.ndarray:
+        return np.asarray(self.guess, dtype=float)
 
 
 def dwell_times(
