@@ -146,7 +146,7 @@ def test_population_goodness_of_fit_is_a_bootstrap_with_honest_cells():
     # count of degrees of freedom is claimed (each delay's counts sum to its shots), and
     # the cells expecting less than one count are counted, not hidden
     from cavchar.fits.ringdown_checks import residual_diagnostics
-    from cavchar.models.ringdown_counts import PopulationDecay
+    from cavchar.models.ringdown.photon_number import PopulationDecay
     from cavchar.simulate import simulate_ringdown
 
     trace = simulate_ringdown("populations", np.linspace(0.0, 3e-3, 16), 1e-3, n_th=0.05,

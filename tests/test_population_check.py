@@ -17,7 +17,7 @@ from cavchar.fits.population_check import (
     population_cell_probabilities,
     population_goodness_of_fit,
 )
-from cavchar.models.ringdown_counts import PopulationDecay
+from cavchar.models.ringdown.photon_number import PopulationDecay
 
 LIFETIME = 1.0e-3  # s
 N_TH = 0.1

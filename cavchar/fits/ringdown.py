@@ -209,7 +209,7 @@ def fit_ringdown(
         Priors by parameter name (e.g. ``{"lifetime": LogUniform(1e-4, 1)}``);
         the others default to log-uniform (uniform for signed or bounded
         parameters) on the ranges of each model's ``specs``
-        (:func:`cavchar.models.ringdown_base.default_spec`).
+        (:func:`cavchar.models.ringdown.series.default_spec`).
     settings, seed
         Sampler settings (default :data:`DEFAULT_SETTINGS`); ``seed`` overrides theirs.
     initial

@@ -166,7 +166,7 @@ def posterior_curves(model, signal: str, draws: np.ndarray, nuisance: dict, thet
     sub_nuis = {k: np.asarray(v)[pick] for k, v in nuisance.items()}
     qs = [0.025, 0.16, 0.5, 0.84, 0.975]
     if signal == "populations":
-        from cavchar.models.ringdown_counts import fock_populations
+        from cavchar.models.ringdown.photon_number import fock_populations
 
         pops = fock_populations(sub_theta[:, 0], sub_theta[:, 1], model.p0, model.tau,
                                 model.n_levels)

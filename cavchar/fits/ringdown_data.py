@@ -25,7 +25,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from cavchar.errors import CavcharWarning, InputError
-from cavchar.models.ringdown_base import DecaySeries
+from cavchar.models.ringdown.series import DecaySeries
 from cavchar.records import RingdownTrace
 
 __all__ = ["RingdownData", "load_traces", "prepare", "decay_check", "MIN_POINTS",
@@ -225,9 +225,9 @@ def decay_check(data: RingdownData) -> dict:
     :data:`DECAY_SIGNIFICANCE` standard errors, when the best decay is at the
     slow end of the search (far slower than the record) or at the fast end
     (faster than the sampling).  Returns a plain-JSON summary per trace and the
-    fits (:class:`~cavchar.models.ringdown_lsq.ExponentialFit`), for reuse.
+    fits (:class:`~cavchar.models.ringdown.least_squares.ExponentialFit`), for reuse.
     """
-    from cavchar.models.ringdown_lsq import fit_exponentials
+    from cavchar.models.ringdown.least_squares import fit_exponentials
 
     out, fits = [], []
     for s in data.series:

@@ -41,7 +41,7 @@ def _trace(n, seed, lifetime=0.2, amp=3.0, floor=0.1, sigma=0.5, span=1.0):
 def bench_least_squares(n: int, repeats: int) -> float:
     from scipy.optimize import curve_fit
 
-    from cavchar.models.ringdown_lsq import fit_exponentials
+    from cavchar.models.ringdown.least_squares import fit_exponentials
 
     t, y = _trace(n, 1)
 

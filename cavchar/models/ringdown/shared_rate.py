@@ -1,7 +1,7 @@
 """One decay rate shared by several traces, each with its own amplitude and floor.
 
 Least-squares start of the joint fits (repeated ring-downs of one mode): the
-profiled objective of :func:`cavchar.models.ringdown_lsq.profile_objective`
+profiled objective of :func:`cavchar.models.ringdown.least_squares.profile_objective`
 summed over the traces, minimized over the shared rate.
 """
 
@@ -15,13 +15,13 @@ import numpy as np
 from numpy.typing import ArrayLike
 from scipy import optimize
 
-from cavchar.models.ringdown_lsq import (
+from cavchar.models.ringdown.exponential_sums import ExponentialSums
+from cavchar.models.ringdown.least_squares import (
     fit_exponentials,
     gram_matrices,
     profile_objective,
     validate_trace,
 )
-from cavchar.models.ringdown_sums import ExponentialSums
 
 __all__ = ["SharedRateFit", "fit_shared_rate"]
 

@@ -3,7 +3,7 @@
 Model: ``A_1 e^{-tau/T_1} + A_2 e^{-tau/T_2} + F`` (``T_1 > T_2``, two close
 modes or a mixed decay).  The amplitudes are sampled (uniform priors on
 ``[0, A_max]``); the floor is marginalized with a flat prior and an unknown
-noise scale with the prior ``1/sigma`` as in :mod:`cavchar.models.ringdown_power`.
+noise scale with the prior ``1/sigma`` as in :mod:`cavchar.models.ringdown.power`.
 """
 
 from __future__ import annotations
@@ -15,10 +15,10 @@ import numpy as np
 from numba import njit
 from scipy import special
 
-from cavchar.models.ringdown_base import DecaySeries, amplitude_bound, as_batch, default_spec
-from cavchar.models.ringdown_lsq import fit_exponentials
-from cavchar.models.ringdown_power import default_lifetime_bounds
-from cavchar.models.ringdown_sums import ExponentialSums
+from cavchar.models.ringdown.exponential_sums import ExponentialSums
+from cavchar.models.ringdown.least_squares import fit_exponentials
+from cavchar.models.ringdown.power import default_lifetime_bounds
+from cavchar.models.ringdown.series import DecaySeries, amplitude_bound, as_batch, default_spec
 
 __all__ = ["TwoExponentialPower", "ModelComparison", "compare_exponentials"]
 

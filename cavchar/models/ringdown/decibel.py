@@ -23,9 +23,9 @@ import math
 import numpy as np
 from scipy import optimize, special
 
-from cavchar.models.ringdown_base import DecaySeries, as_batch, default_spec
-from cavchar.models.ringdown_lsq import fit_exponentials
-from cavchar.models.ringdown_power import default_lifetime_bounds
+from cavchar.models.ringdown.least_squares import fit_exponentials
+from cavchar.models.ringdown.power import default_lifetime_bounds
+from cavchar.models.ringdown.series import DecaySeries, as_batch, default_spec
 
 __all__ = ["DecibelDecay", "db_model"]
 

@@ -53,15 +53,15 @@ import numpy as np
 from scipy import optimize, special
 
 from cavchar.decay import rice_logpdf
-from cavchar.models.ringdown_base import (
+from cavchar.models.ringdown.exponential_sums import ExponentialSums
+from cavchar.models.ringdown.least_squares import fit_exponentials
+from cavchar.models.ringdown.power import default_lifetime_bounds
+from cavchar.models.ringdown.series import (
     DecaySeries,
     amplitude_bound,
     as_batch,
     default_spec,
 )
-from cavchar.models.ringdown_lsq import fit_exponentials
-from cavchar.models.ringdown_power import default_lifetime_bounds
-from cavchar.models.ringdown_sums import ExponentialSums
 
 __all__ = ["rice_logpdf", "MagnitudeDecay", "IQDecay"]
 

@@ -11,7 +11,7 @@ Marginal likelihood of ``T_c`` (derivation)
 -------------------------------------------
 For fixed ``r`` the model is linear in ``c = (A, F)``.  With ``G`` the
 weighted Gram matrix and ``b`` the right side (from the exponential sums
-:mod:`cavchar.models.ringdown_sums`: ``G = [[S_w(2r), S_w(r)], [S_w(r), S_w(0)]]``,
+:mod:`cavchar.models.ringdown.exponential_sums`: ``G = [[S_w(2r), S_w(r)], [S_w(r), S_w(0)]]``,
 ``b = (S_y(r), S_y(0))``), completing the square gives exactly
 
     sum_i w_i (y_i - A e_i - F)^2 = RSS(r) + (c - c_hat)^T G (c - c_hat),
@@ -45,7 +45,7 @@ amplitudes, floors and noise): ``A | r`` truncated normal (known noise) or
 truncated Student-t; ``sigma^2 | A, r = (RSS + (A - A_hat)^2 / V_AA) / chi^2_{n-1}``;
 ``F | A, sigma, r ~ N(F_hat - (G_AF/G_FF)(A - A_hat), sigma^2 / G_FF)``.
 
-Two exponentials and the comparison with one: :mod:`cavchar.models.ringdown_power2`.
+Two exponentials and the comparison with one: :mod:`cavchar.models.ringdown.two_exponentials`.
 """
 
 from __future__ import annotations
@@ -57,7 +57,9 @@ import numpy as np
 from numba import njit
 from scipy import special
 
-from cavchar.models.ringdown_base import (
+from cavchar.models.ringdown.exponential_sums import ExponentialSums, _real_moment_sums
+from cavchar.models.ringdown.least_squares import fit_exponentials
+from cavchar.models.ringdown.series import (
     DecaySeries,
     amplitude_bound,
     as_batch,
@@ -65,9 +67,7 @@ from cavchar.models.ringdown_base import (
     draw_truncated,
     log_interval_probability,
 )
-from cavchar.models.ringdown_lsq import fit_exponentials
-from cavchar.models.ringdown_shared import fit_shared_rate
-from cavchar.models.ringdown_sums import ExponentialSums, _real_moment_sums
+from cavchar.models.ringdown.shared_rate import fit_shared_rate
 
 
 @njit(cache=True, nogil=True)
@@ -135,10 +135,10 @@ class PowerDecay:
         times the range of that trace's values).
     compress
         Use the compressed exponential sums (exact to rounding; see
-        :mod:`cavchar.models.ringdown_sums`).  ``False``: brute force.
+        :mod:`cavchar.models.ringdown.exponential_sums`).  ``False``: brute force.
     start
         Optional least-squares fit of the single trace already made
-        (:func:`~cavchar.models.ringdown_lsq.fit_exponentials`, ``t0 = 0``).
+        (:func:`~cavchar.models.ringdown.least_squares.fit_exponentials`, ``t0 = 0``).
 
     Attributes
     ----------

@@ -17,9 +17,9 @@ import pytest
 from scipy.optimize import curve_fit
 
 from cavchar.errors import InputError
-from cavchar.models.ringdown_lsq import fit_exponentials
-from cavchar.models.ringdown_shared import fit_shared_rate
-from cavchar.models.ringdown_sums import ExponentialSums, taylor_remainder_bound
+from cavchar.models.ringdown.exponential_sums import ExponentialSums, taylor_remainder_bound
+from cavchar.models.ringdown.least_squares import fit_exponentials
+from cavchar.models.ringdown.shared_rate import fit_shared_rate
 
 REPO = Path(__file__).resolve().parents[1]
 

@@ -18,7 +18,7 @@ Nothing depends on a user guess:
 2. each of the best starts is refined: for short traces by
    Levenberg–Marquardt on the projected residual with the exact Golub–Pereyra
    Jacobian; for long traces on the compressed exponential sums of
-   :mod:`cavchar.models.ringdown_sums` (bounded Brent search for one rate,
+   :mod:`cavchar.models.ringdown.exponential_sums` (bounded Brent search for one rate,
    Nelder–Mead for several), then polished by Gauss–Newton steps on the full
    data;
 3. the covariance of all parameters is ``(J^T W J)^{-1}`` from the full
@@ -26,7 +26,7 @@ Nothing depends on a user guess:
    variance ``RSS / (n - p)`` unless ``absolute_sigma`` (the conventions of
    ``scipy.optimize.curve_fit``).
 
-Several traces sharing one rate: :mod:`cavchar.models.ringdown_shared`.
+Several traces sharing one rate: :mod:`cavchar.models.ringdown.shared_rate`.
 
 Parameter order of :attr:`ExponentialFit.params`: ``A_1, r_1, ..., A_m, r_m``
 and then ``F`` (rates ascending: slowest decay first).
@@ -45,7 +45,7 @@ from numpy.typing import ArrayLike
 from scipy import optimize
 
 from cavchar.errors import InputError
-from cavchar.models.ringdown_sums import ExponentialSums
+from cavchar.models.ringdown.exponential_sums import ExponentialSums
 
 __all__ = ["ExponentialFit", "fit_exponentials", "profile_objective", "gram_matrices",
            "validate_trace"]

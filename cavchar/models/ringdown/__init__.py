@@ -3,22 +3,22 @@
 =============== ===================================================== =====================
 signal          model                                                 module
 =============== ===================================================== =====================
-``power``       ``A e^{-tau/T_c} + F``, Gaussian noise; several        ringdown_power
+``power``       ``A e^{-tau/T_c} + F``, Gaussian noise; several        power
                 traces share ``T_c``; A and F marginalized
-``power2``      two exponentials + floor (model comparison)           ringdown_power2
-``db``          ``10 log10(A e^{-tau/T_c} + F)`` + Gaussian dB noise  ringdown_db
-``amplitude``   field magnitude ``a e^{-tau/(2 T_c)}``, Rice noise    ringdown_complex
-``iq``          complex ``alpha e^{-tau/(2T_c)} e^{-2 pi i delta tau}  ringdown_complex
+``power2``      two exponentials + floor (model comparison)           two_exponentials
+``db``          ``10 log10(A e^{-tau/T_c} + F)`` + Gaussian dB noise  decibel
+``amplitude``   field magnitude ``a e^{-tau/(2 T_c)}``, Rice noise    field
+``iq``          complex ``alpha e^{-tau/(2T_c)} e^{-2 pi i delta tau}  field
                 + c``; alpha and c marginalized
-``mean-n``      ``n_th + (n0 - n_th) e^{-tau/T_c}``                   ringdown_counts
-``populations`` multinomial photon-number counts after a Fock state   ringdown_counts
+``mean-n``      ``n_th + (n0 - n_th) e^{-tau/T_c}``                   photon_number
+``populations`` multinomial photon-number counts after a Fock state   photon_number
 =============== ===================================================== =====================
 
 Every model offers the same interface:
 
 * ``specs``: tuple of :class:`~cavchar.parameters.ParameterSpec` (sampled
   parameters, physical units, default priors; see
-  :func:`~cavchar.models.ringdown_base.default_spec`);
+  :func:`~cavchar.models.ringdown.series.default_spec`);
 * ``log_likelihood(theta)``: batched ``(k, ndim) -> (k,)``, ``-inf`` outside the
   support, never NaN;
 * ``initial_guess()``: the least-squares start (variable projection where
@@ -36,12 +36,12 @@ from typing import Any
 
 import numpy as np
 
-from cavchar.models.ringdown_base import DecaySeries, default_spec
-from cavchar.models.ringdown_complex import IQDecay, MagnitudeDecay, rice_logpdf
-from cavchar.models.ringdown_counts import MeanPhotonDecay, PopulationDecay, fock_populations
-from cavchar.models.ringdown_db import DecibelDecay
-from cavchar.models.ringdown_power import PowerDecay
-from cavchar.models.ringdown_power2 import (
+from cavchar.models.ringdown.decibel import DecibelDecay
+from cavchar.models.ringdown.field import IQDecay, MagnitudeDecay, rice_logpdf
+from cavchar.models.ringdown.photon_number import MeanPhotonDecay, PopulationDecay, fock_populations
+from cavchar.models.ringdown.power import PowerDecay
+from cavchar.models.ringdown.series import DecaySeries, default_spec
+from cavchar.models.ringdown.two_exponentials import (
     ModelComparison,
     TwoExponentialPower,
     compare_exponentials,

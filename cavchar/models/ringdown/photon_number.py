@@ -50,11 +50,11 @@ import numpy as np
 from numpy.typing import ArrayLike
 from scipy import special
 
-from cavchar.models.ringdown_base import DecaySeries, as_batch, default_spec
-from cavchar.models.ringdown_lsq import fit_exponentials
-from cavchar.models.ringdown_power import RATE_HEADROOM, default_lifetime_bounds
-from cavchar.models.ringdown_shared import fit_shared_rate
-from cavchar.models.ringdown_sums import ExponentialSums
+from cavchar.models.ringdown.exponential_sums import ExponentialSums
+from cavchar.models.ringdown.least_squares import fit_exponentials
+from cavchar.models.ringdown.power import RATE_HEADROOM, default_lifetime_bounds
+from cavchar.models.ringdown.series import DecaySeries, as_batch, default_spec
+from cavchar.models.ringdown.shared_rate import fit_shared_rate
 
 __all__ = ["MeanPhotonDecay", "PopulationDecay", "fock_populations"]
 
