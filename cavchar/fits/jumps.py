@@ -29,7 +29,7 @@ from cavchar.models.jumps import (
     sampled_log_likelihood,
     sampled_transitions,
 )
-from cavchar.models.jumps_check import dwell_time_check
+from cavchar.models.jumps.dwell_check import dwell_time_check
 from cavchar.parameters import ParameterSpec
 from cavchar.priors import LogUniform, Prior, stage_occupation_prior
 from cavchar.records import JumpRecord, SampledRecord
