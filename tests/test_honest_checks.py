@@ -98,8 +98,8 @@ def test_prior_bound_through_the_cli(absurd, run_cli):
 
 def test_prior_bound_is_a_limit_in_the_log_trend_and_qualification(absurd_result, tmp_path,
                                                                       run_cli, monkeypatch):
+    from cavchar.tracking.entries import entry_from_result
     from cavchar.tracking.qualify import evidence_from_log, parse_spec, qualify
-    from cavchar.tracking.records import entry_from_result
     from cavchar.tracking.store import LOG_ENV, open_log
     from cavchar.tracking.trend import cooldown_trend
 

@@ -26,7 +26,7 @@ import numpy as np
 import pytest
 
 from cavchar.errors import InputError
-from cavchar.tracking.records import entry_from_result
+from cavchar.tracking.entries import entry_from_result
 from cavchar.tracking.store import open_log
 from tests.test_tracking_store import fresh_log, random_result
 

@@ -32,7 +32,7 @@ from cavchar.tracking.budget import (
     occupation_likelihood,
     thermal_budget,
 )
-from cavchar.tracking.records import entry_from_result
+from cavchar.tracking.entries import entry_from_result
 from cavchar.tracking.store import LOG_ENV
 
 

@@ -20,7 +20,7 @@ import time
 import numpy as np
 import pytest
 
-from cavchar.tracking.records import entry_from_result
+from cavchar.tracking.entries import entry_from_result
 from cavchar.tracking.store import open_log
 from tests.conftest import REPO
 from tests.test_tracking_store import fresh_log, random_result
@@ -32,7 +32,7 @@ WRITER = textwrap.dedent("""
     from pathlib import Path
     import numpy as np
     import cavchar.tracking.store as store
-    from cavchar.tracking.records import FitEntry
+    from cavchar.tracking.entries import FitEntry
 
     log_path, marker = sys.argv[1], Path(sys.argv[2])
     original = store._write_draws
@@ -57,7 +57,7 @@ ADDER = textwrap.dedent("""
     import sys, time
     from pathlib import Path
     import numpy as np
-    from cavchar.tracking.records import FitEntry
+    from cavchar.tracking.entries import FitEntry
     from cavchar.tracking.store import open_log
 
     log_path, start, tag, count = sys.argv[1], Path(sys.argv[2]), sys.argv[3], int(sys.argv[4])

@@ -16,6 +16,7 @@ import pytest
 from scipy.stats import norm
 
 from cavchar.errors import InputError
+from cavchar.tracking.entries import entry_from_result
 from cavchar.tracking.qualify import (
     EXIT_FAIL,
     EXIT_PASS,
@@ -26,7 +27,6 @@ from cavchar.tracking.qualify import (
     qualify,
     read_spec,
 )
-from cavchar.tracking.records import entry_from_result
 from cavchar.tracking.store import LOG_ENV
 from tests.test_tracking_store import FREQ, fresh_log, make_result
 

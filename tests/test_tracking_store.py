@@ -15,13 +15,13 @@ import pandas as pd
 import pytest
 
 from cavchar.errors import CavcharWarning, InputError
-from cavchar.tracking.exchange import export_document, export_log, import_log
-from cavchar.tracking.records import (
+from cavchar.tracking.entries import (
     DEFAULT_MAX_DRAWS,
     entry_from_result,
     read_result_file,
     thin_index,
 )
+from cavchar.tracking.exchange import export_document, export_log, import_log
 from cavchar.tracking.store import (
     APPLICATION_ID,
     DEFAULT_LOG_NAME,

@@ -18,7 +18,7 @@ from scipy.stats import norm
 
 from cavchar.errors import InputError
 from cavchar.thermal import effective_temperature
-from cavchar.tracking.records import entry_from_result
+from cavchar.tracking.entries import entry_from_result
 from cavchar.tracking.store import LOG_ENV
 from cavchar.tracking.trend import cooldown_trend, drop_probability
 from tests.test_tracking_store import FREQ, fresh_log, make_result, random_result

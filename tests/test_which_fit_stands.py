@@ -40,7 +40,7 @@ from scipy import constants
 from scipy.stats import norm
 
 from cavchar.errors import InputError
-from cavchar.tracking.records import FitEntry, entry_from_result
+from cavchar.tracking.entries import FitEntry, entry_from_result
 from cavchar.tracking.store import LOG_ENV, open_log
 from tests.test_tracking_store import make_result
 

@@ -65,7 +65,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 def _points_from_results(args: argparse.Namespace):
     from cavchar.tracking.budget import BudgetPoint, n_thermal_prior
-    from cavchar.tracking.records import read_result_file
+    from cavchar.tracking.entries import read_result_file
 
     temps = args.stage_temp or []
     if temps and len(temps) != len(args.result):

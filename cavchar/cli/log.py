@@ -229,7 +229,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 
 def _add(args: argparse.Namespace) -> int:
-    from cavchar.tracking.records import read_result_file
+    from cavchar.tracking.entries import read_result_file
 
     entries = [read_result_file(path) for path in args.results]  # read all before writing
     on_duplicate = "keep" if args.keep_duplicate else "error"

@@ -102,7 +102,7 @@ def handle(args: argparse.Namespace) -> int:
                 or args.min_stage_temp is not None or args.max_stage_temp is not None):
             raise InputError("--cooldown and --fit select logged fits; they do not go with "
                              "--result")
-        from cavchar.tracking.records import read_result_file
+        from cavchar.tracking.entries import read_result_file
 
         evidence = evidence_from_entry(read_result_file(args.result), freq_hz=args.freq)
     else:

@@ -80,8 +80,8 @@ def tracking_sections(log_path: Path, spec_path: Path, scenario: Scenario, jobs:
     """
     from cavchar.tracking import cooldown_trend, open_log, read_spec, thermal_budget
     from cavchar.tracking.budget import BudgetPoint, n_thermal_prior
+    from cavchar.tracking.entries import entry_from_result
     from cavchar.tracking.qualify import evidence_from_log
-    from cavchar.tracking.records import entry_from_result
 
     notes: list[str] = []
     sections: list[Any] = []

@@ -1,6 +1,6 @@
 """Memory of cavchar: the cooldown log and the comparisons built on it.
 
-* :mod:`cavchar.tracking.records` what a logged fit holds, read from a result;
+* :mod:`cavchar.tracking.entries` what a logged fit holds, read from a result;
 * :mod:`cavchar.tracking.store`   SQLite log of cavities, cooldowns and fits
   (with a compact copy of the posterior draws of the key parameters);
 * :mod:`cavchar.tracking.trend`   lifetime, n_th and effective temperature per
@@ -17,11 +17,11 @@ from cavchar._lazy import lazy_exports
 
 _PUBLIC = {
     "CooldownLog": "cavchar.tracking.store",
-    "FitEntry": "cavchar.tracking.records",
+    "FitEntry": "cavchar.tracking.entries",
     "open_log": "cavchar.tracking.store",
     "resolve_log_path": "cavchar.tracking.store",
-    "entry_from_result": "cavchar.tracking.records",
-    "read_result_file": "cavchar.tracking.records",
+    "entry_from_result": "cavchar.tracking.entries",
+    "read_result_file": "cavchar.tracking.entries",
     "log_fit_result": "cavchar.tracking.store",
     "cooldown_trend": "cavchar.tracking.trend",
     "drop_probability": "cavchar.tracking.trend",

@@ -36,7 +36,7 @@ import numpy as np
 
 from cavchar.errors import InputError
 from cavchar.quantities import QUANTILES_68
-from cavchar.tracking.records import (
+from cavchar.tracking.entries import (
     KEY_PARAMETERS,
     FitEntry,
     canonical_json,

@@ -459,7 +459,7 @@ def evidence_from_log(log, cavity: str, cooldown: str | None = None,
 
 def _limits(summary: dict) -> dict:
     """The one-sided limits a logged fit's summary records (``PRIOR_LIMITS``)."""
-    from cavchar.tracking.records import PRIOR_LIMITS
+    from cavchar.tracking.entries import PRIOR_LIMITS
 
     found = summary.get(PRIOR_LIMITS) if isinstance(summary, dict) else None
     return dict(found) if isinstance(found, dict) else {}
@@ -472,7 +472,7 @@ def _temp(value: float | None) -> str:
 
 
 def evidence_from_entry(entry, freq_hz: float | None = None) -> Evidence:
-    """Evidence from a result file read with :func:`cavchar.tracking.records.read_result_file`."""
+    """Evidence from a result file read with :func:`cavchar.tracking.entries.read_result_file`."""
     return Evidence(description=f"result file {entry.source} ({entry.kind})",
                     draws=dict(entry.draws), freq_hz=freq_hz or entry.freq_hz, kind=entry.kind,
                     input_sha256=entry.input_sha256, n_draws_total=entry.n_draws_total,

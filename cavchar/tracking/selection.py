@@ -39,7 +39,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from cavchar.tracking.records import FitRecord
+from cavchar.tracking.entries import FitRecord
 from cavchar.tracking.rules import base_limit, kind_matches
 
 __all__ = ["Choice", "CooldownSelection", "select_cooldown", "precision", "STANDING"]

@@ -40,7 +40,7 @@ from typing import Any
 import numpy as np
 
 from cavchar.errors import CavcharWarning, InputError
-from cavchar.tracking.records import (
+from cavchar.tracking.entries import (
     KEY_PARAMETERS,
     Cavity,
     Cooldown,
@@ -676,7 +676,7 @@ def log_fit_result(result: Any, cavity: str, cooldown: str,
     ``on_duplicate="keep"``; a fit at another mode frequency than the cavity's is
     refused unless ``force_freq``.
     """
-    from cavchar.tracking.records import entry_from_result
+    from cavchar.tracking.entries import entry_from_result
 
     entry = entry_from_result(result, source=source)
     with open_log(path) as log:

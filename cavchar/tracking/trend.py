@@ -29,7 +29,7 @@ import numpy as np
 
 from cavchar.errors import InputError
 from cavchar.quantities import QUANTILES_68
-from cavchar.tracking.records import PRIOR_LIMITS, FitRecord
+from cavchar.tracking.entries import PRIOR_LIMITS, FitRecord
 from cavchar.tracking.store import CooldownLog
 
 __all__ = ["Interval", "TrendRow", "Trend", "interval", "drop_probability", "cooldown_trend",

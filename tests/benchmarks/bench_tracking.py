@@ -30,7 +30,7 @@ def _median_time(func, repeats):
 
 
 def main() -> None:
-    from cavchar.tracking.records import entry_from_result
+    from cavchar.tracking.entries import entry_from_result
     from cavchar.tracking.store import open_log
     from cavchar.tracking.trend import cooldown_trend
     from tests.test_tracking_store import random_result
