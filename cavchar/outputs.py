@@ -134,7 +134,7 @@ def print_summary(result: FitResult) -> None:
 
 def fit_figures(result: FitResult) -> dict:
     """Every figure of a fit: model-specific ones, the corner plot and the chain traces."""
-    from cavchar.plots.common import corner_plot, trace_plot
+    from cavchar.plots.posterior import corner_plot, trace_plot
 
     figures = {}
     module_name = FIGURE_MODULES.get(result.kind.split("-")[0])
@@ -189,7 +189,7 @@ def write_fit_outputs(result: FitResult, out_dir: str | os.PathLike, *, force: b
     out = Path(out_dir)
     formats = tuple(figure_formats)
     if figures:
-        from cavchar.plots.common import FIGURE_FORMATS
+        from cavchar.plots.posterior import FIGURE_FORMATS
 
         unknown = [f for f in formats if f not in FIGURE_FORMATS]
         if unknown or not formats:
@@ -219,7 +219,7 @@ def write_fit_outputs(result: FitResult, out_dir: str | os.PathLike, *, force: b
         staging.mkdir()
         result.write_draws(staging / draws_name)
         if made:
-            from cavchar.plots.common import save_figure
+            from cavchar.plots.posterior import save_figure
 
             for name, fig in made.items():
                 save_figure(fig, staging / name, formats=formats)

@@ -356,9 +356,9 @@ class FitResult:
         Parameters
         ----------
         which
-            ``"corner"`` (marginal posteriors, :func:`cavchar.plots.common.corner_plot`),
+            ``"corner"`` (marginal posteriors, :func:`cavchar.plots.posterior.corner_plot`),
             ``"trace"`` (walker chains or the kept draws,
-            :func:`cavchar.plots.common.trace_plot`) or ``"data"`` (the first figure of
+            :func:`cavchar.plots.posterior.trace_plot`) or ``"data"`` (the first figure of
             the data with the posterior fit that the result's own excerpts allow).
         **kwargs
             Passed to the plotting function (``columns=``, ``truths=``, ...).
@@ -367,12 +367,12 @@ class FitResult:
         -------
         matplotlib.figure.Figure
         """
-        from cavchar.plots import common
+        from cavchar.plots import posterior
 
         if which == "corner":
-            return common.corner_plot(self, **kwargs)
+            return posterior.corner_plot(self, **kwargs)
         if which == "trace":
-            return common.trace_plot(self, **kwargs)
+            return posterior.trace_plot(self, **kwargs)
         if which == "data":
             from cavchar.report.figures import data_figures
 

@@ -260,7 +260,7 @@ def test_style_is_local():
 
 
 def test_save_figure_writes_png_and_pdf_and_refuses_to_overwrite(fitted, tmp_path):
-    from cavchar.plots.common import corner_plot, save_figure
+    from cavchar.plots.posterior import corner_plot, save_figure
 
     fig = corner_plot(fitted[0], truths={"lifetime": LIFETIME, "n_thermal": N_THERMAL})
     png, pdf = save_figure(fig, tmp_path / "corner")

@@ -275,8 +275,8 @@ def handle(args: argparse.Namespace) -> int:
     print(format_table(table))
     if out is not None:
         from cavchar.io.atomic import write_text_atomic
-        from cavchar.plots.common import save_figure
         from cavchar.plots.plan import plot_plan
+        from cavchar.plots.posterior import save_figure
 
         out.mkdir(parents=True, exist_ok=True)
         header = "".join(f"# {k}: {v}\n" for k, v in table.attrs.items())

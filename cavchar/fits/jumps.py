@@ -18,7 +18,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from cavchar.errors import InputError, ModelMisfitWarning, PriorDominatedWarning
-from cavchar.fits.common import FitContext, finish_fit, sampler_settings
+from cavchar.fits.finish import FitContext, finish_fit, sampler_settings
 from cavchar.inference import SamplerSettings
 from cavchar.inference.importance import sample_posterior_auto
 from cavchar.models.jumps import (

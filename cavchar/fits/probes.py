@@ -32,7 +32,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from cavchar.errors import CavcharWarning, InputError, PriorDominatedWarning
-from cavchar.fits.common import FitContext, finish_fit, sampler_settings
+from cavchar.fits.finish import FitContext, finish_fit, sampler_settings
 from cavchar.fits.probe_budget import exact_cost
 from cavchar.fits.probe_check import probe_predictive_check
 from cavchar.fits.probe_trajectory import reconstruct_trajectory

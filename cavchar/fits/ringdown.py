@@ -25,7 +25,7 @@ import numpy as np
 import pandas as pd
 
 from cavchar.errors import CavcharWarning, InputError, ModelMisfitWarning
-from cavchar.fits.common import FitContext, finish_fit
+from cavchar.fits.finish import FitContext, finish_fit
 from cavchar.fits.ringdown_checks import posterior_curves, residual_diagnostics
 from cavchar.fits.ringdown_data import RingdownData, decay_check, prepare
 from cavchar.inference import SamplerSettings

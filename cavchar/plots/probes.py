@@ -41,7 +41,7 @@ def plot_trajectory(
     """
     import matplotlib.pyplot as plt
 
-    from cavchar.plots.common import display_unit
+    from cavchar.plots.posterior import display_unit
     from cavchar.plots.style import BAND_68, INK, apply_style, series
 
     n = min(int(max_probes), len(time))

@@ -39,7 +39,7 @@ def plot_trace_fit(curves: dict, signal: str, fig=None):
     signal
         Signal kind (axis labels).
     """
-    from cavchar.plots.common import display_unit
+    from cavchar.plots.posterior import display_unit
     from cavchar.plots.style import INK, apply_style, new_figure
 
     traces = curves["traces"][:4]
@@ -83,7 +83,7 @@ def plot_trace_fit(curves: dict, signal: str, fig=None):
 
 def plot_populations_fit(curves: dict, max_levels: int = 6, fig=None):
     """Observed photon-number fractions against delay with the model's posterior bands."""
-    from cavchar.plots.common import display_unit
+    from cavchar.plots.posterior import display_unit
     from cavchar.plots.style import apply_style, new_figure, series
 
     pops = curves["populations"]

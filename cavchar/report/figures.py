@@ -225,7 +225,7 @@ def sampler_figures(result: Any, truths: dict[str, float] | None = None,
     A figure that cannot be drawn (draws without spread, a stored chain of the
     wrong shape) is left out, and why is appended to ``notes`` when given.
     """
-    from cavchar.plots.common import corner_plot, result_trace, trace_plot
+    from cavchar.plots.posterior import corner_plot, result_trace, trace_plot
 
     out = []
     try:
@@ -265,7 +265,7 @@ def comparison_figure(results: Sequence[Any], labels: Sequence[str]):
     bar the 95 % interval; each result keeps its own marker so the figure reads
     in greyscale.
     """
-    from cavchar.plots.common import display_unit
+    from cavchar.plots.posterior import display_unit
     from cavchar.plots.style import apply_style, literal, new_figure, series
 
     panels = [(name, title, dim) for name, title, dim in _COMPARE

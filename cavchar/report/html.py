@@ -128,7 +128,7 @@ REPORT_DPI = 120.0
 
 
 def _figure_html(item: Figure, number: str) -> Markup:
-    from cavchar.plots.common import figure_data_uri
+    from cavchar.plots.posterior import figure_data_uri
 
     try:
         # figures come laid out (tight_layout / corner's margins): one rendering pass
