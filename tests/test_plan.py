@@ -10,6 +10,7 @@ import pytest
 from scipy import integrate, optimize, stats
 
 from cavchar.errors import InputError
+from cavchar.inference.derivatives import numerical_hessian
 from cavchar.models.jumps import SampledTransitions, sampled_log_likelihood
 from cavchar.plan import fisher, study
 from cavchar.plan.forecast import (
@@ -55,7 +56,7 @@ def test_sampled_information_is_minus_the_hessian_of_the_expected_loglik(interva
     def expected(theta):
         return sampled_log_likelihood(trans, theta[:, 0], theta[:, 1], levels)
 
-    grad, hess, _ = fisher.numerical_hessian(expected, [T_C, N_TH], [1e-4 * T_C, 1e-4 * N_TH])
+    grad, hess, _ = numerical_hessian(expected, [T_C, N_TH], [1e-4 * T_C, 1e-4 * N_TH])
     # central differences with h = 1e-4 relative: truncation error ~h^2 ~ 1e-8, rounding
     # ~eps |log L| / h^2 ~ 1e-8 relative; 1e-4 leaves a wide margin
     np.testing.assert_allclose(info.matrix, -hess, rtol=1e-4, atol=1e-4 * abs(hess).max())
@@ -292,7 +293,7 @@ def test_population_information_is_minus_the_hessian_of_the_expected_loglik():
         return np.array([shots * np.sum(truth[use] * np.log(populations(
             1 / t, n, p0, times, n_levels=n_levels)[use])) for t, n in theta])
 
-    _g, hess, _ = fisher.numerical_hessian(expected, [T_C, 0.1], [1e-4 * T_C, 1e-4 * 0.1])
+    _g, hess, _ = numerical_hessian(expected, [T_C, 0.1], [1e-4 * T_C, 1e-4 * 0.1])
     np.testing.assert_allclose(info.matrix, -hess, rtol=1e-4)
 
 

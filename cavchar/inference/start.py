@@ -13,6 +13,7 @@ from typing import Any
 import numpy as np
 
 from cavchar.errors import InputError
+from cavchar.inference.derivatives import numerical_hessian
 from cavchar.parameters import ParameterSpace
 from cavchar.quantities import QUANTILES_68
 
@@ -122,20 +123,8 @@ def local_covariance(logpost: Callable[[np.ndarray], np.ndarray], u_map: np.ndar
             else:
                 break
         h[i] = hi
-    eye = np.eye(ndim)
-    pts = [u_map + s * h[i] * eye[i] for i in range(ndim) for s in (1.0, -1.0)]
-    pairs = [(i, j) for i in range(ndim) for j in range(i + 1, ndim)]
-    for i, j in pairs:
-        for si, sj in ((1, 1), (1, -1), (-1, 1), (-1, -1)):
-            pts.append(u_map + si * h[i] * eye[i] + sj * h[j] * eye[j])
-    f = logpost(np.array(pts))
-    hess = np.empty((ndim, ndim))
     with np.errstate(invalid="ignore"):  # -inf - -inf next to a bound: not finite, handled below
-        for i in range(ndim):
-            hess[i, i] = (f[2 * i] - 2.0 * lp_map + f[2 * i + 1]) / h[i] ** 2
-        for k, (i, j) in enumerate(pairs):
-            fpp, fpm, fmp, fmm = f[2 * ndim + 4 * k: 2 * ndim + 4 * k + 4]
-            hess[i, j] = hess[j, i] = (fpp - fpm - fmp + fmm) / (4.0 * h[i] * h[j])
+        _grad, hess, _f0 = numerical_hessian(logpost, u_map, h)
     if np.isfinite(hess).all():
         try:
             np.linalg.cholesky(-hess)

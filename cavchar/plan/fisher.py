@@ -35,7 +35,6 @@ over independent data, so ``amount`` units carry ``amount`` times as much.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -50,6 +49,7 @@ from cavchar.decay import (
 )
 from cavchar.dynamics import stationary_distribution, truncation_levels
 from cavchar.errors import InputError
+from cavchar.inference.derivatives import numerical_hessian
 
 __all__ = [
     "Information",
@@ -60,7 +60,6 @@ __all__ = [
     "ringdown_information",
     "rice_information",
     "schur_complement",
-    "numerical_hessian",
 ]
 
 #: tail of the stationary law neglected by the truncations used here
@@ -227,34 +226,6 @@ def sampled_jump_information(lifetime: float, n_thermal: float, interval: float,
 
 
 # --------------------------------------------------------------------------- probe records
-
-
-def numerical_hessian(func: Callable[[np.ndarray], np.ndarray], x0: ArrayLike,
-                      steps: ArrayLike) -> tuple[np.ndarray, np.ndarray, float]:
-    """Gradient, Hessian and value of a batched function by central differences.
-
-    One batched call ``func((k, p)) -> (k,)`` at ``1 + 2p + 2p(p-1)`` points:
-    ``H_ii = (f(x+h_i) - 2 f(x) + f(x-h_i)) / h_i^2``,
-    ``H_ij = (f(++) - f(+-) - f(-+) + f(--)) / (4 h_i h_j)``.
-    """
-    x0 = np.asarray(x0, dtype=float)
-    h = np.asarray(steps, dtype=float)
-    p = x0.size
-    eye = np.eye(p) * h
-    points = [x0]
-    points += [x0 + eye[i] for i in range(p)] + [x0 - eye[i] for i in range(p)]
-    pairs = [(i, j) for i in range(p) for j in range(i + 1, p)]
-    for i, j in pairs:
-        points += [x0 + eye[i] + eye[j], x0 + eye[i] - eye[j],
-                   x0 - eye[i] + eye[j], x0 - eye[i] - eye[j]]
-    f = np.asarray(func(np.array(points)), dtype=float)
-    f0, fp, fm = f[0], f[1:1 + p], f[1 + p:1 + 2 * p]
-    grad = (fp - fm) / (2 * h)
-    hess = np.diag((fp - 2 * f0 + fm) / h**2)
-    for k, (i, j) in enumerate(pairs):
-        c = f[1 + 2 * p + 4 * k:1 + 2 * p + 4 * k + 4]
-        hess[i, j] = hess[j, i] = (c[0] - c[1] - c[2] + c[3]) / (4 * h[i] * h[j])
-    return grad, hess, float(f0)
 
 
 def probe_table(response, n_levels: int, settings: ArrayLike | None = None) -> np.ndarray:

@@ -43,10 +43,10 @@ from numpy.typing import ArrayLike
 from cavchar.decay import RINGDOWN_NUISANCES, rice_logpdf, ringdown_mean
 from cavchar.dynamics import truncation_levels
 from cavchar.errors import InputError
+from cavchar.inference.derivatives import numerical_hessian
 from cavchar.plan.fisher import (
     TAIL,
     _probe_loglik,
-    numerical_hessian,
     probe_table,
     ringdown_information,
 )
