@@ -30,6 +30,18 @@ _PUBLIC = {
     "plan_probes": "cavchar.plan",
     "plan_ringdown": "cavchar.plan",
     "fit_many": "cavchar.batch.runner",
+    "thermal_budget": "cavchar.fits.budget",
+    "SamplerSettings": "cavchar.inference.sampler",
+    "simulate_jump_record": "cavchar.simulate",
+    "simulate_sampled_record": "cavchar.simulate",
+    "simulate_probe_record": "cavchar.simulate",
+    "simulate_ringdown": "cavchar.simulate",
+    "write_jump_record": "cavchar.io",
+    "open_log": "cavchar.tracking.store",
+    "log_fit_result": "cavchar.tracking.store",
+    "cooldown_trend": "cavchar.tracking.trend",
+    "probability_text": "cavchar.report.text",
+    "DEMO_SCENARIO": ("cavchar.demo.scenario", "SCENARIO"),
 }
 
 __all__, __getattr__, __dir__ = lazy_exports(__name__, _PUBLIC, "__version__")

@@ -7,7 +7,7 @@ import importlib
 from collections.abc import Callable, Mapping
 
 
-def lazy_exports(package: str, public: Mapping[str, str], *eager: str
+def lazy_exports(package: str, public: Mapping[str, str | tuple[str, str]], *eager: str
                  ) -> tuple[list[str], Callable[[str], object], Callable[[], list[str]]]:
     """``__all__``, ``__getattr__`` and ``__dir__`` of a package whose public names live in
     submodules.
@@ -17,7 +17,8 @@ def lazy_exports(package: str, public: Mapping[str, str], *eager: str
     package
         The package's ``__name__`` (used in the error message).
     public
-        Public name -> dotted name of the module that defines it.
+        Public name -> dotted name of the module that defines it, or ``(module, name
+        there)`` when the public name differs from the module's.
     eager
         Names the package defines itself (listed first in ``__all__``).
     """
@@ -25,7 +26,9 @@ def lazy_exports(package: str, public: Mapping[str, str], *eager: str
 
     def __getattr__(name: str) -> object:
         if name in public:
-            return getattr(importlib.import_module(public[name]), name)
+            where = public[name]
+            module, attribute = where if isinstance(where, tuple) else (where, name)
+            return getattr(importlib.import_module(module), attribute)
         raise AttributeError(f"module {package!r} has no attribute {name!r}")
 
     def __dir__() -> list[str]:

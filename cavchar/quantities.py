@@ -14,6 +14,7 @@ from the energy lifetime ``T_c = 1/kappa``:
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -25,7 +26,8 @@ CREDIBLE_68 = math.erf(1.0 / math.sqrt(2.0))
 QUANTILES_68 = ((1.0 - CREDIBLE_68) / 2.0, (1.0 + CREDIBLE_68) / 2.0)
 
 
-__all__ = ["COLUMN_INFO", "CREDIBLE_68", "QUANTILES_68", "quality_factor", "linewidth",
+__all__ = ["COLUMN_INFO", "CREDIBLE_68", "QUANTILES_68", "INTERVAL_QUANTILES", "Interval",
+           "interval", "quality_factor", "linewidth",
            "amplitude_decay_time", "data_units", "UNKNOWN_DATA_UNIT"]
 
 #: the unit of values in the data's own, unstated unit ("arbitrary units")
@@ -90,3 +92,31 @@ def linewidth(lifetime_s: ArrayLike) -> np.ndarray:
 def amplitude_decay_time(lifetime_s: ArrayLike) -> np.ndarray:
     """Decay time of the field amplitude, ``2 T_c`` in s, from the energy lifetime T_c in s."""
     return 2.0 * np.asarray(lifetime_s, dtype=float)
+
+
+# --------------------------------------------------------------- one interval summary
+@dataclass(frozen=True)
+class Interval:
+    """Median and equal-tailed 68 % / 95 % interval of a set of draws (their units)."""
+
+    median: float
+    lo68: float
+    hi68: float
+    lo95: float
+    hi95: float
+    n_draws: int
+
+    def as_dict(self) -> dict[str, float]:
+        return {"median": self.median, "lo68": self.lo68, "hi68": self.hi68,
+                "lo95": self.lo95, "hi95": self.hi95, "n_draws": self.n_draws}
+
+
+#: median and the 68.27 % / 95 % equal-tailed quantiles (FitResult.summary uses the same)
+INTERVAL_QUANTILES = np.array([0.5, *QUANTILES_68, 0.025, 0.975])
+
+
+def interval(draws: np.ndarray) -> Interval:
+    """Median and 68.27 % / 95 % equal-tailed intervals of 1-D draws."""
+    values = np.asarray(draws, dtype=float)
+    q = np.quantile(values, INTERVAL_QUANTILES)
+    return Interval(*(float(v) for v in q), n_draws=int(values.size))

@@ -15,21 +15,23 @@ import sys
 import tempfile
 from pathlib import Path
 
-from cavchar.demo.scenario import SCENARIO
-from cavchar.fits.jumps import fit_jumps
-from cavchar.inference import SamplerSettings
-from cavchar.io import write_jump_record
-from cavchar.report.text import probability_text
-from cavchar.simulate import simulate_jump_record
+from cavchar import (
+    DEMO_SCENARIO,
+    SamplerSettings,
+    fit_jumps,
+    probability_text,
+    simulate_jump_record,
+    write_jump_record,
+)
 
 
 def main(out_dir: str | None = None) -> None:
-    plan = SCENARIO.cooldown("2031-A")
-    n_th = SCENARIO.n_thermal(plan)
+    plan = DEMO_SCENARIO.cooldown("2031-A")
+    n_th = DEMO_SCENARIO.n_thermal(plan)
     record = simulate_jump_record(plan.lifetime_s, n_th, 600.0, seed=7)
     with tempfile.TemporaryDirectory() as tmp:
         path = write_jump_record(record, Path(tmp) / "jumps.csv")
-        result = fit_jumps(path, freq_hz=SCENARIO.freq_hz, stage_temp_k=plan.stage_temp_k,
+        result = fit_jumps(path, freq_hz=DEMO_SCENARIO.freq_hz, stage_temp_k=plan.stage_temp_k,
                            settings=SamplerSettings(seed=1, quiet=True))
     print(f"record: {record.n_jumps} jumps in {record.observed_time:.0f} s")
     print(f"true values: T_c = {plan.lifetime_s * 1e3:.1f} ms, n_th = {n_th:.3f}")

@@ -22,16 +22,16 @@ import pytest
 from scipy import constants
 
 from cavchar.errors import InputError
-from cavchar.thermal import planck_occupation, two_bath_occupation
-from cavchar.tracking.budget import (
+from cavchar.fits.budget import (
     MODEL_EXCESS,
     MODEL_TWO_BATH,
     BudgetPoint,
     budget_occupation,
-    n_thermal_prior,
     occupation_likelihood,
     thermal_budget,
 )
+from cavchar.thermal import planck_occupation, two_bath_occupation
+from cavchar.tracking.budget import n_thermal_prior
 from cavchar.tracking.entries import entry_from_result
 from cavchar.tracking.store import LOG_ENV
 

@@ -358,7 +358,8 @@ def test_budget_per_cooldown_recovers_each_excess(scenario):
 
 def test_budget_agreement_negative_control():
     # two cooldowns simulated with the same excess: the check must not flag them
-    from cavchar.tracking.budget import BudgetPoint, excess_agreement
+    from cavchar.fits.budget import BudgetPoint
+    from cavchar.tracking.budget import excess_agreement
 
     rng = np.random.default_rng(1303)
     series = []

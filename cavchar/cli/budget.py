@@ -64,7 +64,8 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 
 def _points_from_results(args: argparse.Namespace):
-    from cavchar.tracking.budget import BudgetPoint, n_thermal_prior
+    from cavchar.fits.budget import BudgetPoint
+    from cavchar.tracking.budget import n_thermal_prior
     from cavchar.tracking.entries import read_result_file
 
     temps = args.stage_temp or []
@@ -153,7 +154,8 @@ def print_budgets(report) -> None:
 
 
 def handle(args: argparse.Namespace) -> int:
-    from cavchar.tracking.budget import cooldown_budgets, thermal_budget
+    from cavchar.fits.budget import thermal_budget
+    from cavchar.tracking.budget import cooldown_budgets
 
     if (args.result is None) == (args.cavity is None):
         raise InputError("give either --cavity (data from the log) or --result files")

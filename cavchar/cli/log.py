@@ -400,7 +400,8 @@ def _note(args: argparse.Namespace) -> int:
 
 
 def _show(args: argparse.Namespace) -> int:
-    from cavchar.tracking.trend import TREND_QUANTITIES, fit_draws, interval
+    from cavchar.quantities import interval
+    from cavchar.tracking.trend import TREND_QUANTITIES, fit_draws
     from cavchar.units import format_quantity
 
     with open_log(args.log_file, readonly=True) as log:

@@ -78,8 +78,9 @@ def tracking_sections(log_path: Path, spec_path: Path, scenario: Scenario, jobs:
 
     Returns the report sections (Trend / Budget objects and Sections) and notes.
     """
-    from cavchar.tracking import cooldown_trend, open_log, read_spec, thermal_budget
-    from cavchar.tracking.budget import BudgetPoint, n_thermal_prior
+    from cavchar.fits.budget import BudgetPoint, thermal_budget
+    from cavchar.tracking import cooldown_trend, open_log, read_spec
+    from cavchar.tracking.budget import n_thermal_prior
     from cavchar.tracking.entries import entry_from_result
     from cavchar.tracking.qualify import evidence_from_log
 

@@ -128,7 +128,7 @@ def plot_budget(budget, fig=None):
 
     Parameters
     ----------
-    budget : cavchar.tracking.budget.Budget or CooldownBudgets
+    budget : cavchar.fits.budget.Budget or cavchar.tracking.budget.CooldownBudgets
     fig : matplotlib.figure.Figure, optional
     """
     import matplotlib as mpl

@@ -6,7 +6,8 @@
 * :mod:`cavchar.tracking.trend`   lifetime, n_th and effective temperature per
   cooldown, and the probability that the lifetime fell;
 * :mod:`cavchar.tracking.qualify` PASS / FAIL / UNDECIDED against a TOML spec;
-* :mod:`cavchar.tracking.budget`  thermal budget across stage temperatures.
+* :mod:`cavchar.tracking.budget`  which logged fits enter the thermal budget of each
+  cooldown (the budget model itself: :mod:`cavchar.fits.budget`).
 
 Names are imported lazily so that ``import cavchar.tracking`` stays light.
 """
@@ -27,7 +28,7 @@ _PUBLIC = {
     "drop_probability": "cavchar.tracking.trend",
     "read_spec": "cavchar.tracking.qualify",
     "qualify": "cavchar.tracking.qualify",
-    "thermal_budget": "cavchar.tracking.budget",
+    "cooldown_budgets": "cavchar.tracking.budget",
 }
 
 __all__, __getattr__, __dir__ = lazy_exports(__name__, _PUBLIC)

@@ -28,11 +28,11 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from cavchar.errors import InputError
-from cavchar.quantities import QUANTILES_68
+from cavchar.quantities import INTERVAL_QUANTILES, Interval, interval
 from cavchar.tracking.entries import PRIOR_LIMITS, FitRecord
 from cavchar.tracking.store import CooldownLog
 
-__all__ = ["Interval", "TrendRow", "Trend", "interval", "drop_probability", "cooldown_trend",
+__all__ = ["TrendRow", "Trend", "drop_probability", "cooldown_trend",
            "fit_draws", "TREND_QUANTITIES", "exceed_probability", "compare_cavities",
            "CavityComparison", "ComparisonRow", "cooldown_selections", "summary_interval",
            "limit_text"]
@@ -58,33 +58,6 @@ def limit_text(limit: Mapping, dimension: str,
     return f"{sign} {format_value(float(limit['limit']), dimension, 3)} (limit)"
 
 
-@dataclass(frozen=True)
-class Interval:
-    """Median and equal-tailed 68 % / 95 % interval of a set of draws (their units)."""
-
-    median: float
-    lo68: float
-    hi68: float
-    lo95: float
-    hi95: float
-    n_draws: int
-
-    def as_dict(self) -> dict[str, float]:
-        return {"median": self.median, "lo68": self.lo68, "hi68": self.hi68,
-                "lo95": self.lo95, "hi95": self.hi95, "n_draws": self.n_draws}
-
-
-#: median and the 68.27 % / 95 % equal-tailed quantiles, the same as FitResult.summary
-_QUANTILES = np.array([0.5, *QUANTILES_68, 0.025, 0.975])
-
-
-def interval(draws: np.ndarray) -> Interval:
-    """Median and 68.27 % / 95 % equal-tailed intervals of 1-D draws."""
-    values = np.asarray(draws, dtype=float)
-    q = np.quantile(values, _QUANTILES)
-    return Interval(*(float(v) for v in q), n_draws=int(values.size))
-
-
 def _sorted_intervals(arrays: dict[int, np.ndarray]
                       ) -> tuple[dict[int, Interval], dict[int, np.ndarray]]:
     """Intervals of many draw sets at once: rows of equal length are stacked and sorted
@@ -96,7 +69,7 @@ def _sorted_intervals(arrays: dict[int, np.ndarray]
     intervals, sorted_rows = {}, {}
     for n, keys in by_length.items():
         block = np.sort(np.stack([arrays[k] for k in keys]), axis=1)
-        position = _QUANTILES * (n - 1)
+        position = INTERVAL_QUANTILES * (n - 1)
         low = np.floor(position).astype(int)
         high = np.minimum(low + 1, n - 1)
         weight = position - low
