@@ -219,3 +219,54 @@ def test_a_worker_killed_mid_fit_is_survived(loopback, tmp_path):
     # no partial folder of the killed attempt
     assert sorted(p.name for p in (tmp_path / "out").iterdir()) == sorted(
         [*table.index, "summary.csv"])
+
+
+DOC = REPO / "docs" / "batch.md"
+DOC_ADDRESS = "tcp://HEAD:8786"
+DOC_BATCH = "examples/batch/cooldown.toml"
+
+
+def _doc_python_block() -> tuple[int, str]:
+    """(line, code) of the Python block of docs/batch.md that connects to a scheduler."""
+    lines = DOC.read_text(encoding="utf-8").splitlines()
+    blocks, start = [], None
+    for number, line in enumerate(lines, 1):
+        if start is None and line.strip() == "```python":
+            start = number
+        elif start is not None and line.strip() == "```":
+            blocks.append((start + 1, "\n".join(lines[start:number - 1]) + "\n"))
+            start = None
+    found = [(n, code) for n, code in blocks if f'Client("{DOC_ADDRESS}")' in code]
+    assert len(found) == 1, f"docs/batch.md: expected one Python block with {DOC_ADDRESS}"
+    return found[0]
+
+
+def test_the_python_example_of_the_docs_runs_on_the_loopback_cluster(loopback, tmp_path,
+                                                                     monkeypatch):
+    # the block as docs/batch.md shows it, with the loopback scheduler for HEAD and this
+    # module's small batch (100 sampler steps) for the example batch, so it stays cheap
+    address, client = loopback
+    batch = _records(tmp_path, steps=100)
+    line, code = _doc_python_block()
+    assert DOC_BATCH in code
+    code = code.replace(DOC_ADDRESS, address).replace(DOC_BATCH, batch.as_posix())
+    monkeypatch.chdir(tmp_path)
+    namespace: dict = {}
+    try:
+        # blank lines in front keep the block's line numbers in a traceback
+        exec(compile("\n" * (line - 1) + code, str(DOC), "exec"), namespace)
+        run, doc_client = namespace["run"], namespace["client"]
+        assert doc_client.status == "running"  # a client passed in stays open
+    finally:
+        if "client" in namespace:
+            namespace["client"].close()
+    table = run.summary
+    assert isinstance(table, pd.DataFrame)
+    assert list(table["status"]) == ["fitted"] * 4
+    assert set(run.results) == set(table["label"])
+    assert {type(r).__name__ for r in run.results.values()} == {"FitResult"}
+    assert (tmp_path / "batch-out" / "summary.csv").is_file()
+    workers = set(client.scheduler_info()["workers"])
+    for label in table["label"]:
+        state = json.loads((tmp_path / "batch-out" / label / "batch-entry.json").read_text())
+        assert state["worker"] in workers  # fitted on the loopback cluster

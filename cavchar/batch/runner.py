@@ -122,6 +122,22 @@ def _check_cluster_options(workers: int | None, scheduler: str | None,
                          hint="--workers 2")
 
 
+#: Dask settings of the local clusters cavchar starts: no statistical profiler (it
+#: samples each worker's stack every 10 ms for a dashboard that is not started)
+LOCAL_CLUSTER_CONFIG = {"distributed.worker.profile.enabled": False}
+
+
+def start_local_cluster(n_workers: int):
+    """A ``distributed.LocalCluster`` of ``n_workers`` single-threaded worker processes,
+    without dashboard and profiler (:data:`LOCAL_CLUSTER_CONFIG`)."""
+    import dask
+    from distributed import LocalCluster
+
+    with dask.config.set(LOCAL_CLUSTER_CONFIG):
+        return LocalCluster(n_workers=n_workers, threads_per_worker=1, processes=True,
+                            dashboard_address=None, silence_logs=logging.CRITICAL)
+
+
 def open_client(workers: int | None = None, scheduler: str | None = None,
                 timeout_s: float = 30.0):
     """A ``distributed.Client`` and the things to close after the run.
@@ -133,7 +149,7 @@ def open_client(workers: int | None = None, scheduler: str | None = None,
     """
     _check_cluster_options(workers, scheduler)
     try:
-        from distributed import Client, LocalCluster
+        from distributed import Client
     except ImportError:
         raise InputError("batch fits need dask.distributed",
                          hint="pip install 'dask[distributed]'") from None
@@ -148,8 +164,7 @@ def open_client(workers: int | None = None, scheduler: str | None = None,
                              f"(--scheduler or ${SCHEDULER_ENV})") from None
         return client, [client]
     n = int(workers) if workers is not None else (os.cpu_count() or 1)
-    cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
-                           dashboard_address=None, silence_logs=logging.CRITICAL)
+    cluster = start_local_cluster(n)
     client = Client(cluster, timeout=timeout_s)
     return client, [client, cluster]
 
@@ -522,7 +537,7 @@ def _outcome(future, job: _Job) -> dict:
         status = STATUS_WORKER_DIED if name == "KilledWorker" else STATUS_ERROR
         return {"label": job.entry.label, "status": status, "exit_class": 1,
                 "message": f"{name}: {exc}", "result": None, "files": {}, "warnings": [],
-                "wall_s": math.nan, "worker": None}
+                "wall_s": math.nan, "cpu_s": math.nan, "worker": None}
 
 
 def _attempts(client, run_id: str, label: str) -> int:
@@ -552,7 +567,8 @@ def _finish(job: _Job, outcome: dict, attempts: int, out_dir, logbook, log_creat
                      "command": job.entry.command,
                      "inputs": [{"path": p, "sha256": h}
                                 for p, h in zip(job.entry.inputs, job.hashes)],
-                     "wall_s": outcome["wall_s"], "attempts": attempts,
+                     "wall_s": outcome["wall_s"], "cpu_s": outcome.get("cpu_s", math.nan),
+                     "attempts": attempts,
                      "worker": outcome["worker"], "warnings": outcome["warnings"],
                      "written_at": collect_provenance()["created_at"]}
             try:
