@@ -14,6 +14,20 @@ the options measured to choose ``GRID_SUBSTEPS``), medians of repeats, with
 the machine's load average printed beside them.  The routes agree to 1e-9
 (checked here).  Invented scenario: T_c = 80 ms, n_th = 0.15, parity probe
 (V = 0.9, readout errors 0.02 / 0.03), mean spacing 100 us.
+
+``--options`` adds the kernel variants of ``grid_variants.py`` (parameter sets
+per loop body, series terms per probe, no eigen branch, sets as arrays), each
+checked against the kept kernel and timed in the same run.
+
+Measured on the shared 2-core machine (docs/probe-records.md, "Irregular probe
+times"): regular clock 12.7 ns per probe per set at load 0.9-1.4, grid route
+3.18x, eigen route 5.22x; in the --options run (load 3.4-5.0, N = 8) the kept
+grid kernel 3.25x, two sets per loop body 3.91x, four 6.08x, terms per probe
+3.86x, no eigen branch 3.30x, sets as arrays 8.21x: none pays, the 2x target is
+not met (scalar floor about 1 + 4K/N: 3.0 for N = 8, K = 4; 2.2-2.4x measured
+at n_th = 0.6, 12-14 levels).  Whole ``cavchar fit probes`` of 2x10^5
+Poisson-timed probes: 81.9 s at load 4.2-4.9 (138.6 s before the trajectory
+fix, load 3.2-4.9).
 """
 
 from __future__ import annotations
@@ -178,8 +192,10 @@ def whole_fit(n_probes: int, walkers: int) -> None:
     result = fit_probes(rec_p, response=resp, seed=1, mode="exact",
                         settings=SamplerSettings(n_walkers=walkers, quiet=True))
     elapsed = time.perf_counter() - t0
-    print(f"  {elapsed:.1f} s total ({result.diagnostics['elapsed_s']:.1f} s in the sampler, "
-          f"{result.diagnostics['n_steps']} steps, converged: {result.converged}); "
+    diag = result.diagnostics
+    print(f"  {elapsed:.1f} s total ({diag['elapsed_s']:.1f} s in the sampler "
+          f"({diag.get('sampler', 'ensemble')}), {diag.get('n_draws', diag.get('n_steps'))} "
+          f"draws/steps, converged: {result.converged}); "
           f"load after {load()}")
     summary = result.summary()
     for name, truth in (("lifetime", LIFETIME), ("n_thermal", N_TH)):
@@ -189,6 +205,7 @@ def whole_fit(n_probes: int, walkers: int) -> None:
 
 
 def main() -> None:
+    global N_TH
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--probes", type=int, default=200_000)
     ap.add_argument("--sets", type=int, default=32)
@@ -198,7 +215,10 @@ def main() -> None:
                     help="also time the kernel variants of grid_variants.py (about 4 min of "
                     "compiling)")
     ap.add_argument("--walkers", type=int, default=32)
+    ap.add_argument("--n-thermal", type=float, default=N_TH,
+                    help="thermal photon number of the scenario (more levels: see the docs)")
     args = ap.parse_args()
+    N_TH = args.n_thermal
     per_probe(args.probes, args.sets, args.repeats)
     if args.options:
         kernel_options(args.probes, args.sets, args.repeats)
