@@ -13,6 +13,7 @@ fixed (the slow study below checks the coverage rate over many records).
 
 from __future__ import annotations
 
+import json
 import math
 import warnings
 
@@ -209,8 +210,11 @@ def test_cli_fit_probes_writes_result_trajectory_and_jump_record(tmp_path, run_c
                                    "--freq", "5GHz", "-o", out)
     assert code == 0, stderr
     assert "lifetime" in stdout or "T_c" in stdout
+    assert "probe intervals: regular clock, 1 ms (exact)" in stdout
     for name in ("result.json", "trajectory.csv", "viterbi_jumps.csv", "trajectory.png"):
         assert (out / name).exists(), name
+    stored = json.loads((out / "result.json").read_text())["settings"]["fit"]["intervals"]
+    assert stored["route"] == "regular clock" and stored["interval_s"] == pytest.approx(1e-3)
     # a second run without --force refuses to overwrite (exit 2, no traceback)
     code, _, stderr = run_cli("fit", "probes", src, "-o", out, "--quiet")
     assert code == 2 and "Traceback" not in stderr

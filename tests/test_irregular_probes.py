@@ -18,7 +18,7 @@ from scipy import linalg, stats
 from cavchar.fits.probes import fit_probes
 from cavchar.inference import SamplerSettings
 from cavchar.models import hmm_kernels as hk
-from cavchar.models.probes import ProbeLikelihood, probe_steps
+from cavchar.models.probes import ProbeLikelihood, probe_steps, route_text
 from cavchar.models.response import FringeResponse
 from cavchar.records import ProbeRecord
 from cavchar.simulate import probes_on_path
@@ -107,6 +107,30 @@ def test_grid_split_of_the_intervals():
                                steps.dts[inside], rtol=1e-12, atol=1e-18)
     assert np.all((steps.remainder >= 0) & (steps.remainder < h * (1 + 1e-12)))
     assert 0 < np.mean(~inside) <= 2e-3
+
+
+def test_route_recorded_for_the_result():
+    """The route a record takes, with the grid and the series length at a parameter point:
+    the series length checked against the Poisson tail (scipy.stats) at the largest exit
+    rate of the generator written out here."""
+    rng = np.random.default_rng(4)
+    time = np.cumsum(rng.exponential(1e-3, 3000))
+    resp = FringeResponse(**PARITY)
+    like = ProbeLikelihood(ProbeRecord(time, rng.integers(0, 2, time.size).astype(float)), resp)
+    route = like.interval_route([0.05, 0.3])
+    assert route["route"] == "exact grid" and route["bound"].startswith("none: exact")
+    assert route["grid_step_s"] == pytest.approx(np.mean(np.diff(time)) / 8, rel=1e-12)
+    assert route["table_matrices"] == like.steps.steps.size
+    assert 0 < route["beyond_table_fraction"] <= 2e-3
+    rate = np.max(-np.diag(generator(1 / 0.05, 0.3, route["levels"])))
+    k = route["series_terms"]
+    assert stats.poisson.sf(k, rate * route["grid_step_s"]) <= hk.SERIES_TOLERANCE
+    assert stats.poisson.sf(k - 2, rate * route["grid_step_s"]) > hk.SERIES_TOLERANCE
+    assert "exact grid route" in route_text(route)
+    eig = ProbeLikelihood(like.record, resp, irregular="eigen").interval_route()
+    assert eig["route"] == "per-interval eigen"
+    clock = ProbeLikelihood(ProbeRecord(1e-3 * np.arange(100), np.zeros(100)), resp)
+    assert route_text(clock.interval_route()) == "probe intervals: regular clock, 1 ms (exact)"
 
 
 @pytest.mark.parametrize("z", [1e-6, 1e-3, 0.05, 0.7, 4.0])

@@ -204,6 +204,7 @@ def handle(args: argparse.Namespace) -> int:
     from cavchar.fits.probes import ProbePriors, fit_probes_with_trajectory
     from cavchar.io.atomic import check_can_write
     from cavchar.io.writers import write_jump_record
+    from cavchar.models.probes import route_text
 
     check_outputs(args)
     if args.out:
@@ -228,6 +229,9 @@ def handle(args: argparse.Namespace) -> int:
         command="cavchar " + shlex.join(sys.argv[1:]) if sys.argv else None,
         sampler=args.sampler,
     )
+    route = result.settings["fit"].get("intervals")
+    if route:
+        print(route_text(route))
     bias = result.checks.get("coarse_bias")
     if bias:
         print(f"coarse mode: blocks of {bias['block_probes']} probes; bias bound "

@@ -70,7 +70,7 @@ def reconstruct_trajectory(model: ProbeLikelihood, draws: ArrayLike,
     first = np.zeros(len(model.record))
     second = np.zeros(len(model.record))
     for i in pick:
-        traj = model.trajectory(draws[i])
+        traj = model.trajectory(draws[i], viterbi=False)  # the path: at the median only
         levels = np.arange(traj.marginals.shape[1], dtype=float)
         first += traj.mean
         second += traj.marginals @ (levels * levels)

@@ -355,7 +355,8 @@ def _fit(record, *, response=None, freq_hz=None, stage_temp_k=None, priors=None,
     model_settings = {"mode": "coarse" if use_coarse else "exact",
                       "block_probes": int(blocks) if use_coarse else 1,
                       "levels_99.9%": top, "initial_state": initial, "sampler": sampler,
-                      "response": response.describe()}
+                      "response": response.describe(),
+                      "intervals": exact.interval_route(np.median(run.draws, axis=0))}
     kind = "probes-coarse" if use_coarse else "probes-exact"
     result = finish_fit(kind, run, context, checks=checks, extras=extras,
                         model_settings=model_settings)

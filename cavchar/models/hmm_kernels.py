@@ -453,17 +453,22 @@ def _propagate(mode, c, t, a, b, x, trans, sidx, right, lam, left, dts, rem, uni
 
 
 @njit(cache=True, nogil=True)
-def _step_matrix(mode, c, t, out, trans, sidx, right, lam, left, dts):
-    """out = P_t for parameter set c."""
+def _step_matrix(mode, c, t, out, trans, sidx, right, lam, left, dts, ex):
+    """out = P_t for parameter set c (``ex``: scratch of length N)."""
     n = out.shape[0]
     if mode == 2:
         d = dts[t]
+        for m in range(n):  # N exponentials per interval, not N^3
+            ex[m] = np.exp(lam[c, m] * d)
         for i in range(n):
             for j in range(n):
-                acc = 0.0
-                for m in range(n):
-                    acc += right[c, i, m] * np.exp(lam[c, m] * d) * left[c, m, j]
-                out[i, j] = max(acc, 0.0)
+                out[i, j] = 0.0
+            for m in range(n):
+                rm = right[c, i, m] * ex[m]
+                for j in range(n):
+                    out[i, j] += rm * left[c, m, j]
+            for j in range(n):
+                out[i, j] = max(out[i, j], 0.0)
     else:
         mm = sidx[t] if mode == 1 else 0
         for i in range(n):
@@ -565,7 +570,7 @@ def _marginals(mode, trans, sidx, right, lam, left, dts, p0, emis, codes, starts
             code = codes[t]
             for j in range(n):
                 v[j] = emis[code, j] * beta[j]
-            _step_matrix(mode, 0, t, pm, trans, sidx, right, lam, left, dts)
+            _step_matrix(mode, 0, t, pm, trans, sidx, right, lam, left, dts, x)
             mx = 0.0
             for i in range(n):
                 acc = 0.0
@@ -591,6 +596,7 @@ def _viterbi(mode, trans, sidx, right, lam, left, dts, p0, emis, codes, starts, 
     back = np.empty((T, n), dtype=np.int16)
     delta = np.empty(n)
     new = np.empty(n)
+    ex = np.empty(n)
     pm = np.empty((n, n))
     total = 0.0
     for g in range(starts.shape[0] - 1):
@@ -602,7 +608,7 @@ def _viterbi(mode, trans, sidx, right, lam, left, dts, p0, emis, codes, starts, 
                 for j in range(n):
                     new[j] = p0[j] * emis[code, j]
             else:
-                _step_matrix(mode, 0, t, pm, trans, sidx, right, lam, left, dts)
+                _step_matrix(mode, 0, t, pm, trans, sidx, right, lam, left, dts, ex)
                 for j in range(n):
                     best = -1.0
                     arg = 0

@@ -48,6 +48,7 @@ __all__ = [
     "levels_needed",
     "group_settings",
     "TRUNCATION_VISITS",
+    "route_text",
 ]
 
 #: relative tolerance under which two probe intervals count as equal
@@ -189,15 +190,15 @@ class Trajectory:
         Posterior ``P(n_t = j | outcomes)`` (forward-backward).
     mean : ndarray (T,)
         Posterior mean photon number.
-    path : ndarray of int (T,)
-        Most likely path (Viterbi).
+    path : ndarray of int (T,) or None
+        Most likely path (Viterbi); None when not asked for.
     log_likelihood : float
     """
 
     time: np.ndarray
     marginals: np.ndarray
     mean: np.ndarray
-    path: np.ndarray
+    path: np.ndarray | None
     log_likelihood: float
 
 
@@ -400,6 +401,41 @@ class ProbeLikelihood:
                                 None if free is None else free[rows])
         return out
 
+    def interval_route(self, theta: ArrayLike | None = None) -> dict:
+        """How the probe intervals are propagated, for the result file.
+
+        ``route`` is ``"regular clock"`` (one matrix), ``"distinct intervals"`` (one
+        matrix per interval), ``"exact grid"`` (irregular spacing, module docstring)
+        or ``"per-interval eigen"``; all are exact, so ``bound`` says why no error
+        bound is needed.  For the grid: its step ``grid_step_s`` (s), the number of
+        table matrices, the longest tabulated interval (s), the fraction of intervals
+        beyond it (eigen route) and, at the parameter point ``theta`` (lifetime in s,
+        n_th, ...), the truncation and the number of series terms.
+        """
+        s = self.steps
+        exact = "none: exact (rounding only)"
+        if s.kind == "regular":
+            return {"route": "regular clock", "interval_s": float(s.steps[0]), "bound": exact}
+        if s.kind == "indexed":
+            return {"route": "distinct intervals", "intervals": int(s.steps.size),
+                    "bound": exact}
+        if self.irregular == "eigen":
+            return {"route": "per-interval eigen", "bound": exact}
+        out = {"route": "exact grid", "grid_step_s": float(s.grid_step),
+               "table_matrices": int(s.steps.size), "table_top_s": float(s.steps[-1]),
+               "beyond_table_fraction": float(np.mean(s.step_index < 0)),
+               "series_tolerance": float(hk.SERIES_TOLERANCE),
+               "bound": "none: exact (series tail below 2^-53 of each step, under its "
+                        "rounding)"}
+        if theta is not None:
+            theta = np.asarray(theta, dtype=float).reshape(1, -1)
+            n = int(min(self.levels_for(theta[:, 0], theta[:, 1], cap=False)[0],
+                        self.max_levels))
+            _, rate = hk.uniformization_parts(1.0 / theta[:, 0], theta[:, 1], n)
+            out["levels"] = n
+            out["series_terms"] = int(hk.uniformization_terms(rate * s.grid_step)[0])
+        return out
+
     # -- likelihood -------------------------------------------------------------------
 
     def __call__(self, theta: ArrayLike) -> np.ndarray:
@@ -413,9 +449,10 @@ class ProbeLikelihood:
 
     # -- trajectory -------------------------------------------------------------------
 
-    def trajectory(self, theta: ArrayLike) -> Trajectory:
-        """Forward-backward marginals (T, N) and the Viterbi path at one parameter point
-        (N: the truncation :meth:`levels_for` gives that point)."""
+    def trajectory(self, theta: ArrayLike, viterbi: bool = True) -> Trajectory:
+        """Forward-backward marginals (T, N) and the Viterbi path (unless ``viterbi`` is
+        False) at one parameter point (N: the truncation :meth:`levels_for` gives that
+        point)."""
         theta, kappa, n_th, free, ok = self._split(np.asarray(theta, dtype=float).reshape(1, -1))
         if not ok[0]:
             raise InputError("the parameter point is outside the model's support")
@@ -424,9 +461,29 @@ class ProbeLikelihood:
         emis = hk.emission_table(self.prob_one(free, n_levels, 1))[0]
         p0 = self.initial_law(n_th, n_levels)[0]
         post, ll = hk.posterior_marginals(tr, p0, emis, self.sequence)
-        path, _ = hk.viterbi(tr, p0, emis, self.sequence)
+        path = hk.viterbi(tr, p0, emis, self.sequence)[0] if viterbi else None
         mean = post @ np.arange(n_levels, dtype=float)
         return Trajectory(np.asarray(self.record.time), post, mean, path, ll)
+
+
+def route_text(route: dict) -> str:
+    """One line for the command's output from :meth:`ProbeLikelihood.interval_route`."""
+    from cavchar.units import format_quantity
+
+    kind = route["route"]
+    if kind == "regular clock":
+        return (f"probe intervals: regular clock, "
+                f"{format_quantity(route['interval_s'], 'time')} (exact)")
+    if kind == "distinct intervals":
+        return f"probe intervals: {route['intervals']} distinct intervals (exact)"
+    if kind == "per-interval eigen":
+        return "probe intervals: irregular, per-interval eigen route (exact)"
+    terms = f", {route['series_terms']} series terms" if "series_terms" in route else ""
+    return (f"probe intervals: irregular, exact grid route (step "
+            f"{format_quantity(route['grid_step_s'], 'time')}, {route['table_matrices']} "
+            f"matrices up to {format_quantity(route['table_top_s'], 'time')}, "
+            f"{100 * route['beyond_table_fraction']:.2g}% of the intervals beyond{terms}); "
+            "no bound needed: series tail below 2^-53 per step")
 
 
 def exit_rate(kappa: float, n_th: float, n: float) -> float:

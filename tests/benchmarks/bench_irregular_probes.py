@@ -14,6 +14,20 @@ the options measured to choose ``GRID_SUBSTEPS``), medians of repeats, with
 the machine's load average printed beside them.  The routes agree to 1e-9
 (checked here).  Invented scenario: T_c = 80 ms, n_th = 0.15, parity probe
 (V = 0.9, readout errors 0.02 / 0.03), mean spacing 100 us.
+
+``--options`` adds the kernel variants of ``grid_variants.py`` (parameter sets
+per loop body, series terms per probe, no eigen branch, sets as arrays), each
+checked against the kept kernel and timed in the same run.
+
+Measured on the shared 2-core machine (docs/probe-records.md, "Irregular probe
+times"): regular clock 12.7 ns per probe per set at load 0.9-1.4, grid route
+3.18x, eigen route 5.22x; in the --options run (load 3.4-5.0, N = 8) the kept
+grid kernel 3.25x, two sets per loop body 3.91x, four 6.08x, terms per probe
+3.86x, no eigen branch 3.30x, sets as arrays 8.21x: none pays, the 2x target is
+not met (scalar floor about 1 + 4K/N: 3.0 for N = 8, K = 4; 2.2-2.4x measured
+at n_th = 0.6, 12-14 levels).  Whole ``cavchar fit probes`` of 2x10^5
+Poisson-timed probes: 81.9 s at load 4.2-4.9 (138.6 s before the trajectory
+fix, load 3.2-4.9).
 """
 
 from __future__ import annotations
@@ -92,6 +106,82 @@ def per_probe(n_probes: int, k: int, repeats: int) -> None:
               f"{med / base:4.2f}x regular{extra}")
 
 
+def kernel_options(n_probes: int, k: int, repeats: int, n_levels: int = 8) -> None:
+    """The kernel variants of ``grid_variants.py`` at a fixed truncation, timed interleaved
+    beside the regular-clock kernel and the kept grid kernel (same outcomes, same sets)."""
+    import sys
+    from pathlib import Path
+
+    from cavchar.models import hmm_kernels as hk
+    from cavchar.models import probes as pm
+
+    sys.path.insert(0, str(Path(__file__).parent))
+    import grid_variants as gv
+
+    rec_p, rec_r, resp = records(n_probes)
+    theta = np.column_stack([LIFETIME * np.linspace(0.9, 1.1, k), N_TH * np.linspace(0.9, 1.1, k)])
+    kappa, n_th, levels = 1 / theta[:, 0], theta[:, 1], np.full(k, n_levels)
+    regular, grid = pm.ProbeLikelihood(rec_r, resp), pm.ProbeLikelihood(rec_p, resp)
+    saved = pm.GRID_QUANTILE, pm.GRID_MAX_STEPS
+    pm.GRID_QUANTILE, pm.GRID_MAX_STEPS = 1.0, 100_000  # a table covering every interval
+    full = pm.ProbeLikelihood(rec_p, resp)
+    pm.GRID_QUANTILE, pm.GRID_MAX_STEPS = saved
+    emis = hk.emission_table(grid.prob_one(None, n_levels, k))
+    emis = np.ascontiguousarray(np.broadcast_to(emis, (k,) + emis.shape[1:]))
+    p0 = grid.initial_law(n_th, levels)
+    offs = np.zeros((k, emis.shape[1]))
+    tr_r = regular.transitions(kappa, n_th, levels)
+    tr_g = grid.transitions(kappa, n_th, levels)
+    tr_f = full.transitions(kappa, n_th, levels)
+    seq = grid.sequence
+    runs = {"regular clock": lambda: hk.forward_loglik(tr_r, p0, emis, regular.sequence),
+            "grid (kept)": lambda: hk.forward_loglik(tr_g, p0, emis, seq),
+            "grid (kept), full table": lambda: hk.forward_loglik(tr_f, p0, emis, seq)}
+
+    def variant(tr, lanes=1, **options):
+        args, groups = gv.to_lanes(tr, p0, emis, offs, lanes)
+        rthr = gv.thresholds(tr.rates)
+        out = np.empty((groups, lanes))
+        t0 = time.perf_counter()
+        fn = gv.build(n_levels, lanes=lanes, **options)
+        fn(*args, seq.codes, seq.starts, out, rthr)
+        print(f"  compiled {lanes} lane(s) {options or ''} in {time.perf_counter() - t0:.0f} s")
+        return lambda: (fn(*args, seq.codes, seq.starts, out, rthr), out.reshape(-1)[:k])[1]
+
+    runs["2 sets per loop body"] = variant(tr_g, lanes=2)
+    runs["4 sets per loop body"] = variant(tr_g, lanes=4)
+    runs["terms per probe"] = variant(tr_g, per_probe_terms=True)
+    runs["no eigen branch, full table"] = variant(tr_f, no_eigen=True)
+    args4, groups4 = gv.to_lanes(tr_f, p0, emis, offs, 4)
+    out4 = np.empty((groups4, 4))
+
+    def loop4():
+        gv.loop_lanes4(*args4[:6], *args4[10:], seq.codes, seq.starts, out4)
+        return out4.reshape(-1)[:k]
+
+    runs["4 sets as arrays, full table"] = loop4
+    ref = runs["grid (kept)"]()
+    for name, fn in runs.items():
+        if name != "regular clock" and not np.allclose(fn(), ref, rtol=1e-11, atol=0):
+            raise SystemExit(f"{name} disagrees with the kept grid kernel")
+    times: dict[str, list[float]] = {name: [] for name in runs}
+    before = load()
+    for _ in range(repeats):
+        for name, fn in runs.items():
+            t0 = time.perf_counter()
+            fn()
+            times[name].append(time.perf_counter() - t0)
+    base = statistics.median(times["regular clock"])
+    print(f"\nkernel options, N = {n_levels}, {n_probes} probes, {k} sets, median of {repeats} "
+          f"interleaved repeats; load average {before} before, {load()} after "
+          f"(series terms {tr_g.terms.min()}-{tr_g.terms.max()}, table {tr_g.matrices.shape[1]} "
+          f"matrices, full table {tr_f.matrices.shape[1]}):")
+    for name, ts in times.items():
+        med = statistics.median(ts)
+        print(f"  {name:30s} {med / (n_probes * k) * 1e9:6.1f} ns per probe per set, "
+              f"{med / base:4.2f}x regular")
+
+
 def whole_fit(n_probes: int, walkers: int) -> None:
     from cavchar.fits.probes import fit_probes
     from cavchar.inference import SamplerSettings
@@ -102,8 +192,10 @@ def whole_fit(n_probes: int, walkers: int) -> None:
     result = fit_probes(rec_p, response=resp, seed=1, mode="exact",
                         settings=SamplerSettings(n_walkers=walkers, quiet=True))
     elapsed = time.perf_counter() - t0
-    print(f"  {elapsed:.1f} s total ({result.diagnostics['elapsed_s']:.1f} s in the sampler, "
-          f"{result.diagnostics['n_steps']} steps, converged: {result.converged}); "
+    diag = result.diagnostics
+    print(f"  {elapsed:.1f} s total ({diag['elapsed_s']:.1f} s in the sampler "
+          f"({diag.get('sampler', 'ensemble')}), {diag.get('n_draws', diag.get('n_steps'))} "
+          f"draws/steps, converged: {result.converged}); "
           f"load after {load()}")
     summary = result.summary()
     for name, truth in (("lifetime", LIFETIME), ("n_thermal", N_TH)):
@@ -113,14 +205,23 @@ def whole_fit(n_probes: int, walkers: int) -> None:
 
 
 def main() -> None:
+    global N_TH
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--probes", type=int, default=200_000)
     ap.add_argument("--sets", type=int, default=32)
     ap.add_argument("--repeats", type=int, default=7)
     ap.add_argument("--fit", action="store_true", help="also time a whole fit")
+    ap.add_argument("--options", action="store_true",
+                    help="also time the kernel variants of grid_variants.py (about 4 min of "
+                    "compiling)")
     ap.add_argument("--walkers", type=int, default=32)
+    ap.add_argument("--n-thermal", type=float, default=N_TH,
+                    help="thermal photon number of the scenario (more levels: see the docs)")
     args = ap.parse_args()
+    N_TH = args.n_thermal
     per_probe(args.probes, args.sets, args.repeats)
+    if args.options:
+        kernel_options(args.probes, args.sets, args.repeats)
     if args.fit:
         whole_fit(args.probes, args.walkers)
 
