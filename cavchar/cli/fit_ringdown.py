@@ -4,8 +4,6 @@ from __future__ import annotations
 
 import argparse
 import dataclasses
-import shlex
-import sys
 
 from cavchar.cli.common import (
     HelpFormatter,
@@ -151,7 +149,7 @@ def handle(args: argparse.Namespace) -> int:
         n0=args.n0,
         allow_negative_power=args.allow_negative,
         compare=not args.no_compare,
-        command="cavchar " + shlex.join(sys.argv[1:]) if sys.argv else None,
+        command_line=getattr(args, "command_line", None),
     )
     code = finish_fit_command(result, args)
     comparison = result.checks.get("two_exponentials")

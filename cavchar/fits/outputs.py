@@ -11,11 +11,12 @@ from pathlib import Path
 from cavchar.errors import InputError
 from cavchar.io.atomic import check_can_write
 from cavchar.result import FitResult
+from cavchar.result_types import PlanckCheck
 
 __all__ = ["print_summary", "summary_text", "planck_statement", "write_fit_outputs",
            "fit_figures"]
 
-#: kind prefix -> module with ``figures(result) -> dict[name, Figure]``
+#: kind family -> module with ``figures(result) -> dict[name, Figure]``
 FIGURE_MODULES = {
     "jumps": "cavchar.plots.jumps",
     "probes": "cavchar.plots.probes",
@@ -59,9 +60,8 @@ def summary_text(result: FitResult) -> str:
         lines.append(f"  {label:<34}{t['median']:>14}"
                      f"{'[' + t['lo68'] + ', ' + t['hi68'] + ']':>30}"
                      f"{'[' + t['lo95'] + ', ' + t['hi95'] + ']':>30}")
-    planck = result.checks.get("planck")
-    if planck:
-        lines.append("  " + planck_statement(planck))
+    if result.planck is not None:
+        lines.append("  " + planck_statement(result.planck))
     for name in ("lifetime", "n_thermal"):
         if name in table.index:
             lines.append("  " + result.one_line(name))
@@ -70,33 +70,30 @@ def summary_text(result: FitResult) -> str:
     return "\n".join(lines)
 
 
-def planck_statement(planck: dict) -> str:
+def planck_statement(planck: PlanckCheck) -> str:
     """The Planck check in words, e.g. "the mode is hotter than its 20 mK stage with
     probability 0.998; effective temperature 61 (+4/-3) mK"."""
     from cavchar.units import format_quantity
 
-    needed = ("stage_temperature_k", "prob_hotter_than_stage", "verdict")
-    if any(planck.get(key) is None for key in needed) or (
-            planck.get("effective_temperature_k") is None
-            and planck.get("effective_temperature_upper95_k") is None):
+    if not planck.complete:
         return "Planck check: incomplete in this result (fit again with --stage-temp)"
-    stage = format_quantity(planck["stage_temperature_k"], "temperature")
-    p_hot = planck["prob_hotter_than_stage"]
-    if (planck.get("piles_up_at_zero") and planck.get("effective_temperature_upper95_k")
-            is not None) or planck.get("effective_temperature_k") is None:
-        limit = format_quantity(planck["effective_temperature_upper95_k"], "temperature")
+    stage = format_quantity(planck.stage_temperature_k, "temperature")
+    p_hot = planck.prob_hotter_than_stage
+    if (planck.piles_up_at_zero and planck.effective_temperature_upper95_k
+            is not None) or planck.effective_temperature_k is None:
+        limit = format_quantity(planck.effective_temperature_upper95_k, "temperature")
         temp = f"effective temperature below {limit} (95% upper limit)"
     else:
-        t = planck["effective_temperature_k"]
+        t = planck.effective_temperature_k
         med_text = format_quantity(t["median"], "temperature", 3)
         value, unit = med_text.split(" ") if " " in med_text else (med_text, "")
         scale = t["median"] / float(value) if float(value) else 1.0
         plus = (t["hi68"] - t["median"]) / scale
         minus = (t["median"] - t["lo68"]) / scale
         temp = f"effective temperature {value} (+{plus:.2g}/-{minus:.2g}) {unit} (68% credible)"
-    if planck["verdict"] == "hotter than the stage":
+    if planck.verdict == "hotter than the stage":
         head = f"the mode is hotter than its {stage} stage with probability {p_hot:.3g}"
-    elif planck["verdict"] == "colder than the stage":
+    elif planck.verdict == "colder than the stage":
         head = (f"the mode is colder than its {stage} stage with probability "
                 f"{1 - p_hot:.3g}")
     else:
@@ -114,7 +111,7 @@ def fit_figures(result: FitResult) -> dict:
     from cavchar.plots.common import corner_plot, trace_plot
 
     figures = {}
-    module_name = FIGURE_MODULES.get(result.kind.split("-")[0])
+    module_name = FIGURE_MODULES.get(result.kind.family)
     if module_name is not None:
         figures.update(importlib.import_module(module_name).figures(result))
     figures["corner"] = corner_plot(result)

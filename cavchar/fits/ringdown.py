@@ -182,7 +182,7 @@ def fit_ringdown(
     n0: float | None = None,
     allow_negative_power: bool = False,
     compare: bool = True,
-    command: str | None = None,
+    command_line: Sequence[str] | None = None,
 ):
     """Posterior of the energy lifetime (and n_th) from one or more ring-down traces.
 
@@ -220,8 +220,10 @@ def fit_ringdown(
         Accept negative values of a linear power trace (background-subtracted data).
     compare
         For a single power trace, compare with two exponentials (BIC) and store it.
-    command
-        The command line, stored in the provenance.
+    command_line
+        The command as argv strings, stored in the provenance (the command-line
+        interface passes its own ``argv``); None, the default for Python callers,
+        records no command line.
 
     Returns
     -------
@@ -267,7 +269,7 @@ def fit_ringdown(
                       "allow_negative_power": allow_negative_power,
                       "initial_state": state, "n0_fixed": n0}
     context = FitContext(record=list(data.records), freq_hz=freq_hz,
-                         stage_temp_k=stage_temp_k, command=command)
+                         stage_temp_k=stage_temp_k, command_line=command_line)
     result = finish_fit(f"ringdown-{data.signal}", run, context, checks=checks, extras=extras,
                         model_settings=model_settings)
     if nuisance:

@@ -115,7 +115,7 @@ def plot_populations_fit(curves: dict, max_levels: int = 6, fig=None):
 def figures(result) -> dict:
     """Model-specific figures of a ring-down fit, from the result alone (its extras)."""
     curves = result.extras.get("curves") or {}
-    signal = result.extras.get("signal", result.kind.split("-", 1)[-1])
+    signal = result.extras.get("signal", result.kind.variant)
     if "populations" in curves:
         return {"ringdown_fit": plot_populations_fit(curves)}
     if curves.get("traces"):
