@@ -28,7 +28,7 @@ import pandas as pd
 from cavchar.derived import COLUMN_INFO, QUANTILES_68, add_derived_quantities, planck_check
 from cavchar.errors import InputError
 from cavchar.parameters import ParameterSpec
-from cavchar.result_types import FitKind, PlanckCheck, Provenance, SamplerDiagnostics
+from cavchar.result_types import FitKind, PlanckCheck, Provenance, SamplerDiagnostics, freeze
 from cavchar.units import decimals_for
 
 if TYPE_CHECKING:
@@ -96,6 +96,13 @@ def default_draws_name(stem: str = "draws") -> str:
 @dataclass(frozen=True, eq=False)
 class FitResult:
     """Outcome of a fit (immutable fields; the tables given are copied; compared by identity).
+
+    Every field is read-only, all the way down: the draws (see ``samples``), and the
+    mappings and lists of the settings, checks, extras, MAP values and typed parts
+    (:class:`~cavchar.result_types.FrozenDict`, :class:`~cavchar.result_types.FrozenList`:
+    plain dicts and lists to every reader, but changing one raises ``TypeError``).
+    The constructor also takes the plain-JSON forms of ``kind``, ``diagnostics``,
+    ``provenance`` and ``checks["planck"]`` (those of schema 1 included).
 
     Attributes
     ----------
@@ -192,6 +199,9 @@ class FitResult:
         object.__setattr__(self, "planck", planck)
         object.__setattr__(self, "map_values",
                            {k: (math.nan if v is None else v) for k, v in self.map_values.items()})
+        # read-only from here on: nothing can change what summary() and to_json() report
+        for name in ("map_values", "settings", "checks", "extras"):
+            object.__setattr__(self, name, freeze(getattr(self, name)))
 
     def __setstate__(self, state: dict[str, Any]) -> None:
         """Unpickling (dask, copy): the draws and the chain stay read-only."""

@@ -28,7 +28,53 @@ from dataclasses import dataclass, field, fields
 from typing import Any
 
 __all__ = ["FitKind", "InputFile", "Provenance", "SamplerDiagnostics", "PlanckCheck",
-           "utc_timestamp", "parse_timestamp"]
+           "FrozenDict", "FrozenList", "freeze", "utc_timestamp", "parse_timestamp"]
+
+
+def _read_only(self: Any, *args: Any, **kwargs: Any) -> None:
+    raise TypeError(f"a {type(self).__name__} of a fit result is read-only (copy it with "
+                    "dict() or list() to change the copy)")
+
+
+class FrozenDict(dict):
+    """A read-only dict: the mappings of a :class:`~cavchar.result.FitResult` and of its
+    parts.  It is a dict for every reader (``json.dumps``, ``==`` with plain dicts,
+    ``{**d}``), but each method that would change it raises ``TypeError``; pickling
+    and copying give a FrozenDict again."""
+
+    __slots__ = ()
+    __setitem__ = __delitem__ = clear = pop = popitem = setdefault = update = _read_only
+    __ior__ = _read_only
+
+    def __reduce__(self) -> tuple:
+        return FrozenDict, (dict(self),)
+
+    def __repr__(self) -> str:
+        return f"FrozenDict({dict.__repr__(self)})"
+
+
+class FrozenList(list):
+    """A read-only list (see :class:`FrozenDict`); equal to a plain list of the same items."""
+
+    __slots__ = ()
+    __setitem__ = __delitem__ = append = extend = insert = remove = pop = clear = _read_only
+    sort = reverse = __iadd__ = __imul__ = _read_only
+
+    def __reduce__(self) -> tuple:
+        return FrozenList, (list(self),)
+
+    def __repr__(self) -> str:
+        return f"FrozenList({list.__repr__(self)})"
+
+
+def freeze(value: Any) -> Any:
+    """A read-only deep copy of plain-JSON data: mappings become :class:`FrozenDict`, lists
+    and tuples :class:`FrozenList`; numbers, text, None and other objects stay as they are."""
+    if isinstance(value, Mapping):
+        return FrozenDict({str(k): freeze(v) for k, v in value.items()})
+    if isinstance(value, list | tuple):
+        return FrozenList(freeze(v) for v in value)
+    return value
 
 
 def utc_timestamp(when: _dt.datetime | None = None) -> str:
@@ -147,7 +193,7 @@ class Provenance:
             f if isinstance(f, InputFile) else InputFile(**f) for f in self.inputs))
         if self.command_line is not None:
             object.__setattr__(self, "command_line", tuple(str(a) for a in self.command_line))
-        object.__setattr__(self, "versions", dict(self.versions))
+        object.__setattr__(self, "versions", freeze(self.versions))
 
     @property
     def cavchar_version(self) -> str | None:
@@ -278,6 +324,9 @@ class SamplerDiagnostics:
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "failed_checks", tuple(str(t) for t in self.failed_checks))
+        for f in fields(self):
+            if f.name != "failed_checks":
+                object.__setattr__(self, f.name, freeze(getattr(self, f.name)))
 
     def to_dict(self) -> dict[str, Any]:
         out = _without_none({f.name: getattr(self, f.name) for f in fields(self)
@@ -364,6 +413,10 @@ class PlanckCheck:
         if unknown:
             raise ValueError(f"checks.planck has unknown fields {unknown}")
         return cls(**dict(data))
+
+    def __post_init__(self) -> None:
+        for name in ("n_thermal", "effective_temperature_k", "excess_photons"):
+            object.__setattr__(self, name, freeze(getattr(self, name)))
 
 
 def as_argv(command_line: Sequence[str] | str | None) -> tuple[str, ...] | None:

@@ -310,3 +310,39 @@ def test_diagnostics_keep_unknown_fields_and_drop_the_repeated_verdict():
     diag = SamplerDiagnostics.from_dict({"converged": True, "n_steps": 10, "custom": [1]})
     assert diag.n_steps == 10 and diag.extra == {"custom": [1]}
     assert diag.to_dict() == {"n_steps": 10, "custom": [1]}
+
+
+def test_result_is_read_only_all_the_way_down():
+    """No field of a result can be changed in place, so summary() and to_json() stay
+    what the fit gave; pickling (dask workers) and copying keep it so."""
+    import copy
+    import dataclasses
+    import pickle
+
+    result = make_result(n=200)
+    before = result.to_dict()
+    attempts = [
+        lambda: result.settings.__setitem__("fit", {}),
+        lambda: result.settings["sampler"].update(seed=1),
+        lambda: result.checks.setdefault("x", 1),
+        lambda: result.extras.pop("record_length_s"),
+        lambda: result.map_values.__setitem__("lifetime", 1.0),
+        lambda: result.provenance.versions.__setitem__("cavchar", "9"),
+        lambda: result.diagnostics.tau.__setitem__("lifetime", 0.0),
+        lambda: result.column("lifetime").__setitem__(0, 1.0),
+    ]
+    for attempt in attempts:
+        with pytest.raises((TypeError, ValueError)):
+            attempt()
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        result.provenance.created_at = "yesterday"  # type: ignore[misc]
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        result.kind.family = "probes"  # type: ignore[misc]
+    assert result.to_dict() == before
+    for other in (pickle.loads(pickle.dumps(result)), copy.deepcopy(result)):
+        assert other.to_dict() == before
+        with pytest.raises(TypeError):
+            other.settings["sampler"]["seed"] = 1
+    json.dumps(result.settings)  # still plain JSON to every reader
+    assert result.settings == {"sampler": {"seed": 42, "n_walkers": 32},
+                               "fit": {"freq_hz": 6.2e9}}

@@ -6,6 +6,7 @@ tests/test_tracking_*.py files.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import sqlite3
 import warnings
@@ -121,8 +122,9 @@ def test_duplicates_are_found(tmp_path):
         with pytest.warns(CavcharWarning, match="not logged again"):
             assert log.add_fit(entry_from_result(result), "A", "cd1", on_duplicate="skip") == first
         # a cosmetic setting (progress output) does not make it another fit
-        quiet = random_result(np.random.default_rng(3))
-        object.__getattribute__(quiet, "settings")["sampler"]["quiet"] = False
+        same = random_result(np.random.default_rng(3))
+        quiet = dataclasses.replace(same, settings={
+            **same.settings, "sampler": {**same.settings["sampler"], "quiet": False}})
         with pytest.raises(InputError):
             log.add_fit(entry_from_result(quiet), "A", "cd1")
         other_seed = random_result(np.random.default_rng(3), seed=2)
