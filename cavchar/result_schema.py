@@ -26,6 +26,7 @@ from pathlib import Path
 from typing import Any
 
 from cavchar.errors import InputError
+from cavchar.result_types import parse_timestamp
 
 __all__ = ["MAX_RESULT_BYTES", "MAX_DEPTH", "MIN_DRAWS", "MAX_CELLS", "MAX_STRING",
            "load_result_json", "validate_result_data"]
@@ -294,6 +295,9 @@ _DIAGNOSTICS: dict[str, Callable[[Any, str], None]] = {
                                         "acceptance_fraction")},
     "map": _obj,
     "tau_history": _list,
+    "sampler": lambda v, w: _text(v, w, null=True),
+    "n_unique_draws": _whole,
+    "importance": lambda v, w: None if v is None else _obj(v, w),
 }
 
 _SAMPLER = {"seed": _whole, "n_walkers": _whole, "max_steps": _whole, "chunk": _whole,
@@ -329,6 +333,13 @@ def _texts_or_null(value: Any, where: str) -> None:
     if value is not None:
         for i, x in enumerate(_list(value, where)):
             _text(x, f"{where}[{i}]")
+
+
+def _date(value: Any, where: str) -> None:
+    _text(value, where, null=True)
+    if value is not None and parse_timestamp(value) is None:
+        raise _Bad(where, "an ISO 8601 date with its time zone, e.g. 2026-03-01T11:00:00+00:00",
+                   value)
 
 
 _PROVENANCE = {
@@ -470,6 +481,8 @@ def _validate(data: Any) -> None:
     _number_map(_obj(top.get("map"), "map"), "map")
     for key, rules in (("diagnostics", _DIAGNOSTICS), ("provenance", _PROVENANCE)):
         _optional(_obj(top.get(key), key), key, rules)
+    if major != "1":  # schema 2 writes one spelling of the date (schema 1: read if it can be)
+        _date(top["provenance"].get("created_at"), "provenance.created_at")
     settings = _obj(top.get("settings"), "settings")
     if "sampler" in settings:
         _optional(_obj(settings["sampler"], "settings.sampler"), "settings.sampler", _SAMPLER)
