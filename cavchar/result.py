@@ -1,9 +1,10 @@
 """FitResult: the frozen, typed outcome of every fit, and its plain-JSON file format.
 
 A result holds the posterior draws (derived quantities included), the parameter
-specifications, the MAP, the sampler diagnostics, every setting, the
-provenance (input SHA-256, command line, seed, versions, date) and the checks
-(Planck check, posterior predictive checks).  ``summary()`` gives median,
+specifications, the MAP, the sampler diagnostics, every setting (the seed
+among them), the provenance (input SHA-256, command line, versions, date) and
+the checks (Planck check, posterior predictive checks); the typed parts are in
+:mod:`cavchar.result_types`, and every field is read-only.  ``summary()`` gives median,
 mean, sd, equal-tailed 68% and 95% intervals and MAP per quantity; asymmetric
 intervals stay asymmetric.  The JSON layout is described field by field in
 docs/inference.md; its version string is :data:`SCHEMA_VERSION`.
