@@ -122,8 +122,9 @@ class FitKind:
     variant: str | None = None
 
     def __post_init__(self) -> None:
-        if not isinstance(self.family, str) or not self.family:
-            raise ValueError("a fit kind needs a family name")
+        if not isinstance(self.family, str) or not self.family or "-" in self.family:
+            raise ValueError(f"a fit kind needs a family name without '-', not "
+                             f"{self.family!r}")
         if self.variant == "":
             object.__setattr__(self, "variant", None)
 

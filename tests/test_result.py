@@ -346,3 +346,10 @@ def test_result_is_read_only_all_the_way_down():
     json.dumps(result.settings)  # still plain JSON to every reader
     assert result.settings == {"sampler": {"seed": 42, "n_walkers": 32},
                                "fit": {"freq_hz": 6.2e9}}
+
+
+def test_fit_kind_family_is_one_word():
+    with pytest.raises(ValueError):
+        FitKind("jumps-exact")  # the compound name is parsed, not taken as a family
+    with pytest.raises(ValueError):
+        FitKind.parse("-exact")
