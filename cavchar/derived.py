@@ -31,6 +31,7 @@ from cavchar.quantities import (
     linewidth,
     quality_factor,
 )
+from cavchar.result_types import PlanckCheck
 
 __all__ = ["add_derived_quantities", "planck_check", "format_probability",
            "format_probability_error", "COLUMN_INFO",
@@ -112,7 +113,7 @@ def _interval(x: np.ndarray) -> dict[str, float]:
             "lo95": float(lo95), "hi95": float(hi95)}
 
 
-def planck_check(samples: pd.DataFrame, freq_hz: float, stage_temp_k: float) -> dict[str, Any]:
+def planck_check(samples: pd.DataFrame, freq_hz: float, stage_temp_k: float) -> PlanckCheck:
     """Compare the mode's thermal photon number with the Planck occupation of its stage.
 
     Parameters
@@ -126,7 +127,7 @@ def planck_check(samples: pd.DataFrame, freq_hz: float, stage_temp_k: float) -> 
 
     Returns
     -------
-    dict (plain JSON)
+    PlanckCheck
         ``stage_occupation`` n(nu, T_stage); ``prob_hotter_than_stage`` = fraction of
         draws with ``n_th > n(nu, T_stage)`` (equivalently ``T_eff > T_stage``, since
         the Planck occupation increases with T); ``verdict`` ("hotter than the stage"
@@ -177,7 +178,7 @@ def planck_check(samples: pd.DataFrame, freq_hz: float, stage_temp_k: float) -> 
         out["n_thermal_upper95"] = n_upper
         # T_eff increases with n, so the limit maps through exactly
         out["effective_temperature_upper95_k"] = float(effective_temperature(freq_hz, n_upper))
-    return out
+    return PlanckCheck(**out)
 
 
 def format_probability_error(p: float, mc_error: float, decimals: int = 3) -> str:

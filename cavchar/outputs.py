@@ -11,12 +11,13 @@ from pathlib import Path
 from cavchar.errors import InputError
 from cavchar.io.atomic import check_can_write
 from cavchar.result import FitResult
+from cavchar.result_types import PlanckCheck, SamplerDiagnostics
 
 __all__ = ["print_summary", "summary_text", "sampler_text", "planck_statement",
            "write_fit_outputs",
            "fit_figures"]
 
-#: kind prefix -> module with ``figures(result) -> dict[name, Figure]``
+#: kind family -> module with ``figures(result) -> dict[name, Figure]``
 FIGURE_MODULES = {
     "jumps": "cavchar.plots.jumps",
     "probes": "cavchar.plots.probes",
@@ -61,9 +62,8 @@ def summary_text(result: FitResult) -> str:
         lines.append(f"  {label:<34}{t['median']:>14}"
                      f"{'[' + t['lo68'] + ', ' + t['hi68'] + ']':>30}"
                      f"{'[' + t['lo95'] + ', ' + t['hi95'] + ']':>30}")
-    planck = result.checks.get("planck")
-    if planck:
-        lines.append("  " + planck_statement(planck))
+    if result.planck is not None:
+        lines.append("  " + planck_statement(result.planck))
     for name in ("lifetime", "n_thermal"):
         if name in table.index:
             lines.append("  " + result.one_line(name))
@@ -72,18 +72,18 @@ def summary_text(result: FitResult) -> str:
     return "\n".join(lines)
 
 
-def sampler_text(diagnostics: dict) -> str:
+def sampler_text(diagnostics: SamplerDiagnostics) -> str:
     """Which sampler made the draws, in words, with its own check: k-hat and effective
     sample size for importance sampling, walkers and steps for the ensemble."""
-    importance = diagnostics.get("importance") or {}
-    if diagnostics.get("sampler") == "importance" and importance:
+    importance = diagnostics.importance or {}
+    if diagnostics.sampler == "importance" and importance:
         k_hat = importance.get("k_hat")  # None: no spread in the weights' tail
         k_text = "-" if k_hat is None else f"{k_hat:.2f}"
         return (f"importance sampling from the Laplace approximation (Pareto k-hat "
                 f"{k_text} < {importance['k_hat_limit']:.2f}; effective "
                 f"sample size {importance['ess_weights']:,.0f} of "
                 f"{importance['n_proposal_draws']:,} proposal draws)")
-    walkers, steps = diagnostics.get("n_walkers"), diagnostics.get("n_steps")
+    walkers, steps = diagnostics.n_walkers, diagnostics.n_steps
     text = "ensemble (emcee)"
     if walkers and steps:
         text += f", {walkers} walkers x {steps:,} steps"
@@ -93,33 +93,30 @@ def sampler_text(diagnostics: dict) -> str:
     return text
 
 
-def planck_statement(planck: dict) -> str:
+def planck_statement(planck: PlanckCheck) -> str:
     """The Planck check in words, e.g. "the mode is hotter than its 20 mK stage with
     probability 0.998; effective temperature 61 (+4/-3) mK"."""
     from cavchar.units import format_quantity
 
-    needed = ("stage_temperature_k", "prob_hotter_than_stage", "verdict")
-    if any(planck.get(key) is None for key in needed) or (
-            planck.get("effective_temperature_k") is None
-            and planck.get("effective_temperature_upper95_k") is None):
+    if not planck.complete:
         return "Planck check: incomplete in this result (fit again with --stage-temp)"
-    stage = format_quantity(planck["stage_temperature_k"], "temperature")
-    p_hot = planck["prob_hotter_than_stage"]
-    if (planck.get("piles_up_at_zero") and planck.get("effective_temperature_upper95_k")
-            is not None) or planck.get("effective_temperature_k") is None:
-        limit = format_quantity(planck["effective_temperature_upper95_k"], "temperature")
+    stage = format_quantity(planck.stage_temperature_k, "temperature")
+    p_hot = planck.prob_hotter_than_stage
+    if (planck.piles_up_at_zero and planck.effective_temperature_upper95_k
+            is not None) or planck.effective_temperature_k is None:
+        limit = format_quantity(planck.effective_temperature_upper95_k, "temperature")
         temp = f"effective temperature below {limit} (95% upper limit)"
     else:
-        t = planck["effective_temperature_k"]
+        t = planck.effective_temperature_k
         med_text = format_quantity(t["median"], "temperature", 3)
         value, unit = med_text.split(" ") if " " in med_text else (med_text, "")
         scale = t["median"] / float(value) if float(value) else 1.0
         plus = (t["hi68"] - t["median"]) / scale
         minus = (t["median"] - t["lo68"]) / scale
         temp = f"effective temperature {value} (+{plus:.2g}/-{minus:.2g}) {unit} (68% credible)"
-    if planck["verdict"] == "hotter than the stage":
+    if planck.verdict == "hotter than the stage":
         head = f"the mode is hotter than its {stage} stage with probability {p_hot:.3g}"
-    elif planck["verdict"] == "colder than the stage":
+    elif planck.verdict == "colder than the stage":
         head = (f"the mode is colder than its {stage} stage with probability "
                 f"{1 - p_hot:.3g}")
     else:
@@ -137,7 +134,7 @@ def fit_figures(result: FitResult) -> dict:
     from cavchar.plots.posterior import corner_plot, trace_plot
 
     figures = {}
-    module_name = FIGURE_MODULES.get(result.kind.split("-")[0])
+    module_name = FIGURE_MODULES.get(result.kind.family)
     if module_name is not None:
         figures.update(importlib.import_module(module_name).figures(result))
     figures["corner"] = corner_plot(result)

@@ -1,23 +1,22 @@
-"""Where a result came from: input file hash, command line, seed, versions, date.
+"""Where a result came from: input file hash, command line, versions, date.
 
 The provenance block of a result JSON lets anyone redo a fit: the same input
-(checked by its SHA-256), the same settings and seed, and the versions of the
+(checked by its SHA-256), the same settings and seed (recorded with the
+sampler settings), and the versions of the
 libraries that did the sampling.
 """
 
 from __future__ import annotations
 
-import datetime as _dt
 import hashlib
 import os
 import platform
-import sys
 from collections.abc import Sequence
 from importlib import metadata
 from pathlib import Path
-from typing import Any
 
 from cavchar.errors import InputError
+from cavchar.result_types import InputFile, Provenance, utc_timestamp
 
 __all__ = ["sha256_of_file", "library_versions", "collect_provenance", "RUN_SPECIFIC_FIELDS"]
 
@@ -66,43 +65,33 @@ def collect_provenance(
     input_path: str | os.PathLike | Sequence[str | os.PathLike] | None = None,
     *,
     command_line: Sequence[str] | None = None,
-    seed: int | None = None,
-) -> dict[str, Any]:
-    """The provenance block of a result (plain JSON).
+) -> Provenance:
+    """The provenance of a result made now.
 
     Parameters
     ----------
     input_path
         The input file (or several); each is hashed with :func:`sha256_of_file`.
     command_line
-        The command as typed (default: ``sys.argv``).
-    seed
-        The sampler seed.
+        The command as argv strings, as the caller received it (the command-line
+        interface passes its own ``argv``); None when the fit was called from Python
+        without one.  Never read from ``sys.argv``.
 
     Returns
     -------
-    dict
-        ``input_path``, ``input_sha256`` (lists when several inputs were given),
-        ``command_line``, ``seed``, ``versions`` (cavchar, python, numpy, scipy,
-        emcee, pandas), ``cavchar_version``, ``created_at`` (UTC, ISO 8601), ``platform``.
+    Provenance
+        Inputs with their SHA-256, the command line, versions (cavchar, python,
+        numpy, scipy, emcee, pandas), ``created_at`` (UTC, ISO 8601) and the platform.
+        The seed is recorded with the sampler settings, not here.
     """
     if input_path is None:
-        paths: list[str] | str | None = None
-        hashes: list[str] | str | None = None
+        paths: list[str | os.PathLike] = []
     elif isinstance(input_path, str | os.PathLike):
-        paths = str(Path(input_path))
-        hashes = sha256_of_file(input_path)
+        paths = [input_path]
     else:
-        paths = [str(Path(p)) for p in input_path]
-        hashes = [sha256_of_file(p) for p in input_path]
-    versions = library_versions()
-    return {
-        "input_path": paths,
-        "input_sha256": hashes,
-        "command_line": list(sys.argv if command_line is None else command_line),
-        "seed": seed,
-        "versions": versions,
-        "cavchar_version": versions["cavchar"],
-        "created_at": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
-        "platform": platform.platform(),
-    }
+        paths = list(input_path)
+    inputs = tuple(InputFile(str(Path(p)), sha256_of_file(p)) for p in paths)
+    return Provenance(inputs=inputs,
+                      command_line=None if command_line is None else tuple(command_line),
+                      versions=library_versions(), created_at=utc_timestamp(),
+                      platform=platform.platform())

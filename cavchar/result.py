@@ -1,9 +1,10 @@
 """FitResult: the frozen, typed outcome of every fit, and its plain-JSON file format.
 
 A result holds the posterior draws (derived quantities included), the parameter
-specifications, the MAP, the sampler diagnostics, every setting, the
-provenance (input SHA-256, command line, seed, versions, date) and the checks
-(Planck check, posterior predictive checks).  ``summary()`` gives median,
+specifications, the MAP, the sampler diagnostics, every setting (the seed
+among them), the provenance (input SHA-256, command line, versions, date) and
+the checks (Planck check, posterior predictive checks); the typed parts are in
+:mod:`cavchar.result_types`, and every field is read-only.  ``summary()`` gives median,
 mean, sd, equal-tailed 68% and 95% intervals and MAP per quantity; asymmetric
 intervals stay asymmetric.  The JSON layout is described field by field in
 docs/inference.md; its version string is :data:`SCHEMA_VERSION`.
@@ -28,6 +29,7 @@ import pandas as pd
 from cavchar.derived import COLUMN_INFO, QUANTILES_68, add_derived_quantities, planck_check
 from cavchar.errors import InputError
 from cavchar.parameters import ParameterSpec
+from cavchar.result_types import FitKind, PlanckCheck, Provenance, SamplerDiagnostics, freeze
 from cavchar.units import decimals_for
 
 if TYPE_CHECKING:
@@ -37,8 +39,8 @@ __all__ = ["FitResult", "SCHEMA_VERSION", "to_plain_json", "default_draws_name",
            "interval_texts"]
 
 #: schema of the result JSON: "<name>/<major>"; readers accept every major they know
-SCHEMA_VERSION = "cavchar-fit-result/1"
-_SCHEMA_NAME, _KNOWN_MAJORS = "cavchar-fit-result", (1,)
+SCHEMA_VERSION = "cavchar-fit-result/2"
+_SCHEMA_NAME, _KNOWN_MAJORS = "cavchar-fit-result", (1, 2)
 
 #: per-draw bookkeeping columns kept in ``samples`` but left out of ``summary()``
 BOOKKEEPING = ("log_posterior", "log_likelihood")
@@ -96,10 +98,18 @@ def default_draws_name(stem: str = "draws") -> str:
 class FitResult:
     """Outcome of a fit (immutable fields; the tables given are copied; compared by identity).
 
+    Every field is read-only, all the way down: the draws (see ``samples``), and the
+    mappings and lists of the settings, checks, extras, MAP values and typed parts
+    (:class:`~cavchar.result_types.FrozenDict`, :class:`~cavchar.result_types.FrozenList`:
+    plain dicts and lists to every reader, but changing one raises ``TypeError``).
+    The constructor also takes the plain-JSON forms of ``kind``, ``diagnostics``,
+    ``provenance`` and ``checks["planck"]`` (those of schema 1 included).
+
     Attributes
     ----------
     kind
-        Fit kind, e.g. ``"jumps"``, ``"probes"``, ``"ringdown"``.
+        What was fitted (:class:`~cavchar.result_types.FitKind`: family and variant;
+        ``str(kind)`` is the compound name ``"jumps-exact"``).
     specs
         Parameter specifications (names, units, labels, priors), in order.
     samples
@@ -111,13 +121,18 @@ class FitResult:
     map_values
         MAP of each parameter (and of derived quantities computed from it).
     diagnostics
-        Sampler diagnostics (see docs/inference.md).
+        Sampler diagnostics (:class:`~cavchar.result_types.SamplerDiagnostics`).
     settings
-        Every setting, as plain JSON: ``{"sampler": {...}, "fit": {...}}``.
+        Every setting, as plain JSON: ``{"sampler": {...}, "fit": {...}}``; the seed is
+        ``settings["sampler"]["seed"]`` (read it as :attr:`seed`).
     provenance
-        Input path and SHA-256, command line, seed, versions, date.
+        Input files and SHA-256, command line, versions, date, platform
+        (:class:`~cavchar.result_types.Provenance`).
     checks
-        Check results, e.g. ``{"planck": {...}, "dwell_times": {...}}``.
+        The other checks, plain JSON, e.g. ``{"dwell_times": {...}, "prior_bounds": {...}}``.
+    planck
+        The Planck check (:class:`~cavchar.result_types.PlanckCheck`), None when the fit
+        had no n_th, frequency or stage temperature; written as ``checks.planck``.
     extras
         Model-specific plain-JSON data for plots and reports.
     converged
@@ -127,17 +142,18 @@ class FitResult:
         trace plots; kept in memory only, not written to JSON.
     """
 
-    kind: str
+    kind: FitKind
     specs: tuple[ParameterSpec, ...]
     samples: pd.DataFrame
     map_values: dict[str, float]
-    diagnostics: dict[str, Any]
+    diagnostics: SamplerDiagnostics
     settings: dict[str, Any]
-    provenance: dict[str, Any]
+    provenance: Provenance
     checks: dict[str, Any] = field(default_factory=dict)
     extras: dict[str, Any] = field(default_factory=dict)
     converged: bool = True
     trace: np.ndarray | None = field(default=None, repr=False, compare=False)
+    planck: PlanckCheck | None = None
 
     def __post_init__(self) -> None:
         specs = tuple(self.specs)
@@ -159,10 +175,34 @@ class FitResult:
             trace = np.array(self.trace, dtype=float, copy=True)
             trace.flags.writeable = False
             object.__setattr__(self, "trace", trace)
-        for name in ("map_values", "diagnostics", "settings", "provenance", "checks", "extras"):
+        # the typed parts also accept their plain-JSON forms (schema 1 spellings included)
+        object.__setattr__(self, "kind", FitKind.parse(self.kind))
+        diagnostics = self.diagnostics
+        if not isinstance(diagnostics, SamplerDiagnostics):
+            diagnostics = SamplerDiagnostics.from_dict(to_plain_json(diagnostics))
+        object.__setattr__(self, "diagnostics", diagnostics)
+        for name in ("map_values", "settings", "checks", "extras"):
             object.__setattr__(self, name, to_plain_json(copy.deepcopy(getattr(self, name))))
+        provenance = self.provenance
+        if not isinstance(provenance, Provenance):
+            plain = to_plain_json(provenance or {})
+            # schema 1 kept the seed in the provenance too: its one home is the settings
+            seed = plain.get("seed")
+            sampler = self.settings.setdefault("sampler", {}) if seed is not None else {}
+            if seed is not None and sampler.get("seed") is None:
+                sampler["seed"] = seed
+            provenance = Provenance.from_dict(plain)
+        object.__setattr__(self, "provenance", provenance)
+        planck = self.checks.pop("planck", None) if self.planck is None else self.planck
+        if planck is not None and not isinstance(planck, PlanckCheck):
+            planck = PlanckCheck.from_dict(planck)
+        self.checks.pop("planck", None)
+        object.__setattr__(self, "planck", planck)
         object.__setattr__(self, "map_values",
                            {k: (math.nan if v is None else v) for k, v in self.map_values.items()})
+        # read-only from here on: nothing can change what summary() and to_json() report
+        for name in ("map_values", "settings", "checks", "extras"):
+            object.__setattr__(self, name, freeze(getattr(self, name)))
 
     def __setstate__(self, state: dict[str, Any]) -> None:
         """Unpickling (dask, copy): the draws and the chain stay read-only."""
@@ -178,12 +218,12 @@ class FitResult:
     @classmethod
     def from_run(
         cls,
-        kind: str,
+        kind: FitKind | str,
         run: PosteriorRun,
         *,
         freq_hz: float | None = None,
         stage_temp_k: float | None = None,
-        provenance: Mapping[str, Any] | None = None,
+        provenance: Provenance | None = None,
         fit_settings: Mapping[str, Any] | None = None,
         checks: Mapping[str, Any] | None = None,
         extras: Mapping[str, Any] | None = None,
@@ -194,7 +234,8 @@ class FitResult:
         when there is a ``lifetime`` parameter, the Planck check when ``n_thermal``,
         ``freq_hz`` and ``stage_temp_k`` are all there, and records ``freq_hz``,
         ``stage_temp_k`` and ``fit_settings`` under ``settings["fit"]``.  Without
-        ``provenance`` one is collected (no input file) with the run's seed.
+        ``provenance`` one is collected (no input file, no command line); the run's
+        seed is recorded with its settings.
         """
         from cavchar.provenance import collect_provenance
 
@@ -207,17 +248,18 @@ class FitResult:
         samples["log_posterior"] = run.log_posterior
         samples["log_likelihood"] = run.log_likelihood
         all_checks = dict(checks or {})
-        if "n_thermal" in names and freq_hz is not None and stage_temp_k is not None:
-            all_checks.setdefault("planck", planck_check(samples, freq_hz, stage_temp_k))
-        prov = dict(provenance) if provenance is not None else collect_provenance()
-        prov["seed"] = run.settings.seed
+        planck = all_checks.pop("planck", None)
+        if planck is None and "n_thermal" in names and freq_hz is not None \
+                and stage_temp_k is not None:
+            planck = planck_check(samples, freq_hz, stage_temp_k)
+        prov = provenance if provenance is not None else collect_provenance()
         fit = {"freq_hz": freq_hz, "stage_temp_k": stage_temp_k, **dict(fit_settings or {})}
-        return cls(kind=kind, specs=run.specs, samples=samples,
+        return cls(kind=FitKind.parse(kind), specs=run.specs, samples=samples,
                    map_values={k: float(v) for k, v in map_frame.iloc[0].items()},
-                   diagnostics=run.diagnostics,
+                   diagnostics=SamplerDiagnostics.from_dict(to_plain_json(run.diagnostics)),
                    settings={"sampler": run.settings.to_dict(), "fit": fit},
                    provenance=prov, checks=all_checks, extras=dict(extras or {}),
-                   converged=run.converged, trace=run.trace)
+                   converged=run.converged, trace=run.trace, planck=planck)
 
     # ------------------------------------------------------------------ access
     @property
@@ -239,9 +281,9 @@ class FitResult:
 
     @property
     def seed(self) -> int | None:
-        """The sampler seed (from the settings, else the provenance)."""
-        seed = self.settings.get("sampler", {}).get("seed")
-        return self.provenance.get("seed") if seed is None else seed
+        """The sampler seed (its one home: ``settings["sampler"]["seed"]``)."""
+        sampler = self.settings.get("sampler")
+        return sampler.get("seed") if isinstance(sampler, Mapping) else None
 
     def column_info(self, name: str) -> tuple[str, str, str]:
         """``(unit, dimension, label)`` of a column of :attr:`samples`."""
@@ -341,7 +383,7 @@ class FitResult:
             return limit["text"]
         if upper_limit is None:
             upper_limit = (name in ("n_thermal", "effective_temperature")
-                           and bool(self.checks.get("planck", {}).get("piles_up_at_zero")))
+                           and self.planck is not None and self.planck.piles_up_at_zero)
         if upper_limit:
             limit = format_quantity(float(np.quantile(x, 0.95)), dimension)
             return f"{label} < {limit} (95% upper limit)"
@@ -395,19 +437,21 @@ class FitResult:
         summary = self.summary()
         columns = {c: dict(zip(("unit", "dimension", "label"), self.column_info(c),
                                strict=True)) for c in self._columns}
+        checks = dict(self.checks)
+        if self.planck is not None:
+            checks = {"planck": self.planck.to_dict(), **checks}
         return to_plain_json({
             "schema": SCHEMA_VERSION,
-            "kind": self.kind,
+            "kind": self.kind.to_dict(),
             "converged": self.converged,
-            "seed": self.seed,
             "parameters": [s.to_dict() for s in self.specs],
             "columns": columns,
             "summary": summary.to_dict(orient="index"),
             "map": self.map_values,
-            "diagnostics": self.diagnostics,
+            "diagnostics": self.diagnostics.to_dict(),
             "settings": self.settings,
-            "provenance": self.provenance,
-            "checks": self.checks,
+            "provenance": self.provenance.to_dict(),
+            "checks": checks,
             "extras": self.extras,
             "samples": {c: self.column(c) for c in self._columns},
         })
@@ -436,17 +480,19 @@ class FitResult:
         if not major.isdigit() or int(major) not in _KNOWN_MAJORS:
             raise InputError(f"result schema {schema!r} is newer than this cavchar reads",
                              path=path, hint="update cavchar")
-        data = _migrate(data, int(major))
         validate_result_data(data, path=path)
         try:
+            data = _migrate(data, int(major))
             specs = tuple(ParameterSpec.from_dict(p) for p in data["parameters"])
             samples = pd.DataFrame({c: np.array(v, dtype=float)
                                     for c, v in data["samples"].items()})
             map_values = {k: (math.nan if v is None else float(v))
                           for k, v in data["map"].items()}
-            return cls(kind=str(data["kind"]), specs=specs, samples=samples,
-                       map_values=map_values, diagnostics=data["diagnostics"],
-                       settings=data["settings"], provenance=data["provenance"],
+            return cls(kind=FitKind.from_dict(data["kind"]), specs=specs, samples=samples,
+                       map_values=map_values,
+                       diagnostics=SamplerDiagnostics.from_dict(data["diagnostics"]),
+                       settings=data["settings"],
+                       provenance=Provenance.from_dict(data["provenance"]),
                        checks=data.get("checks", {}), extras=data.get("extras", {}),
                        converged=bool(data["converged"]))
         except InputError as exc:
@@ -507,11 +553,40 @@ FitResult.samples = property(  # type: ignore[assignment]
         "access (writing into it raises; adding columns changes only that frame).")
 
 
-def _migrate(data: Mapping[str, Any], major: int) -> Mapping[str, Any]:
-    """Bring a file of an older schema major to the current layout (identity for 1)."""
-    if major == 1:  # the current layout: files of version 1 read as they are
-        return data
-    raise InputError(f"no migration from result schema major {major}")  # pragma: no cover
+def _migrate(data: Mapping[str, Any], major: int) -> dict[str, Any]:
+    """Bring a (validated) file of an older schema major to the current layout.
+
+    Schema 1 -> 2: ``kind`` was the compound text ``"jumps-exact"`` (now
+    ``{"family", "variant"}``); the seed stood three times (top level, provenance,
+    ``settings.sampler``: now only in the settings); the provenance held
+    ``input_path`` / ``input_sha256`` as texts or parallel lists (now ``inputs``, a
+    list of ``{"path", "sha256"}``), the command line twice (``command`` text and
+    ``command_line`` list: now the list) and the cavchar version twice
+    (``cavchar_version`` and ``versions.cavchar``: now the latter); the diagnostics
+    repeated ``converged`` (now only at the top level).
+    """
+    out = dict(data)
+    if major == 2:
+        return out
+    if major != 1:  # pragma: no cover - _KNOWN_MAJORS lists what is handled here
+        raise InputError(f"no migration from result schema major {major}")
+    seed = out.pop("seed", None)
+    provenance = dict(out.get("provenance") or {})
+    seed = provenance.pop("seed", None) if seed is None else seed
+    provenance.pop("seed", None)
+    settings = {k: dict(v) if isinstance(v, Mapping) else v
+                for k, v in (out.get("settings") or {}).items()}
+    if seed is not None:
+        sampler = settings.setdefault("sampler", {})
+        if sampler.get("seed") is None:
+            sampler["seed"] = seed
+    out["settings"] = settings
+    out["provenance"] = Provenance.from_dict(provenance).to_dict()
+    out["kind"] = FitKind.parse(str(out["kind"])).to_dict()
+    out["diagnostics"] = {k: v for k, v in (out.get("diagnostics") or {}).items()
+                          if k != "converged"}
+    out["schema"] = SCHEMA_VERSION
+    return out
 
 
 def _dump(data: dict[str, Any]) -> str:

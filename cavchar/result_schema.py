@@ -26,6 +26,7 @@ from pathlib import Path
 from typing import Any
 
 from cavchar.errors import InputError
+from cavchar.result_types import parse_timestamp
 
 __all__ = ["MAX_RESULT_BYTES", "MAX_DEPTH", "MIN_DRAWS", "MAX_CELLS", "MAX_STRING",
            "load_result_json", "validate_result_data"]
@@ -294,6 +295,9 @@ _DIAGNOSTICS: dict[str, Callable[[Any, str], None]] = {
                                         "acceptance_fraction")},
     "map": _obj,
     "tau_history": _list,
+    "sampler": lambda v, w: _text(v, w, null=True),
+    "n_unique_draws": _whole,
+    "importance": lambda v, w: None if v is None else _obj(v, w),
 }
 
 _SAMPLER = {"seed": _whole, "n_walkers": _whole, "max_steps": _whole, "chunk": _whole,
@@ -316,10 +320,33 @@ def _text_or_texts(value: Any, where: str, pattern: re.Pattern | None = None) ->
             raise _Bad(at, "64 lower-case hex digits", item)
 
 
+def _inputs(value: Any, where: str) -> None:
+    for i, item in enumerate(_list(value, where)):
+        block = _obj(item, f"{where}[{i}]")
+        _text(block.get("path"), f"{where}[{i}].path")
+        sha = block.get("sha256")
+        if sha is not None:
+            _text_or_texts(sha, f"{where}[{i}].sha256", _SHA256)
+
+
+def _texts_or_null(value: Any, where: str) -> None:
+    if value is not None:
+        for i, x in enumerate(_list(value, where)):
+            _text(x, f"{where}[{i}]")
+
+
+def _date(value: Any, where: str) -> None:
+    _text(value, where, null=True)
+    if value is not None and parse_timestamp(value) is None:
+        raise _Bad(where, "an ISO 8601 date with its time zone, e.g. 2026-03-01T11:00:00+00:00",
+                   value)
+
+
 _PROVENANCE = {
-    "input_path": _text_or_texts,
+    "inputs": _inputs,  # schema 2
+    "input_path": _text_or_texts,  # schema 1: text or list, with input_sha256 beside it
     "input_sha256": lambda v, w: _text_or_texts(v, w, _SHA256),
-    "command_line": lambda v, w: [_text(x, f"{w}[{i}]") for i, x in enumerate(_list(v, w))],
+    "command_line": _texts_or_null,
     "command": lambda v, w: _text(v, w, null=True),
     "seed": _whole,
     "versions": lambda v, w: [_text(x, f"{w}.{k}", null=True)
@@ -429,10 +456,23 @@ def validate_result_data(data: Any, path: str | os.PathLike | None = None) -> No
 def _validate(data: Any) -> None:
     top = _obj(data, "the file")
     _depth(top, "result")
+    major = str(top.get("schema", "")).partition("/")[2]
     kind = top.get("kind")
-    _text(kind, "kind")
-    if not _KIND.match(kind):
-        raise _Bad("kind", "a fit kind such as jumps-exact (letters, digits, - and _)", kind)
+    if major == "1":  # the compound text "jumps-exact"
+        _text(kind, "kind")
+        if not _KIND.match(kind):
+            raise _Bad("kind", "a fit kind such as jumps-exact (letters, digits, - and _)",
+                       kind)
+    else:  # {"family": "jumps", "variant": "exact"}
+        block = _obj(kind, "kind")
+        for key in ("family", "variant"):
+            value = block.get(key)
+            if key == "variant" and value is None:
+                continue
+            _text(value, f"kind.{key}")
+            if not _KIND.match(value) or (key == "family" and "-" in value):
+                raise _Bad(f"kind.{key}", "a word such as jumps or exact (letters, digits, "
+                           "- and _; no - in the family)", value)
     _flag(top.get("converged"), "converged")
     if "seed" in top:
         _whole(top["seed"], "seed", low=None)
@@ -441,6 +481,8 @@ def _validate(data: Any) -> None:
     _number_map(_obj(top.get("map"), "map"), "map")
     for key, rules in (("diagnostics", _DIAGNOSTICS), ("provenance", _PROVENANCE)):
         _optional(_obj(top.get(key), key), key, rules)
+    if major != "1":  # schema 2 writes one spelling of the date (schema 1: read if it can be)
+        _date(top["provenance"].get("created_at"), "provenance.created_at")
     settings = _obj(top.get("settings"), "settings")
     if "sampler" in settings:
         _optional(_obj(settings["sampler"], "settings.sampler"), "settings.sampler", _SAMPLER)

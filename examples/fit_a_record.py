@@ -38,10 +38,10 @@ def main(out_dir: str | None = None) -> None:
     for name in ("lifetime", "quality_factor", "linewidth", "n_thermal",
                  "effective_temperature"):
         print(result.one_line(name))
-    planck = result.checks["planck"]
-    p_hot = probability_text(planck["prob_hotter_than_stage"], planck["n_draws"])
+    planck = result.planck
+    p_hot = probability_text(planck.prob_hotter_than_stage, planck.n_draws)
     print(f"P(mode hotter than its {plan.stage_temp_k * 1e3:.0f} mK stage): {p_hot} "
-          f"({planck['verdict']})")
+          f"({planck.verdict})")
     dwell = result.checks["dwell_times"]
     print(f"dwell-time check: misfit = {dwell['misfit']}")
     print(f"converged: {result.converged}")

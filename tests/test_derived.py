@@ -82,11 +82,11 @@ def test_planck_check_hot_mode():
     rng = np.random.default_rng(4)
     n = np.exp(rng.normal(np.log(0.02), 0.2, 4000))  # far above n(5 GHz, 50 mK) = 0.0083
     check = planck_check(pd.DataFrame({"n_thermal": n}), 5e9, 0.05)
-    assert check["prob_hotter_than_stage"] == np.mean(n > check["stage_occupation"])
-    assert check["prob_hotter_than_stage"] > 0.99
-    assert check["verdict"] == "hotter than the stage"
-    assert not check["piles_up_at_zero"] and "n_thermal_upper95" not in check
-    t = check["effective_temperature_k"]
+    assert check.prob_hotter_than_stage == np.mean(n > check.stage_occupation)
+    assert check.prob_hotter_than_stage > 0.99
+    assert check.verdict == "hotter than the stage"
+    assert not check.piles_up_at_zero and check.n_thermal_upper95 is None
+    t = check.effective_temperature_k
     assert t["lo95"] < t["lo68"] < t["median"] < t["hi68"] < t["hi95"]
     assert 0.05 < t["median"] < 0.07  # T_eff(5 GHz, 0.02) = 60.6 mK
 
@@ -96,21 +96,21 @@ def test_planck_check_consistent_with_stage():
     n = np.exp(rng.normal(np.log(8.3044e-3), 0.3, 4000))  # centred on the stage occupation
     check = planck_check(pd.DataFrame({"n_thermal": n}), 5e9, 0.05)
     # P(hotter) ~ 0.5 with binomial sd 0.008 for 4000 draws
-    assert abs(check["prob_hotter_than_stage"] - 0.5) < 0.05
-    assert check["verdict"] == "consistent with the stage"
+    assert abs(check.prob_hotter_than_stage - 0.5) < 0.05
+    assert check.verdict == "consistent with the stage"
 
 
 def test_planck_check_upper_limit_when_piled_up_at_zero():
     rng = np.random.default_rng(6)
     n = np.exp(rng.uniform(np.log(1e-7), np.log(1e-3), 4000))  # no lower bound in the data
     check = planck_check(pd.DataFrame({"n_thermal": n}), 5e9, 0.02)
-    assert check["piles_up_at_zero"]
-    assert check["n_thermal_upper95"] == pytest.approx(np.quantile(n, 0.95))
+    assert check.piles_up_at_zero
+    assert check.n_thermal_upper95 == pytest.approx(np.quantile(n, 0.95))
     # T_eff is monotone in n, so its upper limit is T_eff of the n upper limit
     from cavchar.thermal import effective_temperature
 
-    assert check["effective_temperature_upper95_k"] == pytest.approx(
-        float(effective_temperature(5e9, check["n_thermal_upper95"])), rel=1e-9)
+    assert check.effective_temperature_upper95_k == pytest.approx(
+        float(effective_temperature(5e9, check.n_thermal_upper95)), rel=1e-9)
 
 
 def test_planck_check_needs_n_thermal():

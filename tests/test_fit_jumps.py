@@ -10,6 +10,7 @@ from cavchar.errors import PriorDominatedWarning
 from cavchar.fits.jumps import fit_jumps
 from cavchar.inference import SamplerSettings
 from cavchar.records import JumpRecord
+from cavchar.result_types import FitKind
 from cavchar.simulate import simulate_jump_record, simulate_sampled_record
 
 QUICK = SamplerSettings(quiet=True, seed=4)
@@ -66,9 +67,9 @@ def test_exact_record_recovery_and_planck_check():
     result = fit_jumps(record, freq_hz=5e9, stage_temp_k=0.02, settings=QUICK)
     assert _covers(result, "lifetime", lifetime) and _covers(result, "n_thermal", n_th)
     # n_th = 0.05 at 5 GHz is about 80 mK: far hotter than a 20 mK stage (n = 6e-6)
-    assert result.checks["planck"]["prob_hotter_than_stage"] > 0.999
+    assert result.planck.prob_hotter_than_stage > 0.999
     assert result.checks["dwell_times"]["misfit"] is False
-    assert min(result.diagnostics["ess_bulk"].values()) > 1000
+    assert min(result.diagnostics.ess_bulk.values()) > 1000
     q = result.summary().loc["quality_factor", "median"]
     assert q == pytest.approx(2 * np.pi * 5e9 * result.summary().loc["lifetime", "median"],
                               rel=1e-3)
@@ -103,7 +104,7 @@ def test_sampled_record_recovery():
     times = np.arange(0, 3.0, 0.5e-3)
     record = simulate_sampled_record(lifetime, n_th, times, seed=5)
     result = fit_jumps(record, settings=QUICK)
-    assert result.kind == "jumps-sampled"
+    assert result.kind == FitKind("jumps", "sampled")
     assert _covers(result, "lifetime", lifetime) and _covers(result, "n_thermal", n_th)
     trunc = result.checks["truncation"]
     assert trunc["log_likelihood_change_with_more_levels"] < 1e-9
@@ -133,7 +134,9 @@ def test_cli_fit_writes_outputs_and_refuses_overwrite(tmp_path, run_cli):
     assert code == 0, stderr
     assert "T_c" in stdout and "ms" in stdout and "hotter than its 30 mK stage" in stdout
     data = json.loads((out / "result.json").read_text())
-    assert data["provenance"]["input_sha256"]
+    assert data["provenance"]["inputs"][0]["sha256"]
+    # the command line the CLI was given (``main(argv)``), as argv strings
+    assert data["provenance"]["command_line"][:3] == ["cavchar", "fit", "jumps"]
     assert data["settings"]["sampler"]["seed"] == 1
     assert (out / "corner.png").exists() and (out / "dwell_check.png").exists()
     assert not list(out.glob("*.pdf"))  # PNG only by default

@@ -20,6 +20,7 @@ from cavchar.errors import ConvergenceWarning, InputError
 from cavchar.parameters import ParameterSpec
 from cavchar.priors import LogUniform, Normal
 from cavchar.result import SCHEMA_VERSION, FitResult
+from cavchar.result_types import FitKind, InputFile, Provenance, SamplerDiagnostics
 
 FIXTURES = Path(__file__).parent / "fixtures"
 Q68 = (stats.norm.cdf(-1.0), stats.norm.cdf(1.0))  # 0.158655, 0.841345
@@ -77,15 +78,22 @@ def test_json_round_trip(tmp_path):
         raise AssertionError(f"non-standard JSON constant {name}")
 
     data = json.loads(text, parse_constant=no_constants)  # plain, strict JSON
-    assert data["schema"] == SCHEMA_VERSION and data["seed"] == 42
+    assert data["schema"] == SCHEMA_VERSION and data["settings"]["sampler"]["seed"] == 42
+    # each fact once: the seed only in the sampler settings, the kind typed
+    assert "seed" not in data and "seed" not in data["provenance"]
+    assert data["kind"] == {"family": "jumps"}
     assert data["summary"]["lifetime"]["unit"] == "s"
     back = FitResult.from_json(path)
     pd.testing.assert_frame_equal(back.samples, result.samples, check_exact=True)
     assert back.specs == result.specs
-    for name in ("kind", "settings", "provenance", "checks", "extras", "converged"):
+    for name in ("kind", "settings", "provenance", "checks", "planck", "extras", "converged"):
         assert getattr(back, name) == getattr(result, name)
     assert back.diagnostics == result.diagnostics
-    assert back.diagnostics["rhat"]["n_thermal"] is None  # NaN stored as null
+    assert back.diagnostics.rhat["n_thermal"] is None  # NaN stored as null
+    assert back.diagnostics.n_steps == 1500 and back.seed == 42
+    assert back.provenance.inputs[0].sha256 == "0" * 64
+    assert back.planck is not None and not back.planck.piles_up_at_zero
+    assert back.to_dict() == result.to_dict()
     assert back.map_values == result.map_values
     pd.testing.assert_frame_equal(back.summary(), result.summary())
 
@@ -98,7 +106,7 @@ def test_to_json_never_overwrites_without_force(tmp_path):
         result.to_json(target)
     assert target.read_text() == "keep me"
     result.to_json(target, force=True)
-    assert FitResult.from_json(target).kind == "jumps"
+    assert FitResult.from_json(target).kind == FitKind("jumps")
     assert sorted(p.name for p in tmp_path.iterdir()) == ["fit.json"]  # no temp files left
 
 
@@ -176,7 +184,7 @@ def test_fixture_of_schema_1_still_reads():
     path = FIXTURES / "fit_result_v1.json"
     result = FitResult.from_json(path)
     stored = json.loads(path.read_text())["summary"]
-    assert result.kind == "jumps" and result.seed == 42
+    assert result.kind == FitKind("jumps") and result.seed == 42
     assert result.parameter_names == ["lifetime", "n_thermal"]
     table = result.summary()
     for name, row in stored.items():
@@ -203,10 +211,11 @@ def test_from_run_adds_derived_quantities_and_checks():
     for column in ("quality_factor", "linewidth", "effective_temperature", "excess_photons",
                    "log_posterior", "log_likelihood"):
         assert column in result.samples.columns
-    assert result.checks["planck"]["verdict"] == "hotter than the stage"
+    assert result.planck.verdict == "hotter than the stage" and "planck" not in result.checks
     assert result.settings["sampler"]["seed"] == 9 and result.seed == 9
     assert result.settings["fit"] == {"freq_hz": 6.2e9, "stage_temp_k": 0.03, "mode": "exact"}
-    assert result.provenance["versions"]["emcee"] is not None
+    assert result.provenance.versions["emcee"] is not None
+    assert result.provenance.command_line is None  # the Python API records no command
     assert result.map_values["quality_factor"] == pytest.approx(
         2 * np.pi * 6.2e9 * result.map_values["lifetime"])
     assert not result.converged and result.trace is not None
@@ -221,9 +230,10 @@ def test_sha256_of_file_known_vector(tmp_path):
     digest = "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
     assert sha256_of_file(path) == digest
     assert sha256_of_file(path, chunk_bytes=1) == digest  # chunked reading
-    prov = collect_provenance(path, command_line=["cavchar", "fit"], seed=5)
-    assert prov["input_sha256"] == digest and prov["seed"] == 5
-    assert set(prov["versions"]) >= {"cavchar", "numpy", "scipy", "emcee"}
+    prov = collect_provenance(path, command_line=["cavchar", "fit"])
+    assert prov.inputs[0].sha256 == digest and prov.command_line == ("cavchar", "fit")
+    assert set(prov.versions) >= {"cavchar", "numpy", "scipy", "emcee"}
+    assert prov.date is not None and prov.created_at.endswith("+00:00")  # UTC
     with pytest.raises(InputError):
         sha256_of_file(tmp_path / "missing.csv")
 
@@ -249,3 +259,97 @@ def test_plain_json_fast_paths_match_the_element_by_element_form():
         for a, b in zip(flat, cells, strict=True):
             assert (b is None) if not math.isfinite(a) else (b == a and type(b) in (int, float,
                                                                                     bool))
+
+
+def test_schema_1_is_migrated_to_one_home_per_fact(tmp_path):
+    """The schema-1 fixture read and written again: schema 2, the seed once (sampler
+    settings), the kind typed, the inputs as path/hash pairs, nothing else lost."""
+    path = FIXTURES / "fit_result_v1.json"
+    old = json.loads(path.read_text())
+    result = FitResult.from_json(path)
+    assert result.provenance.inputs == (InputFile("", "0" * 64),)
+    assert result.provenance.cavchar_version == "0.1.0"
+    assert result.diagnostics.tau == old["diagnostics"]["tau"]
+    assert result.planck is not None and result.planck.piles_up_at_zero is False
+    assert not result.planck.complete
+    new = result.to_dict()
+    assert new["schema"] == "cavchar-fit-result/2" and "seed" not in new
+    assert new["settings"] == old["settings"] and new["extras"] == old["extras"]
+    assert new["checks"] == old["checks"] and new["map"] == old["map"]
+    again = FitResult.from_json(result.to_json(tmp_path / "v2.json"))
+    assert again.to_dict() == new
+
+
+def test_schema_1_provenance_spellings():
+    """Parallel lists of paths and hashes, the command as text, the version twice and a
+    date with an offset: one typed provenance with one spelling of each."""
+    prov = Provenance.from_dict({
+        "input_path": ["a.csv", "b.csv"], "input_sha256": ["1" * 64, "2" * 64],
+        "command": "cavchar fit jumps 'my file.csv' --seed 3", "cavchar_version": "0.1.0",
+        "versions": {"numpy": "2.0"}, "created_at": "2026-03-01T12:00:00+01:00",
+        "seed": 3})
+    assert prov.inputs == (InputFile("a.csv", "1" * 64), InputFile("b.csv", "2" * 64))
+    assert prov.command_line == ("cavchar", "fit", "jumps", "my file.csv", "--seed", "3")
+    assert prov.command == "cavchar fit jumps 'my file.csv' --seed 3"
+    assert prov.versions == {"numpy": "2.0", "cavchar": "0.1.0"}
+    assert prov.created_at == "2026-03-01T11:00:00+00:00"  # the same instant, in UTC
+    assert Provenance.from_dict(prov.to_dict()) == prov
+    with pytest.raises(ValueError, match="one hash per input_path"):
+        Provenance.from_dict({"input_path": ["a", "b"], "input_sha256": ["1" * 64] * 3})
+
+
+def test_fit_kind_parses_the_compound_names():
+    assert FitKind.parse("jumps-exact") == FitKind("jumps", "exact")
+    assert FitKind.parse("ringdown-mean-n") == FitKind("ringdown", "mean-n")
+    assert FitKind.parse("probes") == FitKind("probes")
+    for text in ("jumps-exact", "ringdown-mean-n", "probes"):
+        assert str(FitKind.parse(text)) == text
+
+
+def test_diagnostics_keep_unknown_fields_and_drop_the_repeated_verdict():
+    diag = SamplerDiagnostics.from_dict({"converged": True, "n_steps": 10, "custom": [1]})
+    assert diag.n_steps == 10 and diag.extra == {"custom": [1]}
+    assert diag.to_dict() == {"n_steps": 10, "custom": [1]}
+
+
+def test_result_is_read_only_all_the_way_down():
+    """No field of a result can be changed in place, so summary() and to_json() stay
+    what the fit gave; pickling (dask workers) and copying keep it so."""
+    import copy
+    import dataclasses
+    import pickle
+
+    result = make_result(n=200)
+    before = result.to_dict()
+    attempts = [
+        lambda: result.settings.__setitem__("fit", {}),
+        lambda: result.settings["sampler"].update(seed=1),
+        lambda: result.checks.setdefault("x", 1),
+        lambda: result.extras.pop("record_length_s"),
+        lambda: result.map_values.__setitem__("lifetime", 1.0),
+        lambda: result.provenance.versions.__setitem__("cavchar", "9"),
+        lambda: result.diagnostics.tau.__setitem__("lifetime", 0.0),
+        lambda: result.column("lifetime").__setitem__(0, 1.0),
+    ]
+    for attempt in attempts:
+        with pytest.raises((TypeError, ValueError)):
+            attempt()
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        result.provenance.created_at = "yesterday"  # type: ignore[misc]
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        result.kind.family = "probes"  # type: ignore[misc]
+    assert result.to_dict() == before
+    for other in (pickle.loads(pickle.dumps(result)), copy.deepcopy(result)):
+        assert other.to_dict() == before
+        with pytest.raises(TypeError):
+            other.settings["sampler"]["seed"] = 1
+    json.dumps(result.settings)  # still plain JSON to every reader
+    assert result.settings == {"sampler": {"seed": 42, "n_walkers": 32},
+                               "fit": {"freq_hz": 6.2e9}}
+
+
+def test_fit_kind_family_is_one_word():
+    with pytest.raises(ValueError):
+        FitKind("jumps-exact")  # the compound name is parsed, not taken as a family
+    with pytest.raises(ValueError):
+        FitKind.parse("-exact")

@@ -195,3 +195,49 @@ def test_judge_refuses_non_finite_draws_from_any_source():
         judge(spec.requirements[0], Evidence("fit 3", {"lifetime": draws}))
     draws[7] = 2e-3
     assert judge(spec.requirements[0], Evidence("fit 3", {"lifetime": draws})).status == "PASS"
+
+
+def test_every_field_of_a_schema_2_file_loads_or_is_refused(tmp_path, capsys):
+    """The same sweep over the fixture written again in the current schema (typed kind,
+    provenance inputs, the seed only in the settings): never another exception."""
+    from cavchar.outputs import print_summary
+
+    current = FitResult.from_json(_write(tmp_path / "v1.json", BASE)).to_dict()
+    current["provenance"].update(inputs=[{"path": "record.csv", "sha256": "0" * 64}],
+                                 command_line=["cavchar", "fit", "jumps", "record.csv"],
+                                 created_at="2026-03-01T11:00:00+00:00")
+    FitResult.from_json(_write(tmp_path / "ok.json", current))  # the control loads
+    tried = refused = 0
+    for path in sorted(set(_leaves(current)), key=str):
+        for value in HOSTILE:
+            tried += 1
+            data = copy.deepcopy(current)
+            target = data
+            for key in path[:-1]:
+                target = target[key]
+            target[path[-1]] = value
+            try:
+                print_summary(FitResult.from_json(_write(tmp_path / "crafted.json", data)))
+            except InputError as exc:
+                refused += 1
+                assert "crafted.json" in str(exc)
+    capsys.readouterr()
+    assert tried > 500 and refused > tried // 2
+
+
+@pytest.mark.parametrize("field, value, words", [
+    (("kind",), "jumps-exact", "kind should be an object"),  # the schema-1 spelling
+    (("kind", "family"), "jumps-exact", "kind.family"),
+    (("provenance", "created_at"), "yesterday", "provenance.created_at should be an ISO"),
+    (("provenance", "inputs", 0, "sha256"), "<b>x</b>", "provenance.inputs[0].sha256"),
+])
+def test_schema_2_fields_name_the_field(tmp_path, field, value, words):
+    current = FitResult.from_json(_write(tmp_path / "v1.json", BASE)).to_dict()
+    current["provenance"]["inputs"] = [{"path": "record.csv", "sha256": "0" * 64}]
+    target = current
+    for key in field[:-1]:
+        target = target[key]
+    target[field[-1]] = value
+    with pytest.raises(InputError) as info:
+        FitResult.from_json(_write(tmp_path / "r.json", current))
+    assert words in str(info.value) and "r.json" in str(info.value)

@@ -6,6 +6,7 @@ tests/test_tracking_*.py files.
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import sqlite3
 import warnings
@@ -41,6 +42,7 @@ def make_result(lifetime, n_thermal=None, *, freq=FREQ, stage=0.02, sha="a" * 64
     from cavchar.parameters import ParameterSpec
     from cavchar.priors import LogUniform
     from cavchar.result import FitResult
+    from cavchar.result_types import InputFile, Provenance
 
     columns = {"lifetime": np.asarray(lifetime, dtype=float)}
     specs = [ParameterSpec("lifetime", "s", "T_c", LogUniform(1e-6, 1e3), log_scale=True)]
@@ -53,8 +55,9 @@ def make_result(lifetime, n_thermal=None, *, freq=FREQ, stage=0.02, sha="a" * 64
         kind=kind, specs=tuple(specs), samples=samples, map_values={}, diagnostics={},
         settings={"sampler": {"seed": seed, "quiet": True},
                   "fit": {"freq_hz": freq, "stage_temp_k": stage}},
-        provenance={"input_sha256": sha, "cavchar_version": "0.1.0", "seed": seed,
-                    "created_at": "2026-01-01T00:00:00+00:00"})
+        provenance=Provenance(inputs=(InputFile("record.csv", sha),),
+                              versions={"cavchar": "0.1.0"},
+                              created_at="2026-01-01T00:00:00+00:00"))
 
 
 def random_result(rng, lifetime=2e-3, n_th=1e-3, n=6000, **kw):
@@ -83,7 +86,7 @@ def test_round_trip(tmp_path):
             assert (fit.cavity, fit.cooldown, fit.kind) == ("A", cooldown, "jumps")
             assert fit.settings == result.settings
             assert fit.seed == 1
-            assert fit.input_sha256 == result.provenance["input_sha256"]
+            assert fit.input_sha256 == result.provenance.inputs[0].sha256
             assert fit.tool_version == "0.1.0"
             assert fit.fitted_at == "2026-01-01T00:00:00+00:00"
             assert fit.freq_hz == FREQ and fit.stage_temp_k == 0.02
@@ -119,8 +122,9 @@ def test_duplicates_are_found(tmp_path):
         with pytest.warns(CavcharWarning, match="not logged again"):
             assert log.add_fit(entry_from_result(result), "A", "cd1", on_duplicate="skip") == first
         # a cosmetic setting (progress output) does not make it another fit
-        quiet = random_result(np.random.default_rng(3))
-        object.__getattribute__(quiet, "settings")["sampler"]["quiet"] = False
+        same = random_result(np.random.default_rng(3))
+        quiet = dataclasses.replace(same, settings={
+            **same.settings, "sampler": {**same.settings["sampler"], "quiet": False}})
         with pytest.raises(InputError):
             log.add_fit(entry_from_result(quiet), "A", "cd1")
         other_seed = random_result(np.random.default_rng(3), seed=2)

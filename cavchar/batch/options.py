@@ -20,7 +20,7 @@ from typing import Any
 from cavchar.errors import InputError
 
 __all__ = ["KINDS", "ENTRY_FIELDS", "BATCH_LEVEL_OPTIONS", "option_names", "build_argv",
-           "parse_argv", "fit_from_argv", "command_text", "referenced_files"]
+           "parse_argv", "fit_from_argv", "command_argv", "command_text", "referenced_files"]
 
 #: batch kind -> (``cavchar fit`` sub-command, extra flags)
 KINDS: dict[str, tuple[str, tuple[str, ...]]] = {
@@ -167,9 +167,15 @@ def parse_argv(kind: str, argv: list[str]) -> argparse.Namespace:
         raise InputError(text) from None
 
 
+def command_argv(kind: str, argv: list[str], seed: int) -> list[str]:
+    """The single-record command that redoes an entry's fit alone, as argv strings
+    (recorded as the command line of the entry's result)."""
+    return ["cavchar", "fit", KINDS[kind][0], *argv, "--seed", str(seed)]
+
+
 def command_text(kind: str, argv: list[str], seed: int) -> str:
-    """The single-record command that redoes an entry's fit alone."""
-    return "cavchar " + shlex.join(["fit", KINDS[kind][0], *argv, "--seed", str(seed)])
+    """:func:`command_argv` as one shell-quoted text."""
+    return shlex.join(command_argv(kind, argv, seed))
 
 
 def _settings(args: argparse.Namespace, kind: str, check_every: int | None):
@@ -201,10 +207,9 @@ def fit_arguments(kind: str, argv: list[str], seed: int, check_every: int | None
     if extra:
         raise InputError("this cavchar's fit command has options the batch does not pass on "
                          f"yet: {', '.join(extra)}", hint="fit this record on its own")
-    command = command_text(kind, argv, seed)
     settings = _settings(args, kind, check_every)
     common = {"freq_hz": args.freq, "stage_temp_k": args.stage_temp, "settings": settings,
-              "sampler": args.sampler, "command": command}
+              "sampler": args.sampler, "command_line": command_argv(kind, argv, seed)}
     base = KINDS[kind][0]
     if base == "jumps":
         from cavchar.fits.jumps import JumpPriors

@@ -20,7 +20,7 @@ import uuid
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, TextIO
+from typing import TYPE_CHECKING, Any, TextIO
 
 from cavchar.batch.spec import (
     BatchEntry,
@@ -37,6 +37,9 @@ from cavchar.batch.worker import (
     run_entry,
 )
 from cavchar.errors import InputError
+
+if TYPE_CHECKING:
+    from cavchar.result import FitResult
 
 __all__ = ["fit_many", "BatchRun", "EXIT_SOME_FAILED", "SCHEDULER_ENV", "STATE_NAME",
            "load_plan"]
@@ -217,7 +220,7 @@ class _Job:
     key: str
     folder: Path | None
     row: dict | None = None
-    result: Any = None
+    result: FitResult | None = None
 
 
 def _state(folder: Path) -> dict | None:
@@ -560,7 +563,7 @@ def _finish(job: _Job, outcome: dict, attempts: int, out_dir, logbook, log_creat
     if result is not None and exit_class == 0:
         job.result = result
         if job.folder is not None:
-            from cavchar.provenance import collect_provenance
+            from cavchar.result_types import utc_timestamp
 
             state = {"label": job.entry.label, "kind": job.entry.kind, "key": job.key,
                      "status": STATUS_OK, "seed": job.entry.seed,
@@ -570,7 +573,7 @@ def _finish(job: _Job, outcome: dict, attempts: int, out_dir, logbook, log_creat
                      "wall_s": outcome["wall_s"], "cpu_s": outcome.get("cpu_s", math.nan),
                      "attempts": attempts,
                      "worker": outcome["worker"], "warnings": outcome["warnings"],
-                     "written_at": collect_provenance()["created_at"]}
+                     "written_at": utc_timestamp()}
             try:
                 _write_folder(job.folder, outcome["files"], state, force)
                 folder = str(job.folder)

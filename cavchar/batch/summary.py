@@ -4,9 +4,12 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import pandas as pd
+
+if TYPE_CHECKING:
+    from cavchar.result import FitResult
 
 __all__ = ["SUMMARY_COLUMNS", "summary_row", "summary_text", "summary_section"]
 
@@ -19,7 +22,8 @@ SUMMARY_COLUMNS = (
 )
 
 
-def summary_row(entry, status: str, exit_class: int, result: Any = None, *,
+def summary_row(entry, status: str, exit_class: int, result: FitResult | None = None,
+                *,
                 wall_s: float = math.nan, attempts: int = 0, folder: str | None = None,
                 message: str = "") -> dict[str, Any]:
     """The summary row of one entry (NaN where the entry has no result)."""
@@ -41,7 +45,7 @@ def summary_row(entry, status: str, exit_class: int, result: Any = None, *,
                 for col in ("median", "lo95", "hi95"):
                     row[f"{name}_{col}{unit}"] = float(table.loc[name, col])
         row["converged"] = bool(result.converged)
-        rhat = (result.diagnostics or {}).get("rhat") or {}
+        rhat = result.diagnostics.rhat or {}
         values = [v for v in rhat.values() if isinstance(v, int | float) and math.isfinite(v)]
         row["rhat_max"] = max(values) if values else math.nan
     return row

@@ -4,8 +4,12 @@ from __future__ import annotations
 
 import argparse
 from collections.abc import Callable
+from typing import TYPE_CHECKING
 
 from cavchar.units import parse_quantity
+
+if TYPE_CHECKING:
+    from cavchar.result import FitResult
 
 __all__ = ["quantity", "add_output_options", "add_sampler_options", "add_fit_context_options",
            "settings_from_args", "rate_priors_from_args", "check_input_files", "check_outputs",
@@ -324,7 +328,7 @@ def check_log_target(args: argparse.Namespace) -> None:
                          hint=f"{exc.hint}; {create}" if exc.hint else create) from None
 
 
-def finish_fit_command(result, args: argparse.Namespace) -> int:
+def finish_fit_command(result: FitResult, args: argparse.Namespace) -> int:
     """Print the summary, write the outputs, log and report; return the exit code."""
     from cavchar.outputs import print_summary, write_fit_outputs
 

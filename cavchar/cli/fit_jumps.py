@@ -3,8 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import shlex
-import sys
 
 from cavchar.cli.common import (
     HelpFormatter,
@@ -77,6 +75,6 @@ def handle(args: argparse.Namespace) -> int:
         stationary_start=args.stationary_start,
         settings=settings_from_args(args),
         sampler=args.sampler,
-        command="cavchar " + shlex.join(sys.argv[1:]) if sys.argv else None,
+        command_line=getattr(args, "command_line", None),
     )
     return finish_fit_command(result, args)

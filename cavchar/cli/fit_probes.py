@@ -4,8 +4,6 @@ from __future__ import annotations
 
 import argparse
 import math
-import shlex
-import sys
 
 from cavchar.cli.common import (
     HelpFormatter,
@@ -226,7 +224,7 @@ def handle(args: argparse.Namespace) -> int:
         mode=args.mode,
         block_probes=args.block_probes,
         initial="stationary" if args.initial_photons is None else args.initial_photons,
-        command="cavchar " + shlex.join(sys.argv[1:]) if sys.argv else None,
+        command_line=getattr(args, "command_line", None),
         sampler=args.sampler,
     )
     route = result.settings["fit"].get("intervals")

@@ -3,8 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import shlex
-import sys
 
 from cavchar.cli.common import (
     HelpFormatter,
@@ -133,7 +131,7 @@ def handle(args: argparse.Namespace) -> int:
         allow_negative_power=args.allow_negative,
         compare=not args.no_compare,
         sampler=args.sampler,
-        command="cavchar " + shlex.join(sys.argv[1:]) if sys.argv else None,
+        command_line=getattr(args, "command_line", None),
     )
     code = finish_fit_command(result, args)
     comparison = result.checks.get("two_exponentials")

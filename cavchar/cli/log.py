@@ -10,9 +10,13 @@ from __future__ import annotations
 import argparse
 import json
 from datetime import date
+from typing import TYPE_CHECKING
 
 from cavchar.cli.common import HelpFormatter, quantity
 from cavchar.errors import InputError
+
+if TYPE_CHECKING:
+    from cavchar.result import FitResult
 
 __all__ = ["register", "add_log_file_option", "add_fit_log_options", "log_from_args",
            "log_fit_result", "fit_id_arg", "add_selection_options", "interval_text"]
@@ -109,7 +113,7 @@ def add_fit_log_options(parser: argparse.ArgumentParser) -> None:
                         help="with --log: create the cavity and cooldown if they are new")
 
 
-def log_from_args(result, args: argparse.Namespace) -> int | None:
+def log_from_args(result: FitResult, args: argparse.Namespace) -> int | None:
     """Log ``result`` if ``--log`` was given (see :func:`add_fit_log_options`); prints and
     returns the fit id (the earlier id, with a warning, when it is already logged)."""
     if getattr(args, "log", None) is None:

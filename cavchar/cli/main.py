@@ -104,7 +104,11 @@ def _show_warning(message, category, filename, lineno, file=None, line=None) -> 
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    """Run the command line with ``argv`` (default: ``sys.argv[1:]``); return the exit code."""
+    """Run the command line with ``argv`` (default: ``sys.argv[1:]``); return the exit code.
+
+    The fit commands record ``["cavchar", *argv]`` as the command line of their result
+    (``args.command_line``)."""
+    argv = list(sys.argv[1:] if argv is None else argv)
     parser = build_parser()
     try:
         args = parser.parse_args(argv)
@@ -113,6 +117,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     if getattr(args, "func", None) is None:
         parser.print_help()
         return 2
+    args.command_line = ["cavchar", *argv]
     with warnings.catch_warnings():
         warnings.showwarning = _show_warning
         for text in QUIET_WARNINGS:

@@ -26,10 +26,13 @@ import zlib
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from cavchar.demo.scenario import SCENARIO, CooldownPlan, Scenario
 from cavchar.errors import InputError
+
+if TYPE_CHECKING:
+    from cavchar.result import FitResult
 
 __all__ = ["DemoJob", "DemoOutcome", "plan_jobs", "run_demo", "DEFAULT_SEED", "LOG_NAME",
            "REPORT_NAME", "SPEC_NAME"]
@@ -56,7 +59,7 @@ class DemoJob:
     figures: bool = True
     data_path: Path | None = None
     result_path: Path | None = None
-    result: Any = None
+    result: FitResult | None = None
     fit_id: int | None = None
     #: time average of the simulated photon number (the hidden path), None for a ring-down
     realized_n: float | None = None

@@ -100,7 +100,7 @@ def tracking_sections(log_path: Path, spec_path: Path, scenario: Scenario, jobs:
         base = {j.plan.label: j for j in jobs
                 if j.kind == "jumps" and j.stage_temp_k == j.plan.stage_temp_k}
         if base:
-            kind = next(iter(base.values())).result.kind
+            kind = str(next(iter(base.values())).result.kind)
             sections.append(cooldown_trend(log, scenario.cavity, reference=first.label,
                                            fraction=0.1, kind=kind))
         else:

@@ -4,12 +4,14 @@ from __future__ import annotations
 
 import dataclasses
 import warnings
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
 from cavchar.errors import UnitSlipWarning
 from cavchar.inference import SamplerSettings
 from cavchar.result import FitResult
+from cavchar.result_types import FitKind
 
 __all__ = ["FitContext", "sampler_settings", "finish_fit"]
 
@@ -19,13 +21,14 @@ class FitContext:
     """The record being fitted and the physical context of the fit.
 
     ``record`` is any record of :mod:`cavchar.records` (its ``source`` is the input
-    file, hashed into the provenance) or a list of them.
+    file, hashed into the provenance) or a list of them; ``command_line`` the command
+    as argv strings when the caller gave one (the command-line interface does).
     """
 
     record: Any
     freq_hz: float | None = None
     stage_temp_k: float | None = None
-    command: str | None = None
+    command_line: Sequence[str] | None = None
 
     def sources(self) -> list[str]:
         records = self.record if isinstance(self.record, (list, tuple)) else [self.record]
@@ -64,7 +67,7 @@ def plausibility_problems(run, context: FitContext) -> list[str]:
 
 
 def finish_fit(
-    kind: str,
+    kind: FitKind | str,
     run,
     context: FitContext,
     *,
@@ -80,14 +83,7 @@ def finish_fit(
     from cavchar.inference.prior_bounds import prior_bound_check
     from cavchar.provenance import collect_provenance
 
-    sources = context.sources()
-    provenance = collect_provenance(
-        (sources[0] if len(sources) == 1 else sources) or None,
-        command_line=context.command.split() if context.command else None,
-        seed=run.settings.seed,
-    )
-    if context.command:
-        provenance["command"] = context.command
+    provenance = collect_provenance(context.sources(), command_line=context.command_line)
     checks = dict(checks or {})
     checks["prior_bounds"] = prior_bound_check(run.specs, run.draws)
     problems = plausibility_problems(run, context)

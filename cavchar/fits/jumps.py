@@ -13,6 +13,7 @@ from __future__ import annotations
 import math
 import os
 import warnings
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -116,7 +117,7 @@ def fit_jumps(
     stationary_start: bool = False,
     settings: SamplerSettings | None = None,
     seed: int | None = None,
-    command: str | None = None,
+    command_line: Sequence[str] | None = None,
     columns: dict[str, str] | None = None,
     layout=None,
     exact_rows: bool = False,
@@ -146,8 +147,10 @@ def fit_jumps(
         (only for records that start in thermal equilibrium).
     settings, seed
         Sampler settings; ``seed`` overrides ``settings.seed``.
-    command
-        The command line, stored in the provenance.
+    command_line
+        The command as argv strings, stored in the provenance (the command-line
+        interface passes its own ``argv``); None, the default for Python callers,
+        records no command line.
     columns, layout
         How to read a file: column mapping ``{"time": "Time (s)", ...}`` and a
         :class:`~cavchar.io.tables.layout.FileLayout` (rows to skip, delimiter,
@@ -171,7 +174,7 @@ def fit_jumps(
     settings = sampler_settings(settings, seed)
     initial = "stationary" if stationary_start else "conditional"
     context = FitContext(record=record, freq_hz=freq_hz, stage_temp_k=stage_temp_k,
-                         command=command)
+                         command_line=command_line)
     if isinstance(record, JumpRecord):
         return _fit_exact(record, specs, settings, initial, context, sampler)
     return _fit_sampled(record, specs, settings, initial, context, sampler)

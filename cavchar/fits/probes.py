@@ -27,6 +27,7 @@ from __future__ import annotations
 import math
 import os
 import warnings
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -193,7 +194,7 @@ def fit_probes(
     block_probes: int | None = None,
     initial: str | int = "stationary",
     n_levels: int | None = None,
-    command: str | None = None,
+    command_line: Sequence[str] | None = None,
     sampler: str = "importance",
 ):
     """Posterior of the lifetime, thermal photon number (and fitted response
@@ -229,8 +230,10 @@ def fit_probes(
         state (photon number) the segments start in.
     n_levels
         Fixed truncation (default: automatic, checked against the posterior).
-    command
-        The command line, stored in the provenance.
+    command_line
+        The command as argv strings, stored in the provenance (the command-line
+        interface passes its own ``argv``); None, the default for Python callers,
+        records no command line.
     sampler
         ``"importance"`` (Pareto-smoothed importance sampling from a Laplace
         proposal, falling back to the ensemble when its k-hat diagnostic says the
@@ -245,7 +248,7 @@ def fit_probes(
     return fit_probes_with_trajectory(
         record, response=response, freq_hz=freq_hz, stage_temp_k=stage_temp_k, priors=priors,
         settings=settings, seed=seed, mode=mode, block_probes=block_probes, initial=initial,
-        n_levels=n_levels, command=command, sampler=sampler)[0]
+        n_levels=n_levels, command_line=command_line, sampler=sampler)[0]
 
 
 def fit_probes_with_trajectory(record, **options):
@@ -257,7 +260,7 @@ def fit_probes_with_trajectory(record, **options):
 
 def _fit(record, *, response=None, freq_hz=None, stage_temp_k=None, priors=None, settings=None,
          seed=None, mode="auto", block_probes=None, initial="stationary", n_levels=None,
-         command=None, sampler="importance"):
+         command_line=None, sampler="importance"):
     record = _read(record)
     response = _response(response)
     priors = priors or ProbePriors()
@@ -268,7 +271,7 @@ def _fit(record, *, response=None, freq_hz=None, stage_temp_k=None, priors=None,
              ParameterSpec("n_thermal", "", "n_th", priors.n_thermal, log_scale=True),
              *response.parameter_specs())
     context = FitContext(record=record, freq_hz=freq_hz, stage_temp_k=stage_temp_k,
-                         command=command)
+                         command_line=command_line)
     if np.all(np.isnan(record.outcome)):
         raise InputError("every probe of the record is lost", path=record.source)
     guess = _pilot(record, response, priors, initial)

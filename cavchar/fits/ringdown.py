@@ -181,7 +181,7 @@ def fit_ringdown(
     n0: float | None = None,
     allow_negative_power: bool = False,
     compare: bool = True,
-    command: str | None = None,
+    command_line: Sequence[str] | None = None,
     sampler: str = "importance",
 ):
     """Posterior of the energy lifetime (and n_th) from one or more ring-down traces.
@@ -221,8 +221,10 @@ def fit_ringdown(
         Accept negative values of a linear power trace (background-subtracted data).
     compare
         For a single power trace, compare with two exponentials (BIC) and store it.
-    command
-        The command line, stored in the provenance.
+    command_line
+        The command as argv strings, stored in the provenance (the command-line
+        interface passes its own ``argv``); None, the default for Python callers,
+        records no command line.
     sampler
         ``"importance"`` (Pareto-smoothed importance sampling from the Laplace
         approximation, falling back to the ensemble sampler when its k-hat says the
@@ -272,7 +274,7 @@ def fit_ringdown(
                       "allow_negative_power": allow_negative_power,
                       "initial_state": state, "n0_fixed": n0}
     context = FitContext(record=list(data.records), freq_hz=freq_hz,
-                         stage_temp_k=stage_temp_k, command=command)
+                         stage_temp_k=stage_temp_k, command_line=command_line)
     result = finish_fit(f"ringdown-{data.signal}", run, context, checks=checks, extras=extras,
                         model_settings=model_settings)
     if nuisance:

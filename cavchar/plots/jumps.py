@@ -6,7 +6,12 @@ they never save or show.  matplotlib is imported inside the functions.
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import numpy as np
+
+if TYPE_CHECKING:
+    from cavchar.result import FitResult
 
 
 def plot_record_and_occupation(
@@ -109,7 +114,7 @@ def plot_dwell_check(
     return fig
 
 
-def figures(result) -> dict:
+def figures(result: FitResult) -> dict:
     """Model-specific figures of a jump-record fit, from the result alone (its extras)."""
     extras = result.extras
     samples = result.samples

@@ -23,13 +23,19 @@ import math
 import os
 from collections.abc import Mapping, Sequence
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from cavchar.errors import InputError
 from cavchar.quantities import QUANTILES_68
 from cavchar.units import display_prefix
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+    from cavchar.parameters import ParameterSpec
+    from cavchar.result import FitResult
 
 __all__ = [
     "QUANTITY_LABELS",
@@ -95,18 +101,13 @@ def display_unit(values: Any, dimension: str) -> tuple[float, str]:
     return 1.0 / size, prefix + unit
 
 
-def result_specs(result: Any) -> list[Any]:
-    """The parameter specs of a result (``specs`` / ``parameters`` attribute), or []."""
-    for name in ("specs", "parameter_specs", "parameters"):
-        specs = getattr(result, name, None)
-        if specs is not None and not callable(specs):
-            specs = list(specs.values()) if isinstance(specs, Mapping) else list(specs)
-            if all(hasattr(s, "name") for s in specs):
-                return specs
-    return []
+def result_specs(result: FitResult | pd.DataFrame) -> list[ParameterSpec]:
+    """The parameter specs of a result (or of a sampler run), [] for a table of draws."""
+    specs = getattr(result, "specs", None)
+    return [] if specs is None else list(specs)
 
 
-def parameter_info(result: Any, name: str) -> tuple[str, str]:
+def parameter_info(result: FitResult | pd.DataFrame, name: str) -> tuple[str, str]:
     """(label, dimension) of a column: from the result's specs, else the known quantities."""
     for spec in result_specs(result):
         if spec.name == name:
@@ -115,7 +116,8 @@ def parameter_info(result: Any, name: str) -> tuple[str, str]:
     return QUANTITY_LABELS.get(name, (name, "dimensionless"))
 
 
-def result_trace(result: Any) -> tuple[np.ndarray, list[str], int, int] | None:
+def result_trace(result: FitResult | pd.DataFrame
+                 ) -> tuple[np.ndarray, list[str], int, int] | None:
     """The stored sampler chain of a result, if it keeps one.
 
     Returns
@@ -131,7 +133,7 @@ def result_trace(result: Any) -> tuple[np.ndarray, list[str], int, int] | None:
         trace = extras.get("trace")
     if trace is None:
         return None
-    diagnostics = getattr(result, "diagnostics", None) or {}
+    diagnostics = getattr(result, "diagnostics", None)
     names = None
     if isinstance(trace, Mapping):  # {"values": ..., "names": ..., "step": ...}
         names = trace.get("names")
@@ -147,8 +149,8 @@ def result_trace(result: Any) -> tuple[np.ndarray, list[str], int, int] | None:
     if len(names) != arr.shape[2]:
         names = [f"parameter {i}" for i in range(arr.shape[2])]
     if step is None:
-        step = diagnostics.get("thin", 1) if isinstance(diagnostics, Mapping) else 1
-    burn = diagnostics.get("burn_in", 0) if isinstance(diagnostics, Mapping) else 0
+        step = getattr(diagnostics, "thin", None) or 1
+    burn = getattr(diagnostics, "burn_in", None) or 0
     return arr, list(names), int(step or 1), int(burn or 0)
 
 
@@ -163,7 +165,7 @@ def _samples_frame(samples: Any):
     raise InputError("nothing to plot: expected a fit result or a table of posterior draws")
 
 
-def _default_columns(result: Any, frame) -> list[str]:
+def _default_columns(result: FitResult | pd.DataFrame, frame) -> list[str]:
     names = [s.name for s in result_specs(result) if s.name in frame.columns]
     if not names:
         names = [c for c in ("lifetime", "n_thermal") if c in frame.columns]
@@ -180,7 +182,7 @@ def _axis_label(label: str, unit: str) -> str:
 
 
 def corner_plot(
-    result: Any,
+    result: FitResult | pd.DataFrame,
     columns: Sequence[str] | None = None,
     *,
     truths: Mapping[str, float] | None = None,
@@ -267,7 +269,7 @@ def corner_plot(
 
 
 def trace_plot(
-    result: Any,
+    result: FitResult | pd.DataFrame,
     columns: Sequence[str] | None = None,
     *,
     max_walkers: int = 16,

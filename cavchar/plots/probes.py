@@ -6,7 +6,12 @@ never save or show.  matplotlib is imported inside the functions.
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import numpy as np
+
+if TYPE_CHECKING:
+    from cavchar.result import FitResult
 
 __all__ = ["plot_trajectory", "figures"]
 
@@ -77,7 +82,7 @@ def plot_trajectory(
     return fig
 
 
-def figures(result) -> dict:
+def figures(result: FitResult) -> dict:
     """Model-specific figures of a probe-record fit, from the result's extras."""
     excerpt = result.extras.get("trajectory_excerpt")
     if not excerpt:

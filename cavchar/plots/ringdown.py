@@ -8,7 +8,12 @@ matplotlib is imported inside the functions.
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import numpy as np
+
+if TYPE_CHECKING:
+    from cavchar.result import FitResult
 
 __all__ = ["plot_trace_fit", "plot_populations_fit", "figures"]
 
@@ -112,10 +117,10 @@ def plot_populations_fit(curves: dict, max_levels: int = 6, fig=None):
     return fig
 
 
-def figures(result) -> dict:
+def figures(result: FitResult) -> dict:
     """Model-specific figures of a ring-down fit, from the result alone (its extras)."""
     curves = result.extras.get("curves") or {}
-    signal = result.extras.get("signal", result.kind.split("-", 1)[-1])
+    signal = result.extras.get("signal", result.kind.variant)
     if "populations" in curves:
         return {"ringdown_fit": plot_populations_fit(curves)}
     if curves.get("traces"):

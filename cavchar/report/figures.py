@@ -2,8 +2,8 @@
 of each result, and the comparison of several results.
 
 Data figures of one fit kind come from its plotting module
-``cavchar.plots.<family>`` (``jumps``, ``probes``, ``ringdown``; the family is the
-part of ``result.kind`` before the first ``-``): its ``figures(result) -> dict[name,
+``cavchar.plots.<family>`` (``jumps``, ``probes``, ``ringdown``; the family is
+``result.kind.family``): its ``figures(result) -> dict[name,
 Figure]`` (the hook the fit commands use; titles and captions from the module's
 ``FIGURE_CAPTIONS = {name: (title, caption)}`` when it has one, else from
 :data:`KNOWN_CAPTIONS`); for a jump result without data excerpts the adapter below
@@ -23,17 +23,20 @@ from __future__ import annotations
 import importlib
 import re
 import warnings
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from cavchar.errors import CavcharError, CavcharWarning
 from cavchar.quantities import QUANTILES_68
 
-__all__ = ["Figure", "kind_family", "load_input_record", "data_figures", "sampler_figures",
+if TYPE_CHECKING:
+    from cavchar.result import FitResult
+
+__all__ = ["Figure", "load_input_record", "data_figures", "sampler_figures",
            "comparison_figure"]
 
 
@@ -53,24 +56,16 @@ FAMILIES = ("jumps", "probes", "ringdown")
 _DRAW_ERRORS = (CavcharError, TypeError, ValueError, KeyError, IndexError, AttributeError)
 
 
-def kind_family(kind: str) -> str:
-    """``"jumps-exact"`` -> ``"jumps"``."""
-    return str(kind).split("-", 1)[0].split("_", 1)[0]
-
-
-def _provenance_input(result: Any) -> tuple[str | None, str | None]:
-    prov = getattr(result, "provenance", None)
-    prov = prov if isinstance(prov, Mapping) else {}
-    path, sha = prov.get("input_path"), prov.get("input_sha256")
-    if isinstance(path, list):
-        path = path[0] if len(path) == 1 else None
-        sha = sha[0] if isinstance(sha, list) and len(sha) == 1 else None
-    path = path if isinstance(path, str) else None
+def _provenance_input(result: FitResult) -> tuple[str | None, str | None]:
+    single = result.provenance.single_input
+    if single is None or not single.path:
+        return None, None
+    sha = single.sha256
     sha = sha if isinstance(sha, str) and re.fullmatch(r"[0-9a-f]{64}", sha) else None
-    return path, sha
+    return single.path, sha
 
 
-def load_input_record(result: Any) -> tuple[Any | None, str]:
+def load_input_record(result: FitResult) -> tuple[Any | None, str]:
     """The fitted record, re-read from the input file of the provenance, on request only.
 
     The file is read only when the result records its SHA-256 and the file's
@@ -88,8 +83,7 @@ def load_input_record(result: Any) -> tuple[Any | None, str]:
         return None, "the result names no single input file"
     if not sha:
         return None, "the result records no SHA-256 of its input file to check it against"
-    family = kind_family(result.kind)
-    if family not in FAMILIES:
+    if result.kind.family not in FAMILIES:
         return None, "no reader is known for this fit kind"
     file = Path(path)
     if not file.is_file():
@@ -102,21 +96,21 @@ def load_input_record(result: Any) -> tuple[Any | None, str]:
         return None, f"the input file could not be read again ({exc})"
 
 
-def _read_record(result: Any, file: Path) -> Any:
+def _read_record(result: FitResult, file: Path) -> Any:
     from cavchar.io import readers
 
-    kind = str(result.kind)
-    fit = (getattr(result, "settings", None) or {}).get("fit", {})
-    family = kind_family(kind)
+    kind = result.kind
+    fit = (result.settings or {}).get("fit", {})
+    family = kind.family
     if family == "jumps":
-        if "sampled" in kind:
+        if kind.variant == "sampled":
             return readers.read_sampled_record(file)
         return readers.read_jump_record(file, end_time=fit.get("end_time"))
     if family == "probes":
         return readers.read_probe_record(file)
     if family == "ringdown":
         return readers.read_ringdown(file, signal=fit.get("signal"))
-    raise CavcharError(f"no reader known for fit kind {kind!r}")
+    raise CavcharError(f"no reader known for fit kind {str(kind)!r}")
 
 
 def _plotting_module(family: str):
@@ -147,14 +141,14 @@ KNOWN_CAPTIONS: dict[str, tuple[str, str]] = {
 }
 
 
-def _column(result: Any, name: str) -> np.ndarray | None:
+def _column(result: FitResult, name: str) -> np.ndarray | None:
     samples = getattr(result, "samples", None)
     if samples is None or name not in samples.columns:
         return None
     return np.asarray(samples[name], dtype=float)
 
 
-def _jump_figures(module, result: Any, record: Any) -> list[Figure]:
+def _jump_figures(module, result: FitResult, record: Any) -> list[Figure]:
     from cavchar.models.jumps import dwell_times
     from cavchar.records import JumpRecord
 
@@ -185,7 +179,7 @@ def _jump_figures(module, result: Any, record: Any) -> list[Figure]:
     return out
 
 
-def data_figures(result: Any, record: Any | None = None) -> tuple[list[Figure], list[str]]:
+def data_figures(result: FitResult, record: Any | None = None) -> tuple[list[Figure], list[str]]:
     """Figures of the data with the posterior fit and of the model checks.
 
     Returns
@@ -193,7 +187,7 @@ def data_figures(result: Any, record: Any | None = None) -> tuple[list[Figure], 
     (figures, notes)
         ``notes`` say in words what could not be drawn and why.
     """
-    family = kind_family(result.kind)
+    family = result.kind.family
     notes: list[str] = []
     module = _plotting_module(family)
     if module is None:
@@ -218,7 +212,7 @@ def data_figures(result: Any, record: Any | None = None) -> tuple[list[Figure], 
     return figures, notes
 
 
-def sampler_figures(result: Any, truths: dict[str, float] | None = None,
+def sampler_figures(result: FitResult, truths: dict[str, float] | None = None,
                     notes: list[str] | None = None) -> list[Figure]:
     """Corner plot and chain traces of one result.
 
@@ -258,7 +252,7 @@ _COMPARE = (("lifetime", "lifetime T_c", "time"),
             ("effective_temperature", "effective temperature", "temperature"))
 
 
-def comparison_figure(results: Sequence[Any], labels: Sequence[str]):
+def comparison_figure(results: Sequence[FitResult], labels: Sequence[str]):
     """Lifetime, n_th and effective temperature of several results side by side.
 
     Each result is one column: point at the median, thick bar the 68 % and thin

@@ -32,7 +32,7 @@ from collections.abc import Mapping, Sequence
 from datetime import UTC, datetime
 from importlib import resources
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from cavchar.errors import InputError
 from cavchar.report.figures import (
@@ -55,6 +55,9 @@ from cavchar.report.sections import (
 )
 from cavchar.report.text import Markup, format_interval_row, html, table_html
 
+if TYPE_CHECKING:
+    from cavchar.result import FitResult
+
 __all__ = ["write_report", "render_report", "load_results", "Section", "result_label",
            "result_summary_html", "CONTENT_SECURITY_POLICY"]
 
@@ -69,7 +72,8 @@ _COMPARE_ROWS = (("lifetime", "T_c", "time"), ("quality_factor", "Q", "dimension
                  ("effective_temperature", "T_eff", "temperature"))
 
 
-def load_results(results: Sequence[Any]) -> tuple[list[Any], list[str | None]]:
+def load_results(results: Sequence[FitResult | str | os.PathLike]
+                 ) -> tuple[list[FitResult], list[str | None]]:
     """FitResults from results or result-file paths; also the file each came from."""
     from cavchar.result import FitResult
 
@@ -91,15 +95,11 @@ def load_results(results: Sequence[Any]) -> tuple[list[Any], list[str | None]]:
     return loaded, sources
 
 
-def result_label(result: Any, source: str | None = None) -> str:
+def result_label(result: FitResult, source: str | None = None) -> str:
     """Short name of a result: its kind and input file (or result file)."""
-    prov = result.provenance if isinstance(result.provenance, Mapping) else {}
-    path = prov.get("input_path")
-    if isinstance(path, list):
-        path = str(path[0]) + (f" (+{len(path) - 1})" if len(path) > 1 else "") if path \
-            else None
-    path = None if path is None else str(path)
-    name = Path(path).name if path else (Path(source).name if source else "no input file")
+    inputs = [f.path for f in result.provenance.inputs if f.path]
+    name = (Path(inputs[0]).name + (f" (+{len(inputs) - 1})" if len(inputs) > 1 else "")
+            if inputs else Path(source).name if source else "no input file")
     return f"{result.kind} · {name}"
 
 
@@ -150,17 +150,18 @@ class _Counter:
         return str(self.n)
 
 
-def _status_line(result: Any) -> Markup:
-    d = result.diagnostics if isinstance(result.diagnostics, Mapping) else {}
+def _status_line(result: FitResult) -> Markup:
+    d = result.diagnostics
     state = (Markup('<span class="badge pass">CONVERGED</span>') if result.converged is True
              else Markup('<span class="badge fail">NOT CONVERGED</span>'))
     parts = [f"{len(result.samples)} posterior draws", f"seed {result.seed}"]
-    if d.get("n_walkers"):
-        parts.append(f"{d['n_walkers']} walkers × {d.get('n_steps', '?')} steps")
+    if d.n_walkers:
+        parts.append(f"{d.n_walkers} walkers × {d.n_steps if d.n_steps is not None else '?'}"
+                     " steps")
     return html('<p class="status">{} {}</p>', state, " · ".join(parts))
 
 
-def _result_section(index: int, result: Any, label: str, *, truths: Mapping | None,
+def _result_section(index: int, result: FitResult, label: str, *, truths: Mapping | None,
                     record: Any, counter: _Counter, figures: bool = True,
                     reread_input: bool = False) -> tuple[str, Markup]:
     anchor = f"fit-{index}"
@@ -170,9 +171,8 @@ def _result_section(index: int, result: Any, label: str, *, truths: Mapping | No
     parts.append(summary_table_html(result, index, truths))
     parts.append(Markup("<h3>In one line</h3>"))
     parts.append(oneliners_html(result))
-    checks = result.checks if isinstance(result.checks, Mapping) else {}
     parts.append(Markup("<h3>Planck check</h3>"))
-    parts.append(planck_html(checks.get("planck"), result))
+    parts.append(planck_html(result))
     if figures:
         notes: list[str] = []
         if record is None and reread_input:
@@ -213,7 +213,7 @@ def _result_section(index: int, result: Any, label: str, *, truths: Mapping | No
     return anchor, Markup("\n").join(parts)
 
 
-def _comparison_section(results: Sequence[Any], labels: Sequence[str],
+def _comparison_section(results: Sequence[FitResult], labels: Sequence[str],
                         counter: _Counter) -> Markup:
     header = ["result"] + [f"{h} (95% interval)" for _, h, _ in _COMPARE_ROWS]
     rows = []
@@ -250,19 +250,18 @@ def _extra(section: Any, counter: _Counter) -> Section:
     return section_for(section, figure_html=lambda fig: _figure_html(fig, counter.next()))
 
 
-def result_summary_html(result: Any) -> Markup:
+def result_summary_html(result: FitResult) -> Markup:
     """A compact, escaped HTML view of one result (for notebooks): status, summary table,
     one-line forms and the Planck check; no figures."""
-    checks = result.checks if isinstance(result.checks, Mapping) else {}
-    parts = [html("<div><p><b>cavchar fit result</b> · {}</p>", result.kind),
+    parts = [html("<div><p><b>cavchar fit result</b> · {}</p>", str(result.kind)),
              _status_line(result), summary_table_html(result, 1, None),
-             oneliners_html(result), planck_html(checks.get("planck"), result),
+             oneliners_html(result), planck_html(result),
              Markup("</div>")]
     return Markup("\n").join(parts)
 
 
 def render_report(
-    results: Sequence[Any],
+    results: Sequence[FitResult | str | os.PathLike],
     *,
     title: str | None = None,
     labels: Sequence[str] | None = None,
@@ -322,7 +321,7 @@ def render_report(
 
 
 def write_report(
-    results: Sequence[Any] | Any,
+    results: Sequence[FitResult | str | os.PathLike] | FitResult | str | os.PathLike,
     out_path: str | os.PathLike,
     *,
     force: bool = False,

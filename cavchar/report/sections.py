@@ -13,7 +13,7 @@ import json
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from cavchar.report.text import (
     Markup,
@@ -26,6 +26,10 @@ from cavchar.report.text import (
     probability_text,
     table_html,
 )
+
+if TYPE_CHECKING:
+    from cavchar.result import FitResult
+    from cavchar.result_types import PlanckCheck, SamplerDiagnostics
 
 __all__ = ["Section", "CAUTIONS_HTML", "SUMMARY_ORDER", "summary_names", "summary_table_html",
            "oneliners_html", "planck_html", "checks_html", "diagnostics_html", "priors_html",
@@ -68,7 +72,7 @@ SUMMARY_ORDER: dict[str, str] = {
 _SKIP = ("stage_occupation", "log_posterior", "log_likelihood")
 
 
-def summary_names(result: Any) -> list[str]:
+def summary_names(result: FitResult) -> list[str]:
     """Rows of the summary table: the main quantities, then the other fitted parameters."""
     table = result.summary()
     names = [n for n in SUMMARY_ORDER if n in table.index]
@@ -76,13 +80,12 @@ def summary_names(result: Any) -> list[str]:
     return [n for n in names if n not in _SKIP]
 
 
-def _upper_limit(result: Any, name: str) -> bool:
-    planck = (result.checks or {}).get("planck") or {}
-    return bool(planck.get("piles_up_at_zero")) and name in ("n_thermal",
-                                                               "effective_temperature")
+def _upper_limit(result: FitResult, name: str) -> bool:
+    return (result.planck is not None and result.planck.piles_up_at_zero
+            and name in ("n_thermal", "effective_temperature"))
 
 
-def summary_table_html(result: Any, index: int, truths: Mapping[str, float] | None) -> str:
+def summary_table_html(result: FitResult, index: int, truths: Mapping[str, float] | None) -> str:
     """The summary table of one result (``id="summary-<index>"``)."""
     table = result.summary()
     header = ["quantity", "median", "68% interval", "95% interval", "unit"]
@@ -134,7 +137,7 @@ def summary_table_html(result: Any, index: int, truths: Mapping[str, float] | No
     return Markup("\n").join(out)
 
 
-def oneliners_html(result: Any) -> str:
+def oneliners_html(result: FitResult) -> str:
     """The one-line form of each summarised quantity (for papers and log books)."""
     items = []
     for name in summary_names(result):
@@ -146,16 +149,15 @@ def oneliners_html(result: Any) -> str:
     return html('<ul class="oneliners">{}</ul>', Markup("").join(items))
 
 
-def planck_html(check: Mapping[str, Any] | None, result: Any) -> Markup:
+def planck_html(result: FitResult) -> Markup:
     """The Planck check in words, or why there is none."""
-    if check and not isinstance(check, Mapping):
-        return _generic_check(check)
-    if check:
+    check = result.planck
+    if check is not None:
         try:
             return _planck_words(check)
         except (TypeError, ValueError, KeyError, AttributeError):
-            return _generic_check(check)
-    if not check:
+            return _generic_check(check.to_dict())
+    else:
         fit = (result.settings or {}).get("fit", {})
         missing = [w for w, k in (("the mode frequency", "freq_hz"),
                                   ("the stage temperature", "stage_temp_k"))
@@ -170,17 +172,18 @@ def planck_html(check: Mapping[str, Any] | None, result: Any) -> Markup:
     return Markup("")
 
 
-def _planck_words(check: Mapping[str, Any]) -> Markup:
+def _planck_words(check: PlanckCheck) -> Markup:
     sentences = planck_sentences(check)
     first = html('<p class="statement">{}</p>', sentences[0])
     rest = Markup("").join(html("<p>{}</p>", s) for s in sentences[1:])
-    verdict = str(check.get("verdict", ""))
+    verdict = check.verdict or ""
     badge = Markup("")
     if verdict:
         klass = "fail" if "hotter" in verdict else "pass" if "colder" in verdict else "undecided"
         badge = html('<p><span class="badge {}">{}</span> at {} posterior probability</p>',
                      klass, verdict.upper(),
-                     number_text(check.get("decision_probability", 0.95), "g"))
+                     number_text(0.95 if check.decision_probability is None
+                                 else check.decision_probability, "g"))
     return first + rest + badge
 
 
@@ -243,9 +246,9 @@ def _dwell_check(check: Mapping[str, Any]) -> Markup:
     return html("<p>{}</p>{}", words, table)
 
 
-def checks_html(result: Any) -> Markup:
+def checks_html(result: FitResult) -> Markup:
     """Every check of the result other than the Planck check."""
-    checks = {k: v for k, v in (result.checks or {}).items() if k != "planck"}
+    checks = result.checks
     if not checks:
         return Markup('<p class="note">This fit stored no posterior predictive or residual '
                       "check.</p>")
@@ -266,38 +269,36 @@ def checks_html(result: Any) -> Markup:
     return Markup("").join(parts)
 
 
-def diagnostics_html(result: Any) -> Markup:
+def diagnostics_html(result: FitResult) -> Markup:
     """Convergence diagnostics: the run as a whole and per parameter."""
-    d = result.diagnostics or {}
-    if not d:
+    d = result.diagnostics
+    if not d.to_dict():
         return Markup('<p class="note">No sampler diagnostics were stored.</p>')
-    if not isinstance(d, Mapping):
-        return _generic_check(d)
     try:
         return _diagnostics_tables(result, d)
     except (TypeError, ValueError, KeyError, AttributeError):
-        return _generic_check(d)
+        return _generic_check(d.to_dict())
 
 
-def _diagnostics_tables(result: Any, d: Mapping[str, Any]) -> Markup:
-    acc = d.get("acceptance_fraction") or {}
+def _diagnostics_tables(result: FitResult, d: SamplerDiagnostics) -> Markup:
+    acc = d.acceptance_fraction or {}
     overall = [
-        ("converged", _cell(d.get("converged", result.converged))),
-        ("walkers × steps", f"{_cell(d.get('n_walkers', '?'))} × "
-                            f"{_cell(d.get('n_steps', '?'))}"),
-        ("burn-in (steps)", _cell(d.get("burn_in"))),
-        ("thinning (steps)", _cell(d.get("thin"))),
-        ("draws kept", _cell(d.get("n_draws", len(result.samples)))),
-        ("moves", _cell(d.get("moves"))),
+        ("converged", _cell(result.converged)),
+        ("walkers × steps", f"{_cell(d.n_walkers if d.n_walkers is not None else '?')} × "
+                            f"{_cell(d.n_steps if d.n_steps is not None else '?')}"),
+        ("burn-in (steps)", _cell(d.burn_in)),
+        ("thinning (steps)", _cell(d.thin)),
+        ("draws kept", _cell(d.n_draws if d.n_draws is not None else result.n_draws)),
+        ("moves", _cell(d.moves)),
         ("acceptance fraction", (f"{acc['mean']:.3f} (walkers {acc['min']:.3f}–"
                                  f"{acc['max']:.3f})") if "mean" in acc else "–"),
-        ("sampling time", format_quantity_text(d.get("elapsed_s"), "time")),
+        ("sampling time", format_quantity_text(d.elapsed_s, "time")),
     ]
     parts = [table_html(["run", "value"], overall, css_class="grid keyvalue", numeric_from=9)]
-    names = list((d.get("tau") or {}).keys())
+    names = list((d.tau or {}).keys())
     if names:
         def get(key: str, name: str, fmt: str) -> str:
-            value = (d.get(key) or {}).get(name)
+            value = (getattr(d, key) or {}).get(name)
             return "–" if value is None else format(value, fmt)
 
         rows = [[name, get("tau", name, ".1f"), get("chain_length_in_tau", name, ".0f"),
@@ -308,9 +309,7 @@ def _diagnostics_tables(result: Any, d: Mapping[str, Any]) -> Markup:
              "last change of τ", "split R-hat", "bulk ESS", "tail ESS"], rows,
             css_class="grid", caption="convergence per parameter (rank-normalized split R-hat "
                                       "and ESS after Vehtari et al. 2021)"))
-    failed = d.get("failed_checks") or []
-    if isinstance(failed, str):
-        failed = [failed]
+    failed = d.failed_checks
     if failed:
         parts.append(html('<p><span class="badge fail">FAILED CHECKS</span></p><ul>{}</ul>',
                           Markup("").join(html("<li>{}</li>", f) for f in failed)))
@@ -319,7 +318,7 @@ def _diagnostics_tables(result: Any, d: Mapping[str, Any]) -> Markup:
     return Markup("").join(parts)
 
 
-def priors_html(result: Any) -> Markup:
+def priors_html(result: FitResult) -> Markup:
     """The fitted parameters with their priors and MAP values."""
     rows = []
     for spec in result.specs:
@@ -333,34 +332,24 @@ def priors_html(result: Any) -> Markup:
                       css_class="grid", numeric_from=5)
 
 
-def provenance_html(result: Any) -> Markup:
+def provenance_html(result: FitResult) -> Markup:
     """Where the result came from: input, hash, command, seed, versions, date."""
-    prov = result.provenance or {}
-    if not isinstance(prov, Mapping):
-        return _generic_check(prov)
+    prov = result.provenance
 
-    def joined(value: Any) -> str:
-        if isinstance(value, list):
-            return "; ".join(str(v) for v in value)
-        return "–" if value is None else str(value)
+    def joined(values: Any) -> str:
+        values = [v for v in values if v is not None and v != ""]
+        return "; ".join(str(v) for v in values) if values else "–"
 
-    line = prov.get("command_line") or []
-    command = prov.get("command") or (" ".join(map(str, line)) if isinstance(line, list)
-                                      else str(line)) or "–"
-    versions = prov.get("versions") or {}
-    if not isinstance(versions, Mapping):
-        versions = {"": versions}
     rows = [
-        ("input file", joined(prov.get("input_path"))),
-        ("input SHA-256", joined(prov.get("input_sha256"))),
-        ("command", command),
-        ("seed", joined(prov.get("seed", result.seed))),
-        ("fitted at", joined(prov.get("created_at"))),
-        ("versions", ", ".join(f"{k} {v}" for k, v in versions.items()) or "–"),
-        ("platform", joined(prov.get("platform"))),
+        ("input file", joined(f.path for f in prov.inputs)),
+        ("input SHA-256", joined(f.sha256 for f in prov.inputs)),
+        ("command", prov.command or "– (not recorded: the fit was called from Python)"),
+        ("seed", joined([result.seed])),
+        ("fitted at", joined([prov.created_at])),
+        ("versions", ", ".join(f"{k} {v}" for k, v in prov.versions.items()) or "–"),
+        ("platform", joined([prov.platform])),
     ]
-    planck = (result.checks or {}).get("planck")
-    if "n_thermal" in result.samples.columns and isinstance(planck, Mapping):
-        rows.append(("draws behind the probabilities", joined(planck.get("n_draws"))))
+    if "n_thermal" in result.parameter_names and result.planck is not None:
+        rows.append(("draws behind the probabilities", joined([result.planck.n_draws])))
     return table_html(["item", "value"], rows, css_class="grid keyvalue", numeric_from=9)
 

@@ -21,11 +21,14 @@ from __future__ import annotations
 import math
 import numbers
 from collections.abc import Iterable, Mapping, Sequence
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from markupsafe import Markup, escape
 
 from cavchar.units import decimals_for
+
+if TYPE_CHECKING:
+    from cavchar.result_types import PlanckCheck
 
 __all__ = ["esc", "html", "Markup", "number_text", "display_scale", "decimals_for",
            "format_number", "bound_decimals", "format_interval_row",
@@ -176,18 +179,21 @@ def _interval_words(block: Mapping[str, float], dimension: str) -> str:
     return f"{row['median']} ({row['errors']}){unit}"
 
 
-def planck_sentences(check: Mapping[str, Any]) -> list[str]:
-    """The Planck check of a result (``checks["planck"]``) as plain sentences."""
-    t_stage = format_quantity_text(check.get("stage_temperature_k", math.nan), "temperature")
-    p = check.get("prob_hotter_than_stage")
-    n = check.get("n_draws")
-    decide = float(check.get("decision_probability", 0.95))
-    n_stage = check.get("stage_occupation", math.nan)
+def planck_sentences(check: PlanckCheck) -> list[str]:
+    """The Planck check of a result (:attr:`cavchar.result.FitResult.planck`) as plain
+    sentences."""
+    t_stage = format_quantity_text(
+        math.nan if check.stage_temperature_k is None else check.stage_temperature_k,
+        "temperature")
+    p = check.prob_hotter_than_stage
+    n = check.n_draws
+    decide = 0.95 if check.decision_probability is None else float(check.decision_probability)
+    n_stage = math.nan if check.stage_occupation is None else check.stage_occupation
     out = []
-    teff = check.get("effective_temperature_k")
-    if check.get("piles_up_at_zero") and "n_thermal_upper95" in check:
-        t_up = format_quantity_text(check.get("effective_temperature_upper95_k"), "temperature")
-        n_up = format_quantity_text(check["n_thermal_upper95"], "dimensionless", 2)
+    teff = check.effective_temperature_k
+    if check.piles_up_at_zero and check.n_thermal_upper95 is not None:
+        t_up = format_quantity_text(check.effective_temperature_upper95_k, "temperature")
+        n_up = format_quantity_text(check.n_thermal_upper95, "dimensionless", 2)
         temp_words = f"effective temperature below {t_up} (n_th < {n_up}, 95% upper limits)"
     elif teff:
         temp_words = f"effective temperature {_interval_words(teff, 'temperature')}"
@@ -205,9 +211,9 @@ def planck_sentences(check: Mapping[str, Any]) -> list[str]:
     else:
         out.append(f"These data cannot tell whether the mode is hotter than its {t_stage} stage "
                    f"(probability {probability_text(p, n)}){tail}.")
-    n_th = check.get("n_thermal")
+    n_th = check.n_thermal
     if n_th:
-        excess = check.get("excess_photons")
+        excess = check.excess_photons
         words = (f"Thermal photon number {_interval_words(n_th, 'dimensionless')} against a "
                  f"Planck occupation of {format_quantity_text(n_stage, 'dimensionless')} at the "
                  "stage temperature")

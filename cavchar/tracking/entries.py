@@ -1,8 +1,7 @@
 """What the cooldown log stores: record types, their encodings, and the
 conversion of a fit result into a log entry.
 
-A :class:`FitEntry` is built from any FitResult (``kind``, ``samples``
-DataFrame, ``settings``, ``provenance``, ``summary()``) by
+A :class:`FitEntry` is built from a :class:`~cavchar.result.FitResult` by
 :func:`entry_from_result`; it keeps a thinned copy of the posterior draws of
 the key parameters (:data:`KEY_PARAMETERS`), the same rows for every
 parameter so that joint draws stay joint.
@@ -16,11 +15,14 @@ import os
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from cavchar.errors import InputError
+
+if TYPE_CHECKING:
+    from cavchar.result import FitResult
 
 __all__ = [
     "KEY_PARAMETERS", "DEFAULT_MAX_DRAWS", "Cavity", "Cooldown", "FitEntry", "FitRecord",
@@ -177,46 +179,8 @@ def thin_index(n_total: int, max_draws: int) -> np.ndarray:
     return (np.arange(max_draws) * n_total) // max_draws
 
 
-def _as_dict(value: Any) -> dict:
-    if value is None:
-        return {}
-    if isinstance(value, Mapping):
-        return dict(value)
-    if hasattr(value, "__dataclass_fields__"):
-        from dataclasses import asdict
-
-        return asdict(value)
-    if hasattr(value, "to_dict"):
-        return dict(value.to_dict())
-    if hasattr(value, "__dict__"):
-        return dict(vars(value))
-    return {}
-
-
-def _find(mapping: Any, names: tuple[str, ...], depth: int = 0) -> Any:
-    """First value stored under one of ``names`` in nested mappings (breadth first)."""
-    if not isinstance(mapping, Mapping) or depth > 4:
-        return None
-    for name in names:
-        if mapping.get(name) is not None:
-            return mapping[name]
-    for value in mapping.values():
-        items = value if isinstance(value, list) else [value]
-        for item in items:
-            found = _find(item, names, depth + 1)
-            if found is not None:
-                return found
-    return None
-
-
-def _summary_dict(result: Any) -> dict:
-    summary = getattr(result, "summary", None)
-    table = summary() if callable(summary) else summary
-    if table is None:
-        return {}
-    if hasattr(table, "to_dict"):
-        table = table.to_dict(orient="index")
-    return json.loads(canonical_json(table))
+def _summary_dict(result: FitResult) -> dict:
+    return json.loads(canonical_json(result.summary().to_dict(orient="index")))
 
 
 def _optional_float(value: Any) -> float | None:
@@ -226,70 +190,53 @@ def _optional_float(value: Any) -> float | None:
         return None
 
 
-def entry_from_result(result: Any, *, source: str | None = None,
+def entry_from_result(result: FitResult, *, source: str | None = None,
                       max_draws: int = DEFAULT_MAX_DRAWS) -> FitEntry:
     """A log entry from a fit result.
 
     Parameters
     ----------
     result
-        A FitResult (or any object with ``kind``, ``samples`` (DataFrame with
-        some of the columns :data:`KEY_PARAMETERS`), ``settings``,
-        ``provenance``, ``summary()`` and optionally ``seed`` and ``specs``).
+        The fit result (draws of some of :data:`KEY_PARAMETERS`; settings, seed,
+        provenance and summary are read from its typed fields).
     source
         Where it came from (e.g. the result file), stored for information.
     max_draws
         Draws kept (evenly thinned, the same rows for every parameter).
     """
-    samples = getattr(result, "samples", None)
-    if samples is None or not hasattr(samples, "columns"):
-        raise InputError("the result has no table of posterior draws", path=source)
-    names = [p for p in KEY_PARAMETERS if p in samples.columns]
+    names = [p for p in KEY_PARAMETERS if p in result.quantity_names()]
     if not names:
         raise InputError(f"the result has none of the columns {', '.join(KEY_PARAMETERS)}",
                          path=source)
-    rows = thin_index(len(samples), int(max_draws))
-    draws = {p: np.asarray(samples[p], dtype=float)[rows] for p in names}
-    settings = json.loads(canonical_json(_as_dict(getattr(result, "settings", None))))
-    provenance = _as_dict(getattr(result, "provenance", None))
-    seed = getattr(result, "seed", None)
-    if seed is None:
-        seed = _find(settings, ("seed",))
-    if seed is None:
-        seed = _find(provenance, ("seed",))
-    model = getattr(result, "model", None) or _find(settings, ("model",))
-    sha = _find(provenance, ("input_sha256", "sha256"))
-    if isinstance(sha, list):  # several input files
-        sha = ",".join(str(v) for v in sha)
-    specs = getattr(result, "specs", None) or ()
-    parameters = tuple(json.loads(canonical_json([s.to_dict() if hasattr(s, "to_dict") else s
-                                                  for s in specs])))
+    rows = thin_index(result.n_draws, int(max_draws))
+    draws = {p: np.asarray(result.column(p), dtype=float)[rows] for p in names}
+    settings = json.loads(canonical_json(result.settings))
+    fit = settings.get("fit") if isinstance(settings.get("fit"), Mapping) else {}
+    provenance = result.provenance
+    model = fit.get("model")
+    shas = [f.sha256 for f in provenance.inputs if f.sha256]
+    parameters = tuple(json.loads(canonical_json([s.to_dict() for s in result.specs])))
     summary = _summary_dict(result)
-    limiter = getattr(result, "prior_limit", None)
-    if callable(limiter):  # quantities whose posterior reaches a prior bound: limits only
-        limits = {}
-        for p in names:
-            try:
-                found = limiter(p)
-            except (KeyError, TypeError, ValueError):
-                found = None
-            if found is not None:
-                limits[p] = {"kind": found["kind"], "limit": found["limit"],
-                             "text": found["text"]}
-        if limits:
-            summary[PRIOR_LIMITS] = json.loads(canonical_json(limits).replace("NaN", "null"))
-    version = _find(provenance, ("cavchar_version", "cavchar"))
-    date = _find(provenance, ("created_at", "created", "fitted_at", "date", "timestamp"))
+    limits = {}  # quantities whose posterior reaches a prior bound: limits only
+    for p in names:
+        try:
+            found = result.prior_limit(p)
+        except (KeyError, TypeError, ValueError, AttributeError):  # a damaged check block
+            found = None
+        if found is not None:
+            limits[p] = {"kind": found["kind"], "limit": found["limit"], "text": found["text"]}
+    if limits:
+        summary[PRIOR_LIMITS] = json.loads(canonical_json(limits).replace("NaN", "null"))
     return FitEntry(
         kind=str(result.kind), draws=draws, model=None if model is None else str(model),
-        settings=settings, seed=json.loads(canonical_json(seed)),
+        settings=settings, seed=json.loads(canonical_json(result.seed)),
         summary=summary,
-        input_sha256=None if sha is None else str(sha),
-        tool_version=None if version is None else str(version),
-        fitted_at=None if date is None else str(date),
-        freq_hz=_optional_float(_find(settings, ("freq_hz", "frequency_hz"))),
-        stage_temp_k=_optional_float(_find(settings, ("stage_temp_k", "stage_temperature_k"))),
-        source=source, n_draws_total=len(samples), parameters=parameters)
+        input_sha256=",".join(shas) if shas else None,  # several input files: joined
+        tool_version=provenance.cavchar_version,
+        fitted_at=provenance.created_at,
+        freq_hz=_optional_float(fit.get("freq_hz")),
+        stage_temp_k=_optional_float(fit.get("stage_temp_k")),
+        source=source, n_draws_total=result.n_draws, parameters=parameters)
 
 
 def read_result_file(path: str | os.PathLike, *, max_draws: int = DEFAULT_MAX_DRAWS

@@ -83,9 +83,15 @@ def base_limit(base_k: float) -> float:
 
 
 def kind_word(kind: str) -> str:
-    """The fit command's word of a logged kind: ``"ringdown-power"`` -> ``"ringdown"``."""
-    head = str(kind).split("-", 1)[0]
-    return head if head in KIND_WORDS else str(kind)
+    """The fit command's word of a logged kind: ``"ringdown-power"`` -> ``"ringdown"``
+    (its family, :meth:`cavchar.result_types.FitKind.parse`)."""
+    from cavchar.result_types import FitKind
+
+    try:
+        family = FitKind.parse(kind).family
+    except ValueError:  # no family word ("", "-x")
+        return str(kind)
+    return family if family in KIND_WORDS else str(kind)
 
 
 def kind_matches(kind: str, wanted: str | None) -> bool:

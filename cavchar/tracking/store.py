@@ -35,7 +35,7 @@ from collections.abc import Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from datetime import UTC, datetime
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -51,6 +51,9 @@ from cavchar.tracking.entries import (
     encode_draws,
 )
 from cavchar.tracking.rules import DEFAULT_FREQ_TOLERANCE, check_fit_frequency
+
+if TYPE_CHECKING:
+    from cavchar.result import FitResult
 
 __all__ = ["SCHEMA_VERSION", "LOG_ENV", "DEFAULT_LOG_NAME", "CooldownLog",
            "resolve_log_path", "open_log", "log_fit_result"]
@@ -666,7 +669,7 @@ def _open_readonly(file: Path) -> CooldownLog:
     return log
 
 
-def log_fit_result(result: Any, cavity: str, cooldown: str,
+def log_fit_result(result: FitResult, cavity: str, cooldown: str,
                    path: str | os.PathLike | None = None, *, create: bool = False,
                    on_duplicate: str = "skip", stage_temp_k: float | None = None,
                    source: str | None = None, force_freq: bool = False) -> int:
