@@ -94,35 +94,14 @@ def sampler_text(diagnostics: SamplerDiagnostics) -> str:
 
 
 def planck_statement(planck: PlanckCheck) -> str:
-    """The Planck check in words, e.g. "the mode is hotter than its 20 mK stage with
-    probability 0.998; effective temperature 61 (+4/-3) mK"."""
-    from cavchar.units import format_quantity
+    """The Planck check in one sentence, worded as in the report
+    (:func:`cavchar.report.text.planck_sentences`), e.g. "The mode is hotter than its
+    20 mK stage with probability 0.998; effective temperature 61 (+4/-3) mK"."""
+    from cavchar.report.text import planck_sentences
 
     if not planck.complete:
         return "Planck check: incomplete in this result (fit again with --stage-temp)"
-    stage = format_quantity(planck.stage_temperature_k, "temperature")
-    p_hot = planck.prob_hotter_than_stage
-    if (planck.piles_up_at_zero and planck.effective_temperature_upper95_k
-            is not None) or planck.effective_temperature_k is None:
-        limit = format_quantity(planck.effective_temperature_upper95_k, "temperature")
-        temp = f"effective temperature below {limit} (95% upper limit)"
-    else:
-        t = planck.effective_temperature_k
-        med_text = format_quantity(t["median"], "temperature", 3)
-        value, unit = med_text.split(" ") if " " in med_text else (med_text, "")
-        scale = t["median"] / float(value) if float(value) else 1.0
-        plus = (t["hi68"] - t["median"]) / scale
-        minus = (t["median"] - t["lo68"]) / scale
-        temp = f"effective temperature {value} (+{plus:.2g}/-{minus:.2g}) {unit} (68% credible)"
-    if planck.verdict == "hotter than the stage":
-        head = f"the mode is hotter than its {stage} stage with probability {p_hot:.3g}"
-    elif planck.verdict == "colder than the stage":
-        head = (f"the mode is colder than its {stage} stage with probability "
-                f"{1 - p_hot:.3g}")
-    else:
-        head = (f"the mode is consistent with its {stage} stage (probability hotter "
-                f"{p_hot:.3g})")
-    return f"{head}; {temp}"
+    return planck_sentences(planck)[0]
 
 
 def print_summary(result: FitResult) -> None:

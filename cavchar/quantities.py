@@ -26,8 +26,8 @@ CREDIBLE_68 = math.erf(1.0 / math.sqrt(2.0))
 QUANTILES_68 = ((1.0 - CREDIBLE_68) / 2.0, (1.0 + CREDIBLE_68) / 2.0)
 
 
-__all__ = ["COLUMN_INFO", "CREDIBLE_68", "QUANTILES_68", "INTERVAL_QUANTILES", "Interval",
-           "interval", "quality_factor", "linewidth",
+__all__ = ["COLUMN_INFO", "DESCRIPTIONS", "short_label", "CREDIBLE_68", "QUANTILES_68",
+           "INTERVAL_QUANTILES", "Interval", "interval", "quality_factor", "linewidth",
            "amplitude_decay_time", "data_units", "UNKNOWN_DATA_UNIT"]
 
 #: the unit of values in the data's own, unstated unit ("arbitrary units")
@@ -77,6 +77,24 @@ COLUMN_INFO: dict[str, tuple[str, str, str]] = {
     "stage_occupation": ("", "dimensionless", "n(nu, T_stage)"),
     "excess_photons": ("", "dimensionless", "n_th - n(nu, T_stage)"),
 }
+
+#: column name -> what it is, in words (report tables, qualification messages)
+DESCRIPTIONS: dict[str, str] = {
+    "lifetime": "energy lifetime T_c",
+    "quality_factor": "quality factor Q = 2π ν T_c",
+    "linewidth": "linewidth (FWHM) 1/(2π T_c)",
+    "n_thermal": "thermal photon number n_th",
+    "effective_temperature": "effective temperature T_eff",
+    "amplitude_decay_time": "amplitude decay time 2 T_c",
+    "excess_photons": "excess photons n_th − n(ν, T_stage)",
+}
+
+
+def short_label(name: str) -> str:
+    """The printed label of a result column (``"lifetime"`` -> ``"T_c"``); the name itself
+    for a column without one."""
+    info = COLUMN_INFO.get(name)
+    return info[2] if info else name
 
 
 def quality_factor(freq_hz: ArrayLike, lifetime_s: ArrayLike) -> np.ndarray:

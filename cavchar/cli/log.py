@@ -316,7 +316,10 @@ def _medians(log, fits) -> dict[int, dict[str, float]]:
             for i, d in fit_draws(log, fits).items()}
 
 
-_SHORT = {"lifetime": "T_c", "n_thermal": "n_th", "effective_temperature": "T_eff"}
+def _short(name: str) -> str:
+    from cavchar.quantities import short_label
+
+    return short_label(name)
 
 
 def _roles(log, fits) -> dict[int, str]:
@@ -329,7 +332,7 @@ def _roles(log, fits) -> dict[int, str]:
             stands: dict[int, list[str]] = {}
             for q, c in sel.choices.items():
                 if q != "effective_temperature":
-                    stands.setdefault(c.fit_id, []).append(_SHORT[q])
+                    stands.setdefault(c.fit_id, []).append(_short(q))
             for i, names in stands.items():
                 roles[i] = "stands for its cooldown (" + ", ".join(names) + ")"
             for i, why in sel.set_aside:

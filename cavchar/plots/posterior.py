@@ -28,7 +28,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from cavchar.errors import InputError
-from cavchar.quantities import QUANTILES_68
+from cavchar.quantities import COLUMN_INFO, QUANTILES_68
 from cavchar.units import display_prefix
 
 if TYPE_CHECKING:
@@ -53,14 +53,8 @@ __all__ = [
 
 #: column -> (short label, dimension of cavchar.units) of the quantities every result carries
 QUANTITY_LABELS: dict[str, tuple[str, str]] = {
-    "lifetime": ("T_c", "time"),
-    "n_thermal": ("n_th", "dimensionless"),
-    "quality_factor": ("Q", "dimensionless"),
-    "linewidth": ("linewidth (FWHM)", "frequency"),
-    "effective_temperature": ("T_eff", "temperature"),
-    "amplitude_decay_time": ("amplitude decay time 2 T_c", "time"),
-    "excess_photons": ("n_th - n(nu, T_stage)", "dimensionless"),
-}
+    name: (label, dimension) for name, (_unit, dimension, label) in COLUMN_INFO.items()
+    if name != "stage_occupation"}
 
 _UNIT = {"time": "s", "frequency": "Hz", "temperature": "K", "rate": "1/s", "power": "W",
          "phase": "rad", "dimensionless": ""}

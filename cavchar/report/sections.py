@@ -15,6 +15,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
+from cavchar.quantities import DESCRIPTIONS
 from cavchar.report.text import (
     Markup,
     format_interval_row,
@@ -60,15 +61,7 @@ CAUTIONS_HTML = Markup(
 )
 
 #: quantity -> description in the summary table (in this order, those present)
-SUMMARY_ORDER: dict[str, str] = {
-    "lifetime": "energy lifetime T_c",
-    "quality_factor": "quality factor Q = 2π ν T_c",
-    "linewidth": "linewidth (FWHM) 1/(2π T_c)",
-    "n_thermal": "thermal photon number n_th",
-    "effective_temperature": "effective temperature T_eff",
-    "amplitude_decay_time": "amplitude decay time 2 T_c",
-    "excess_photons": "excess photons n_th − n(ν, T_stage)",
-}
+SUMMARY_ORDER: dict[str, str] = dict(DESCRIPTIONS)
 _SKIP = ("stage_occupation", "log_posterior", "log_likelihood")
 
 

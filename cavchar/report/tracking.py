@@ -14,6 +14,7 @@ from collections.abc import Callable
 from typing import Any
 
 from cavchar.derived import format_probability_error
+from cavchar.quantities import short_label
 from cavchar.report.figures import Figure
 from cavchar.report.sections import Section
 from cavchar.report.text import esc, format_interval_row, format_quantity_text, table_html
@@ -45,7 +46,7 @@ def _interval_cell(stats: Any, dimension: str) -> str:
     return f"{text['median']} [{text['interval95']}]{unit}"
 
 
-_SHORT = {"lifetime": "T_c", "n_thermal": "n_th"}
+_SHORT = {name: short_label(name) for name in ("lifetime", "n_thermal")}
 
 
 def _row_cell(row: Any, name: str, dimension: str) -> str:

@@ -41,6 +41,7 @@ from pathlib import Path
 import numpy as np
 
 from cavchar.errors import InputError
+from cavchar.quantities import COLUMN_INFO, DESCRIPTIONS
 
 __all__ = ["QUANTITIES", "Requirement", "Spec", "Evidence", "Verdict", "Qualification",
            "read_spec", "parse_spec", "qualify", "EXIT_PASS", "EXIT_FAIL", "EXIT_UNDECIDED"]
@@ -49,12 +50,10 @@ EXIT_PASS, EXIT_FAIL, EXIT_UNDECIDED = 0, 4, 5
 
 #: spec key -> (dimension for cavchar.units, unit symbol, what it is)
 QUANTITIES = {
-    "lifetime": ("time", "s", "energy lifetime T_c"),
-    "thermal_photons": ("dimensionless", "", "thermal photon number n_th"),
-    "effective_temperature": ("temperature", "K", "effective mode temperature"),
-    "quality_factor": ("dimensionless", "", "quality factor Q = 2 pi nu T_c"),
-    "linewidth": ("frequency", "Hz", "linewidth (FWHM) 1/(2 pi T_c)"),
-}
+    key: (COLUMN_INFO[column][1], COLUMN_INFO[column][0], DESCRIPTIONS[column])
+    for key, column in (("lifetime", "lifetime"), ("thermal_photons", "n_thermal"),
+                        ("effective_temperature", "effective_temperature"),
+                        ("quality_factor", "quality_factor"), ("linewidth", "linewidth"))}
 _TOP_KEYS = {"title", "notes"}
 _REQUIREMENT_KEYS = {"at_least", "at_most", "credibility", "notes"}
 
