@@ -17,10 +17,13 @@ from __future__ import annotations
 
 import math
 import numbers
-from typing import Any
+from collections.abc import Mapping
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
-import pandas as pd
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 from cavchar.errors import InputError
 from cavchar.quantities import (
@@ -58,14 +61,16 @@ def _positive(value: float | None, what: str, allow_zero: bool = False) -> float
     return value
 
 
-def add_derived_quantities(samples: pd.DataFrame, freq_hz: float | None = None,
-                           stage_temp_k: float | None = None) -> pd.DataFrame:
+def add_derived_quantities(samples: pd.DataFrame | Mapping[str, np.ndarray],
+                           freq_hz: float | None = None,
+                           stage_temp_k: float | None = None) -> pd.DataFrame | dict:
     """Add derived columns to a table of posterior draws.
 
     Parameters
     ----------
     samples
-        Draws with a ``lifetime`` column (T_c in s) and optionally ``n_thermal``.
+        Draws with a ``lifetime`` column (T_c in s) and optionally ``n_thermal``: a
+        DataFrame or a mapping of equal-length arrays (then a dict is returned).
     freq_hz
         Mode frequency nu in Hz; needed for the quality factor and the temperatures.
     stage_temp_k
@@ -82,28 +87,33 @@ def add_derived_quantities(samples: pd.DataFrame, freq_hz: float | None = None,
     """
     from cavchar.thermal import effective_temperature, planck_occupation
 
-    if "lifetime" not in samples.columns:
+    if "lifetime" not in _column_names(samples):
         raise InputError("derived quantities need a 'lifetime' column (T_c in s)")
     freq_hz = _positive(freq_hz, "mode frequency")
     stage_temp_k = _positive(stage_temp_k, "stage temperature", allow_zero=True)
-    out = samples.copy()
-    t_c = out["lifetime"].to_numpy(dtype=float)
+    out = samples.copy() if hasattr(samples, "columns") else dict(samples)
+    t_c = np.asarray(out["lifetime"], dtype=float)
     if np.any(~(t_c > 0)):
         raise InputError("lifetime draws must be positive")
     out["linewidth"] = linewidth(t_c)
     out["amplitude_decay_time"] = amplitude_decay_time(t_c)
     if freq_hz is not None:
         out["quality_factor"] = quality_factor(freq_hz, t_c)
-    has_n = "n_thermal" in out.columns
+    has_n = "n_thermal" in _column_names(out)
     if has_n and freq_hz is not None:
-        n = out["n_thermal"].to_numpy(dtype=float)
+        n = np.asarray(out["n_thermal"], dtype=float)
         out["effective_temperature"] = effective_temperature(freq_hz, n)
     if freq_hz is not None and stage_temp_k is not None:
         n_stage = float(planck_occupation(freq_hz, stage_temp_k))
-        out["stage_occupation"] = n_stage
+        out["stage_occupation"] = np.full(t_c.shape, n_stage)
         if has_n:
-            out["excess_photons"] = out["n_thermal"].to_numpy(dtype=float) - n_stage
+            out["excess_photons"] = np.asarray(out["n_thermal"], dtype=float) - n_stage
     return out
+
+
+def _column_names(samples: Any) -> list[str]:
+    """The column names of a DataFrame or of a mapping of columns."""
+    return list(samples.columns) if hasattr(samples, "columns") else list(samples)
 
 
 def _interval(x: np.ndarray) -> dict[str, float]:
@@ -113,7 +123,8 @@ def _interval(x: np.ndarray) -> dict[str, float]:
             "lo95": float(lo95), "hi95": float(hi95)}
 
 
-def planck_check(samples: pd.DataFrame, freq_hz: float, stage_temp_k: float) -> PlanckCheck:
+def planck_check(samples: pd.DataFrame | Mapping[str, np.ndarray], freq_hz: float,
+                 stage_temp_k: float) -> PlanckCheck:
     """Compare the mode's thermal photon number with the Planck occupation of its stage.
 
     Parameters
@@ -140,12 +151,12 @@ def planck_check(samples: pd.DataFrame, freq_hz: float, stage_temp_k: float) -> 
     """
     from cavchar.thermal import effective_temperature, planck_occupation
 
-    if "n_thermal" not in samples.columns:
+    if "n_thermal" not in _column_names(samples):
         raise InputError("a Planck check needs posterior draws of the thermal photon number",
                          hint="this fit has no n_thermal parameter")
     freq_hz = _positive(freq_hz, "mode frequency")
     stage_temp_k = _positive(stage_temp_k, "stage temperature", allow_zero=True)
-    n = samples["n_thermal"].to_numpy(dtype=float)
+    n = np.asarray(samples["n_thermal"], dtype=float)
     if n.size == 0:
         raise InputError("no posterior draws to check")
     n_stage = float(planck_occupation(freq_hz, stage_temp_k))

@@ -34,16 +34,16 @@ def summary_text(result: FitResult) -> str:
     from cavchar.result import interval_texts
     from cavchar.units import format_quantity
 
-    table = result.summary()
+    table = result.summary_rows()
     lines = [f"{result.kind} fit ({'converged' if result.converged else 'NOT converged'}; "
              f"{len(result.samples)} draws, seed {result.seed})",
              "  sampler: " + sampler_text(result.diagnostics),
              f"  {'quantity':<34}{'median':>14}{'68% interval':>30}{'95% interval':>30}"]
-    names = [n for n in PRINTED if n in table.index]
+    names = [n for n in PRINTED if n in table]
     names += [n for n in result.parameter_names if n not in names]
     for name in names:
         unit, dimension, label = result.column_info(name)
-        row = table.loc[name]
+        row = table[name]
         limit = result.prior_limit(name)
         if limit is not None:  # against a prior bound: a one-sided limit, not a measurement
             sign = {"lower": ">", "upper": "<"}.get(limit["kind"])
@@ -65,7 +65,7 @@ def summary_text(result: FitResult) -> str:
     if result.planck is not None:
         lines.append("  " + planck_statement(result.planck))
     for name in ("lifetime", "n_thermal"):
-        if name in table.index:
+        if name in table:
             lines.append("  " + result.one_line(name))
     for message in result.checks.get("prior_bounds", {}).get("flags", []):
         lines.append("  prior bound: " + message)

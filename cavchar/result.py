@@ -24,7 +24,6 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
-import pandas as pd
 
 from cavchar.derived import COLUMN_INFO, QUANTILES_68, add_derived_quantities, planck_check
 from cavchar.errors import InputError
@@ -33,6 +32,8 @@ from cavchar.result_types import FitKind, PlanckCheck, Provenance, SamplerDiagno
 from cavchar.units import decimals_for
 
 if TYPE_CHECKING:
+    import pandas as pd
+
     from cavchar.inference.sampler import PosteriorRun
 
 __all__ = ["FitResult", "SCHEMA_VERSION", "to_plain_json", "default_draws_name",
@@ -157,20 +158,17 @@ class FitResult:
 
     def __post_init__(self) -> None:
         specs = tuple(self.specs)
-        frame = self.__dict__.pop("_samples_given")
-        if not isinstance(frame, pd.DataFrame):
-            frame = pd.DataFrame(frame)
-        missing = [s.name for s in specs if s.name not in frame.columns]
+        columns, draws = _draw_table(self.__dict__.pop("_samples_given"))
+        missing = [s.name for s in specs if s.name not in columns]
         if missing:
             raise ValueError(f"samples lack the parameter columns {missing}")
         object.__setattr__(self, "specs", specs)
         # the draws are kept as one read-only float array: neither the frames handed out
         # by ``samples`` nor the arrays taken from them can change what summary() and
         # to_json() see
-        draws = np.array(frame.to_numpy(dtype=float), dtype=float, copy=True, order="F")
         draws.flags.writeable = False
         object.__setattr__(self, "_draws", draws)
-        object.__setattr__(self, "_columns", tuple(frame.columns))
+        object.__setattr__(self, "_columns", columns)
         if self.trace is not None:
             trace = np.array(self.trace, dtype=float, copy=True)
             trace.flags.writeable = False
@@ -240,8 +238,8 @@ class FitResult:
         from cavchar.provenance import collect_provenance
 
         names = run.names
-        samples = pd.DataFrame(run.draws, columns=names)
-        map_frame = pd.DataFrame(run.map[None, :], columns=names)
+        samples = {n: run.draws[:, i] for i, n in enumerate(names)}
+        map_frame = {n: run.map[i:i + 1] for i, n in enumerate(names)}
         if "lifetime" in names:
             samples = add_derived_quantities(samples, freq_hz, stage_temp_k)
             map_frame = add_derived_quantities(map_frame, freq_hz, stage_temp_k)
@@ -255,7 +253,7 @@ class FitResult:
         prov = provenance if provenance is not None else collect_provenance()
         fit = {"freq_hz": freq_hz, "stage_temp_k": stage_temp_k, **dict(fit_settings or {})}
         return cls(kind=FitKind.parse(kind), specs=run.specs, samples=samples,
-                   map_values={k: float(v) for k, v in map_frame.iloc[0].items()},
+                   map_values={k: float(np.asarray(v)[0]) for k, v in map_frame.items()},
                    diagnostics=SamplerDiagnostics.from_dict(to_plain_json(run.diagnostics)),
                    settings={"sampler": run.settings.to_dict(), "fit": fit},
                    provenance=prov, checks=all_checks, extras=dict(extras or {}),
@@ -349,6 +347,15 @@ class FitResult:
     def summary(self) -> pd.DataFrame:
         """Per quantity: unit, median, mean, sd, equal-tailed 68% (lo68, hi68; one-sigma mass
         0.6827) and 95% (lo95, hi95) credible intervals, and the MAP (NaN if unknown)."""
+        import pandas as pd
+
+        table = pd.DataFrame.from_dict(self.summary_rows(), orient="index",
+                                       columns=_SUMMARY_COLUMNS)
+        table.index.name = "quantity"
+        return table
+
+    def summary_rows(self) -> dict[str, dict[str, Any]]:
+        """The rows of :meth:`summary` as plain dicts by quantity (no pandas needed)."""
         rows = {}
         for name in self.quantity_names():
             x = self.column(name)
@@ -359,9 +366,7 @@ class FitResult:
                           "mean": mean, "sd": sd,
                           "lo68": lo68, "hi68": hi68, "lo95": lo95, "hi95": hi95,
                           "map": float(self.map_values.get(name, math.nan))}
-        table = pd.DataFrame.from_dict(rows, orient="index", columns=_SUMMARY_COLUMNS)
-        table.index.name = "quantity"
-        return table
+        return rows
 
     def one_line(self, name: str, upper_limit: bool | None = None) -> str:
         """One printable line, e.g. ``"T_c = 1.210(+0.040/-0.030) ms (68% credible)"``.
@@ -434,7 +439,7 @@ class FitResult:
     # ------------------------------------------------------------------ files
     def to_dict(self) -> dict[str, Any]:
         """The plain-JSON form written by :meth:`to_json`."""
-        summary = self.summary()
+        summary = self.summary_rows()
         columns = {c: dict(zip(("unit", "dimension", "label"), self.column_info(c),
                                strict=True)) for c in self._columns}
         checks = dict(self.checks)
@@ -446,7 +451,7 @@ class FitResult:
             "converged": self.converged,
             "parameters": [s.to_dict() for s in self.specs],
             "columns": columns,
-            "summary": summary.to_dict(orient="index"),
+            "summary": summary,
             "map": self.map_values,
             "diagnostics": self.diagnostics.to_dict(),
             "settings": self.settings,
@@ -484,8 +489,7 @@ class FitResult:
         try:
             data = _migrate(data, int(major))
             specs = tuple(ParameterSpec.from_dict(p) for p in data["parameters"])
-            samples = pd.DataFrame({c: np.array(v, dtype=float)
-                                    for c, v in data["samples"].items()})
+            samples = {c: np.array(v, dtype=float) for c, v in data["samples"].items()}
             map_values = {k: (math.nan if v is None else float(v))
                           for k, v in data["map"].items()}
             return cls(kind=FitKind.from_dict(data["kind"]), specs=specs, samples=samples,
@@ -538,7 +542,26 @@ class FitResult:
 
 def _get_samples(self: FitResult) -> pd.DataFrame:
     """The posterior draws as a new DataFrame over read-only memory (see the class doc)."""
+    import pandas as pd
+
     return pd.DataFrame(self._draws, columns=list(self._columns), copy=False)
+
+
+def _draw_table(given: Any) -> tuple[tuple[str, ...], np.ndarray]:
+    """Column names and a fresh float array ``(n_draws, n_columns)`` (Fortran order) from a
+    DataFrame or a mapping of equal-length columns (scalars are broadcast)."""
+    if hasattr(given, "to_numpy") and hasattr(given, "columns"):  # a DataFrame
+        return (tuple(given.columns),
+                np.array(given.to_numpy(dtype=float), dtype=float, copy=True, order="F"))
+    columns = tuple(str(c) for c in given)
+    arrays = [np.asarray(given[c], dtype=float) for c in given]
+    n = max((a.size for a in arrays if a.ndim), default=0)
+    draws = np.empty((n, len(arrays)), dtype=float, order="F")
+    for j, a in enumerate(arrays):
+        if a.ndim > 1 or (a.ndim == 1 and a.size != n):
+            raise ValueError(f"sample column {columns[j]!r} has shape {a.shape}, not ({n},)")
+        draws[:, j] = a
+    return columns, draws
 
 
 def _set_samples(self: FitResult, value: Any) -> None:
