@@ -123,3 +123,11 @@ def test_sampler_defaults_in_help_are_those_of_the_settings(name):
     assert actions["walkers"].default is None and actions["max_steps"].default is None
     assert f"(unset: {settings.n_walkers})" in actions["walkers"].help
     assert f"(unset: {settings.max_steps})" in actions["max_steps"].help
+
+
+def test_kernel_kinds_of_the_command_are_those_of_the_module():
+    """--help lists the kinds without importing the fits; this keeps the two lists equal."""
+    from cavchar.cli.kernels import KIND_CHOICES
+    from cavchar.kernel_cache import KINDS
+
+    assert tuple(KIND_CHOICES) == tuple(KINDS)

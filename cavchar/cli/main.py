@@ -33,7 +33,7 @@ from cavchar.errors import CavcharError, CavcharWarning, ConvergenceError  # noq
 #: sub-command modules, in the order ``--help`` lists them
 COMMAND_MODULES = (
     "demo", "fit", "simulate", "thermal", "plan", "report",
-    "log", "trend", "qualify", "budget", "batch",
+    "log", "trend", "qualify", "budget", "batch", "kernels",
 )
 
 
