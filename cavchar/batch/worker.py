@@ -82,13 +82,13 @@ def _reuse_freed_memory() -> bool:
     Dask's nanny starts every worker with ``MALLOC_TRIM_THRESHOLD_=65536``
     (``distributed.nanny.pre-spawn-environ``), which returns freed memory to the
     system as soon as 64 KiB are free and switches off glibc's dynamic mmap
-    threshold.  Every array above 128 KiB that a fit allocates (walkers x points,
-    about 10^4 of them per sampler step) is then a fresh ``mmap`` whose pages the
-    kernel faults in and zeroes again: about 4x the page faults of the same fit in
-    a plain process and about a tenth more CPU time (docs/batch.md, Throughput).
-    Raising both thresholds (``mallopt(M_MMAP_THRESHOLD, 32 MiB)``,
-    ``mallopt(M_TRIM_THRESHOLD, 64 MiB)``, what glibc's dynamic threshold reaches on
-    its own) keeps such arrays on the heap and reuses them.  Once per process; a C
+    threshold.  Every array above 128 KiB that a fit allocates, again and again
+    while it samples, is then a fresh ``mmap`` whose pages the kernel faults in
+    and zeroes again: 15-20x the page faults of the same fits in a plain process
+    and about a tenth more CPU time (docs/batch.md, Throughput).  Raising both
+    thresholds (``mallopt(M_MMAP_THRESHOLD, 32 MiB)``, ``mallopt(M_TRIM_THRESHOLD, 64 MiB)``,
+    the largest values glibc's dynamic thresholds reach on their own on 64-bit
+    systems) keeps such arrays on the heap and reuses them.  Once per process; a C
     library without ``mallopt`` (not glibc) is left as it is.  Returns whether the
     thresholds were set.
     """
