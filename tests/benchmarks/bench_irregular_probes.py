@@ -20,14 +20,17 @@ per loop body, series terms per probe, no eigen branch, sets as arrays), each
 checked against the kept kernel and timed in the same run.
 
 Measured on the shared 2-core machine (docs/probe-records.md, "Irregular probe
-times"): regular clock 12.7 ns per probe per set at load 0.9-1.4, grid route
-3.18x, eigen route 5.22x; in the --options run (load 3.4-5.0, N = 8) the kept
-grid kernel 3.25x, two sets per loop body 3.91x, four 6.08x, terms per probe
-3.86x, no eigen branch 3.30x, sets as arrays 8.21x: none pays, the 2x target is
-not met (scalar floor about 1 + 4K/N: 3.0 for N = 8, K = 4; 2.2-2.4x measured
-at n_th = 0.6, 12-14 levels).  Whole ``cavchar fit probes`` of 2x10^5
-Poisson-timed probes: 81.9 s at load 4.2-4.9 (138.6 s before the trajectory
-fix, load 3.2-4.9).
+times"): before, regular clock 12.7 ns per probe per set at load 0.9-1.4, grid
+route 3.18x, eigen route 5.22x; in the --options run (load 3.4-5.0, N = 8, series
+form) the kept grid kernel 3.25x, two sets per loop body 3.91x, four 6.08x,
+terms per probe 3.86x, no eigen branch 3.30x, sets as arrays 8.21x: none pays.
+The eigen-basis remainder (kept): 2.69x / 3.02x / 2.59x against the series form's
+2.74x / 3.14x / 3.32x for N = 6 / 8 / 10 (load 2.5); this benchmark then gave
+the grid route 2.92-2.99x (regular 6.6-6.8 ns, load about 2-4).  The 2x target
+is not met (scalar floor about 1 + 4K/N for the series, 2 + 5/N in the eigen
+basis).  Whole ``cavchar fit probes`` of 2x10^5 Poisson-timed probes: 49.3 s at
+load 1.8-2.1 (kernels cached; 81.9 s before the eigen-basis remainder at load
+4.2-4.9, 138.6 s before the trajectory fix at load 3.2-4.9).
 """
 
 from __future__ import annotations
