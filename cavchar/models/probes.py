@@ -20,8 +20,11 @@ otherwise (irregular spacing: Poisson times, gaps) the grid route of
 :mod:`cavchar.models.hmm_kernels`: ``dt = j h + r`` with ``h`` an eighth of
 the mean interval, ``P(dt) = P(j h) exp(Q r)``, a table of ``P(j h)`` for the
 intervals up to their 99.9% quantile and a uniformization series for the
-remainder truncated below the rounding of one step (exact: no bound to
-report).  ``irregular="eigen"`` keeps the interval-by-interval eigen route
+remainder truncated below the rounding of one step, or (few levels, short
+steps) the remainder in the eigen basis with ``exp(lambda r)`` by a Taylor
+polynomial whose remainder is below 2^-53 (exact either way: no bound to
+report; :meth:`ProbeLikelihood.interval_route` says which route was taken).
+``irregular="eigen"`` keeps the interval-by-interval eigen route
 ``alpha P(dt) = ((alpha R) e^{lambda dt}) L``.
 """
 
