@@ -44,7 +44,7 @@ Transitions come in three forms (:class:`Transitions`):
   exp(lambda r)) L`` with a table ``T_j = P(j h) R`` and ``exp(lambda r)`` by its
   Taylor polynomial of degree 5, whose remainder ``|lambda r|^6 / 6!`` stays
   below 2^-53: ``2 N^2 + 5 N`` multiply-adds per probe against ``N^2 + 4 K N``
-  (measured 13% faster for N = 8, K = 4; docs/probe-records.md).
+  (measured 2%, 4% and 22% faster for N = 6, 8, 10; docs/probe-records.md).
 
 Outcomes are encoded once as integer codes (:class:`ProbeSequence`): probe
 with setting ``s`` and outcome ``y`` has code ``3 s + y`` with ``y = 2`` for a
