@@ -29,8 +29,9 @@ The eigen-basis remainder (kept): 2.69x / 3.02x / 2.59x against the series form'
 the grid route 2.92-2.99x (regular 6.6-6.8 ns, load about 2-4).  The 2x target
 is not met (scalar floor about 1 + 4K/N for the series, 2 + 5/N in the eigen
 basis).  Whole ``cavchar fit probes`` of 2x10^5 Poisson-timed probes: 49.3 s at
-load 1.8-2.1 and 94.2 s at load 2.3-3.2 (kernels cached; 81.9 s before the eigen-basis remainder at load
-4.2-4.9, 138.6 s before the trajectory fix at load 3.2-4.9).
+load 1.8-2.1 and 94.2 s at load 2.3-3.2 (kernels cached; 81.9 s before the
+eigen-basis remainder at load 4.2-4.9, 138.6 s before the trajectory fix at
+load 3.2-4.9).
 """
 
 from __future__ import annotations
