@@ -18,6 +18,7 @@ from scipy import linalg, stats
 from cavchar.fits.probes import fit_probes
 from cavchar.inference import SamplerSettings
 from cavchar.models import hmm_kernels as hk
+from cavchar.models import probes as probes_module
 from cavchar.models.probes import ProbeLikelihood, probe_steps, route_text
 from cavchar.models.response import FringeResponse
 from cavchar.records import ProbeRecord
@@ -78,12 +79,18 @@ def poisson_record(n_probes, mean_interval, seed):
     return ProbeRecord(time, outcome, setting, segment)
 
 
-@pytest.mark.parametrize("n_levels", [8, 20])  # unrolled kernel (N <= 16) and loop kernel
-def test_grid_route_matches_a_per_interval_expm_product(n_levels):
-    rec = poisson_record(400, 2e-3, seed=5)
+@pytest.mark.parametrize("n_levels, eigen_basis", [(8, True), (8, False), (20, False)])
+def test_grid_route_matches_a_per_interval_expm_product(n_levels, eigen_basis, monkeypatch):
+    # unrolled kernels (N <= 16) with the remainder in the eigen basis or by the
+    # uniformization series; the loop kernel (N = 20)
+    monkeypatch.setattr(probes_module, "EIGEN_GRID", eigen_basis)
+    # the eigen basis needs max |lambda| h <= 6.5e-3 for every set: dense probes
+    rec = poisson_record(400, 2e-5 if eigen_basis else 2e-3, seed=5)
     resp = FringeResponse(**PARITY)
     like = ProbeLikelihood(rec, resp, n_levels=n_levels)
     assert like.steps.kind == "irregular" and np.any(like.steps.step_index < 0)
+    tr = like.transitions(np.array([20.0]), np.array([0.3]), n_levels)
+    assert (tr.eigen_table is not None) == eigen_basis
     theta = np.array([[0.05, 0.3], [0.02, 1.2], [0.2, 0.05]])
     got = like(theta)
     starts = list(rec.bounds)
@@ -109,12 +116,12 @@ def test_grid_split_of_the_intervals():
     assert 0 < np.mean(~inside) <= 2e-3
 
 
-def test_route_recorded_for_the_result():
+def test_route_recorded_for_the_result(monkeypatch):
     """The route a record takes, with the grid and the series length at a parameter point:
     the series length checked against the Poisson tail (scipy.stats) at the largest exit
     rate of the generator written out here."""
     rng = np.random.default_rng(4)
-    time = np.cumsum(rng.exponential(1e-3, 3000))
+    time = np.cumsum(rng.exponential(1e-4, 3000))  # dense enough for the eigen basis
     resp = FringeResponse(**PARITY)
     like = ProbeLikelihood(ProbeRecord(time, rng.integers(0, 2, time.size).astype(float)), resp)
     route = like.interval_route([0.05, 0.3])
@@ -122,11 +129,20 @@ def test_route_recorded_for_the_result():
     assert route["grid_step_s"] == pytest.approx(np.mean(np.diff(time)) / 8, rel=1e-12)
     assert route["table_matrices"] == like.steps.steps.size
     assert 0 < route["beyond_table_fraction"] <= 2e-3
+    # eigen-basis remainder: |lambda| h from scipy's eigenvalues of the generator
+    lam = linalg.eigvals(generator(1 / 0.05, 0.3, route["levels"])).real
+    assert route["remainder"].startswith("eigen basis")
+    assert route["largest_lambda_h"] == pytest.approx(np.max(-lam) * route["grid_step_s"],
+                                                      rel=1e-9)
+    assert route["largest_lambda_h"] ** 6 / math.factorial(6) <= hk.SERIES_TOLERANCE
+    assert "exact grid route" in route_text(route)
+    # the uniformization series where the eigen basis is not used
+    monkeypatch.setattr(probes_module, "EIGEN_GRID", False)
+    route = like.interval_route([0.05, 0.3])
     rate = np.max(-np.diag(generator(1 / 0.05, 0.3, route["levels"])))
     k = route["series_terms"]
     assert stats.poisson.sf(k, rate * route["grid_step_s"]) <= hk.SERIES_TOLERANCE
     assert stats.poisson.sf(k - 2, rate * route["grid_step_s"]) > hk.SERIES_TOLERANCE
-    assert "exact grid route" in route_text(route)
     eig = ProbeLikelihood(like.record, resp, irregular="eigen").interval_route()
     assert eig["route"] == "per-interval eigen"
     clock = ProbeLikelihood(ProbeRecord(1e-3 * np.arange(100), np.zeros(100)), resp)

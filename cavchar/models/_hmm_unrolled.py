@@ -13,7 +13,8 @@ if neither is writable the code is compiled from memory without caching.
 
 The generated functions (see :mod:`cavchar.models.hmm_kernels` for the
 meaning of the arguments) are ``forward_regular``, ``forward_indexed``,
-``forward_eigen`` and ``forward_grid`` (threads share the parameter sets) and their ``_serial``
+``forward_eigen``, ``forward_grid`` and ``forward_eigengrid`` (threads share the parameter
+sets) and their ``_serial``
 twins (one thread: no thread start-up cost for a single parameter set); they
 implement exactly the recursion of the generic loop kernels in that module,
 which the tests compare them with.
@@ -30,10 +31,13 @@ from pathlib import Path
 from types import ModuleType
 
 #: bump when the generated source changes (part of the file name)
-GENERATOR_VERSION = 5
+GENERATOR_VERSION = 6
 
 #: grid route: series terms written out before the loop takes over
 UNROLLED_TERMS = 6
+
+#: eigen-basis grid route: degree of the Taylor polynomial of exp(lambda r)
+EXP_DEGREE = 5
 
 #: largest N for which unrolled kernels are generated (beyond it: loop kernels)
 MAX_UNROLLED_LEVELS = 16
@@ -133,6 +137,29 @@ def _grid_step(n: int, ind: str) -> list[str]:
     return L
 
 
+def _eigen_grid_step(n: int, ind: str) -> list[str]:
+    """One probe of the eigen-basis grid route: ``x = ((a (P(j h) R)) e^{lambda r}) L``
+    with ``e^{lambda r}`` by its Taylor polynomial of degree EXP_DEGREE (Horner; the
+    caller guarantees ``|lambda r|`` small enough for the remainder to stay below 2^-53);
+    intervals beyond the table (``sidx < 0``) by the eigen route."""
+    L = [f"{ind}m = sidx[t]", f"{ind}if m >= 0:", f"{ind}    r = rem[t]"]
+    i2 = ind + "    "
+    for mm in range(n):
+        poly = "1.0"
+        for d in range(EXP_DEGREE, 0, -1):
+            poly = f"(1.0 + e{mm} * {poly})" if d == 1 else f"(1.0 + e{mm} * {1.0 / d!r} * {poly})"
+        terms = " + ".join(f"a{i} * prt[c, m, {i}, {mm}]" for i in range(n))
+        L += [f"{i2}e{mm} = w{mm} * r", f"{i2}h{mm} = ({terms}) * {poly}"]
+    L += [f"{ind}else:", f"{i2}d = dts[t]"]
+    for mm in range(n):
+        terms = " + ".join(f"a{i} * right[c, {i}, {mm}]" for i in range(n))
+        L.append(f"{i2}h{mm} = ({terms}) * np.exp(w{mm} * d)")
+    for j in range(n):
+        terms = " + ".join(f"h{mm} * l{mm}_{j}" for mm in range(n))
+        L.append(f"{ind}b{j} = max({terms}, 0.0) * E[code, {j}]")
+    return L
+
+
 def _kernel(n: int, kind: str, parallel: bool = True) -> str:
     if kind == "regular":
         args = "trans, p0, emis, offs, codes, starts, out"
@@ -141,6 +168,8 @@ def _kernel(n: int, kind: str, parallel: bool = True) -> str:
     elif kind == "grid":
         args = ("trans, sidx, rem, uni, rates, terms, right, lam, left, dts, p0, emis, offs, "
                 "codes, starts, out")
+    elif kind == "eigengrid":
+        args = "prt, sidx, rem, right, lam, left, dts, p0, emis, offs, codes, starts, out"
     else:
         args = "right, lam, left, dts, p0, emis, offs, codes, starts, out"
     suffix = "" if parallel else "_serial"
@@ -156,6 +185,9 @@ def _kernel(n: int, kind: str, parallel: bool = True) -> str:
         L += [f"{ind}v{i} = uni[c, 1, {i}]" for i in range(n)]  # U[i, i]
         L += [f"{ind}d{i} = uni[c, 2, {i}]" for i in range(n)]  # U[i, i - 1]
         L += [f"{ind}qc = rates[c]", f"{ind}kc = terms[c]"]
+    if kind == "eigengrid":
+        L += [f"{ind}l{m}_{j} = left[c, {m}, {j}]" for m in range(n) for j in range(n)]
+        L += [f"{ind}w{m} = lam[c, {m}]" for m in range(n)]
     if kind == "eigen":
         L += [f"{ind}r{i}_{m} = right[c, {i}, {m}]" for i in range(n) for m in range(n)]
         L += [f"{ind}l{m}_{j} = left[c, {m}, {j}]" for m in range(n) for j in range(n)]
@@ -177,6 +209,8 @@ def _kernel(n: int, kind: str, parallel: bool = True) -> str:
             L.append(f"{ind3}b{j} = ({terms}) * E[code, {j}]")
     elif kind == "grid":
         L += _grid_step(n, ind3)
+    elif kind == "eigengrid":
+        L += _eigen_grid_step(n, ind3)
     else:
         L.append(f"{ind3}d = dts[t]")
         for m in range(n):
@@ -193,11 +227,12 @@ def _kernel(n: int, kind: str, parallel: bool = True) -> str:
 
 
 def source(n: int) -> str:
-    """Python source of the four unrolled forward kernels for ``n`` levels."""
+    """Python source of the five unrolled forward kernels for ``n`` levels."""
     if not 2 <= n <= MAX_UNROLLED_LEVELS:
         raise ValueError(f"unrolled kernels exist for 2..{MAX_UNROLLED_LEVELS} levels")
     parts = [_HEADER.format(n=n)] + [_kernel(n, kind, par) for par in (True, False)
-                                     for kind in ("regular", "indexed", "eigen", "grid")]
+                                     for kind in ("regular", "indexed", "eigen", "grid",
+                                                  "eigengrid")]
     return "\n\n".join(parts)
 
 

@@ -20,8 +20,11 @@ otherwise (irregular spacing: Poisson times, gaps) the grid route of
 :mod:`cavchar.models.hmm_kernels`: ``dt = j h + r`` with ``h`` an eighth of
 the mean interval, ``P(dt) = P(j h) exp(Q r)``, a table of ``P(j h)`` for the
 intervals up to their 99.9% quantile and a uniformization series for the
-remainder truncated below the rounding of one step (exact: no bound to
-report).  ``irregular="eigen"`` keeps the interval-by-interval eigen route
+remainder truncated below the rounding of one step, or (few levels, short
+steps) the remainder in the eigen basis with ``exp(lambda r)`` by a Taylor
+polynomial whose remainder is below 2^-53 (exact either way: no bound to
+report; :meth:`ProbeLikelihood.interval_route` says which route was taken).
+``irregular="eigen"`` keeps the interval-by-interval eigen route
 ``alpha P(dt) = ((alpha R) e^{lambda dt}) L``.
 """
 
@@ -69,6 +72,8 @@ GRID_SUBSTEPS = 8
 GRID_QUANTILE = 0.999
 #: ... with at most this many matrices (longer intervals: eigen route)
 GRID_MAX_STEPS = 512
+#: grid route: apply the remainder in the eigen basis where allowed (hmm_kernels docstring)
+EIGEN_GRID = True
 
 
 @dataclass(frozen=True)
@@ -135,6 +140,18 @@ def probe_steps(time: ArrayLike, starts: ArrayLike, rtol: float = STEP_RTOL,
     idx = np.where(beyond, -1, j).astype(np.int32)
     rem = np.where(beyond, 0.0, np.maximum(dts - j * h, 0.0))
     return ProbeSteps("irregular", h * np.arange(n_grid), idx, dts, rem, h)
+
+
+def eigen_grid_allowed(eigenvalues: np.ndarray, grid_step: float, n_levels: int) -> bool:
+    """Whether the grid route may apply its remainder in the eigen basis: unrolled
+    kernels (N <= 16), ``EIGEN_GRID`` set and ``max |lambda| h`` within
+    :data:`~cavchar.models.hmm_kernels.EIGEN_GRID_LIMIT` (eigenvalues in 1/s, h in s).
+    The caller also requires a well-conditioned eigen basis."""
+    from cavchar.models._hmm_unrolled import MAX_UNROLLED_LEVELS
+
+    return bool(EIGEN_GRID and n_levels <= MAX_UNROLLED_LEVELS
+                and np.max(-np.asarray(eigenvalues), initial=0.0) * grid_step
+                <= hk.EIGEN_GRID_LIMIT)
 
 
 def group_settings(setting: ArrayLike | None, n: int) -> tuple[np.ndarray, np.ndarray]:
@@ -325,15 +342,19 @@ class ProbeLikelihood:
         mats = np.clip(np.matmul(r[:, None] * decay[:, :, None, :], left[:, None]), 0.0, 1.0)
         with np.errstate(divide="ignore", over="ignore"):
             amp = np.exp(-0.5 * (levels - 1) * (np.log(n_th) - np.log1p(n_th)))
-        for i in np.flatnonzero(~(np.finfo(float).eps * amp <= _EIGEN_ROUNDING)):
+        ill = np.flatnonzero(~(np.finfo(float).eps * amp <= _EIGEN_ROUNDING))
+        for i in ill:
             n = int(levels[i])
             mats[i, :, :n, :n] = transition_matrices_batch(kappa[i:i + 1], n_th[i:i + 1], n,
                                                            steps.steps)[0]
         if steps.kind == "irregular":
             uni, rates = hk.uniformization_parts(kappa, n_th, levels, top)
             terms = hk.uniformization_terms(rates * steps.grid_step)
+            table = None
+            if eigen_grid_allowed(lam, steps.grid_step, top) and ill.size == 0:
+                table = r[:, None] * decay[:, :, None, :]  # P(j h) R = R diag(e^{lambda j h})
             return hk.Transitions.grid(mats, steps.step_index, steps.remainder, uni, rates, terms,
-                                       r, lam, left, steps.dts)
+                                       r, lam, left, steps.dts, table)
         if steps.kind == "regular":
             return hk.Transitions.regular(mats[:, 0])
         return hk.Transitions.indexed(mats, steps.step_index, check=False)
@@ -410,7 +431,8 @@ class ProbeLikelihood:
         bound is needed.  For the grid: its step ``grid_step_s`` (s), the number of
         table matrices, the longest tabulated interval (s), the fraction of intervals
         beyond it (eigen route) and, at the parameter point ``theta`` (lifetime in s,
-        n_th, ...), the truncation and the number of series terms.
+        n_th, ...), the truncation and how the remainder is applied (eigen basis, with
+        the largest ``|lambda| h``, or the uniformization series and its terms).
         """
         s = self.steps
         exact = "none: exact (rounding only)"
@@ -425,15 +447,21 @@ class ProbeLikelihood:
                "table_matrices": int(s.steps.size), "table_top_s": float(s.steps[-1]),
                "beyond_table_fraction": float(np.mean(s.step_index < 0)),
                "series_tolerance": float(hk.SERIES_TOLERANCE),
-               "bound": "none: exact (series tail below 2^-53 of each step, under its "
-                        "rounding)"}
+               "bound": "none: exact (truncation of the remainder below 2^-53 of each "
+                        "step, under its rounding)"}
         if theta is not None:
             theta = np.asarray(theta, dtype=float).reshape(1, -1)
             n = int(min(self.levels_for(theta[:, 0], theta[:, 1], cap=False)[0],
                         self.max_levels))
-            _, rate = hk.uniformization_parts(1.0 / theta[:, 0], theta[:, 1], n)
+            tr = self.transitions(1.0 / theta[:, 0], theta[:, 1:2].ravel(), n)
             out["levels"] = n
-            out["series_terms"] = int(hk.uniformization_terms(rate * s.grid_step)[0])
+            if tr.eigen_table is not None:
+                out["remainder"] = ("eigen basis, exp(lambda r) by its Taylor polynomial of "
+                                    "degree 5")
+                out["largest_lambda_h"] = float(np.max(-tr.eigenvalues) * s.grid_step)
+            else:
+                out["remainder"] = "uniformization series"
+                out["series_terms"] = int(tr.terms[0])
         return out
 
     # -- likelihood -------------------------------------------------------------------
@@ -478,12 +506,16 @@ def route_text(route: dict) -> str:
         return f"probe intervals: {route['intervals']} distinct intervals (exact)"
     if kind == "per-interval eigen":
         return "probe intervals: irregular, per-interval eigen route (exact)"
-    terms = f", {route['series_terms']} series terms" if "series_terms" in route else ""
+    terms = ""
+    if "series_terms" in route:
+        terms = f", remainder by {route['series_terms']} uniformization terms"
+    elif "largest_lambda_h" in route:
+        terms = ", remainder in the eigen basis"
     return (f"probe intervals: irregular, exact grid route (step "
             f"{format_quantity(route['grid_step_s'], 'time')}, {route['table_matrices']} "
             f"matrices up to {format_quantity(route['table_top_s'], 'time')}, "
             f"{100 * route['beyond_table_fraction']:.2g}% of the intervals beyond{terms}); "
-            "no bound needed: series tail below 2^-53 per step")
+            "no bound needed: truncation below 2^-53 per step")
 
 
 def exit_rate(kappa: float, n_th: float, n: float) -> float:

@@ -20,14 +20,18 @@ per loop body, series terms per probe, no eigen branch, sets as arrays), each
 checked against the kept kernel and timed in the same run.
 
 Measured on the shared 2-core machine (docs/probe-records.md, "Irregular probe
-times"): regular clock 12.7 ns per probe per set at load 0.9-1.4, grid route
-3.18x, eigen route 5.22x; in the --options run (load 3.4-5.0, N = 8) the kept
-grid kernel 3.25x, two sets per loop body 3.91x, four 6.08x, terms per probe
-3.86x, no eigen branch 3.30x, sets as arrays 8.21x: none pays, the 2x target is
-not met (scalar floor about 1 + 4K/N: 3.0 for N = 8, K = 4; 2.2-2.4x measured
-at n_th = 0.6, 12-14 levels).  Whole ``cavchar fit probes`` of 2x10^5
-Poisson-timed probes: 81.9 s at load 4.2-4.9 (138.6 s before the trajectory
-fix, load 3.2-4.9).
+times"): before, regular clock 12.7 ns per probe per set at load 0.9-1.4, grid
+route 3.18x, eigen route 5.22x; in the --options run (load 3.4-5.0, N = 8, series
+form) the kept grid kernel 3.25x, two sets per loop body 3.91x, four 6.08x,
+terms per probe 3.86x, no eigen branch 3.30x, sets as arrays 8.21x: none pays.
+The eigen-basis remainder (kept): 2.69x / 3.02x / 2.59x against the series form's
+2.74x / 3.14x / 3.32x for N = 6 / 8 / 10 (load 2.5); this benchmark then gave
+the grid route 2.92-2.99x (regular 6.6-6.8 ns, load about 2-4).  The 2x target
+is not met (scalar floor about 1 + 4K/N for the series, 2 + 5/N in the eigen
+basis).  Whole ``cavchar fit probes`` of 2x10^5 Poisson-timed probes: 49.3 s at
+load 1.8-2.1 and 94.2 s at load 2.3-3.2 (kernels cached; 81.9 s before the
+eigen-basis remainder at load 4.2-4.9, 138.6 s before the trajectory fix at
+load 3.2-4.9).
 """
 
 from __future__ import annotations
@@ -68,8 +72,19 @@ def per_probe(n_probes: int, k: int, repeats: int) -> None:
 
     rec_p, rec_r, resp = records(n_probes)
     theta = np.column_stack([LIFETIME * np.linspace(0.9, 1.1, k), N_TH * np.linspace(0.9, 1.1, k)])
+    class Series(pm.ProbeLikelihood):
+        """The grid route with its remainder by the uniformization series throughout."""
+
+        def transitions(self, *args):
+            pm.EIGEN_GRID = False
+            try:
+                return super().transitions(*args)
+            finally:
+                pm.EIGEN_GRID = True
+
     variants = {"regular clock": pm.ProbeLikelihood(rec_r, resp),
                 "Poisson, grid route": pm.ProbeLikelihood(rec_p, resp),
+                "Poisson, grid, series only": Series(rec_p, resp),
                 "Poisson, eigen route": pm.ProbeLikelihood(rec_p, resp, irregular="eigen")}
     default = pm.GRID_SUBSTEPS
     for sub in (16, 32):
@@ -99,8 +114,9 @@ def per_probe(n_probes: int, k: int, repeats: int) -> None:
         like = variants[name]
         if like.steps.kind == "irregular" and like.irregular == "grid":
             tr = like.transitions(1 / theta[:, 0], theta[:, 1], levels)
-            extra = (f"  (table of {like.steps.steps.size} matrices, series terms "
-                     f"{tr.terms.min()}-{tr.terms.max()}, "
+            how = ("eigen-basis remainder" if tr.eigen_table is not None else
+                   f"series terms {tr.terms.min()}-{tr.terms.max()}")
+            extra = (f"  (table of {like.steps.steps.size} matrices, {how}, "
                      f"{np.mean(like.steps.step_index < 0):.1e} of the intervals beyond it)")
         print(f"  {name:28s} {med / (n_probes * k) * 1e9:6.1f} ns per probe per set, "
               f"{med / base:4.2f}x regular{extra}")

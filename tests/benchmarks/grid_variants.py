@@ -264,3 +264,64 @@ def loop_lanes4(trans, sidx, rem, uni, rates, terms, p0, emis, offs, codes, star
                 total[lane] = -np.inf if dead[lane] else total[lane] + ll[lane] + np.log(s[lane])
         for lane in range(4):
             out[c, lane] = total[lane]
+
+
+def source_eigen_table(n: int, degree: int = 5) -> str:
+    """Eigen-basis grid: ``P(j h + r) = (P(j h) R) diag(exp(lambda r)) L`` with a table of
+    ``P(j h) R`` (k, J, N, N) and ``exp(lambda r)`` by its Taylor polynomial of
+    ``degree`` (Horner; ``|lambda r| <= |lambda|_max h``); intervals beyond the table by
+    the eigen route.  ``forward(prt, sidx, rem, right, lam, left, dts, p0, emis, offs,
+    codes, starts, out)``, arrays with k first (one set per loop body)."""
+    ind, i2, i3, i4 = " " * 8, " " * 12, " " * 16, " " * 20
+    out = ['@njit(parallel=True, cache=False, nogil=True, fastmath={"contract"})',
+           "def forward(prt, sidx, rem, right, lam, left, dts, p0, emis, offs, codes, starts, "
+           "out):", "    nseg = starts.shape[0] - 1", "    for c in prange(out.shape[0]):",
+           f"{ind}E = emis[c]", f"{ind}O = offs[c]", f"{ind}T = prt[c]"]
+    out += [f"{ind}l{m}_{j} = left[c, {m}, {j}]" for m in range(n) for j in range(n)]
+    out += [f"{ind}w{m} = lam[c, {m}]" for m in range(n)]
+    out += [f"{ind}total = 0.0", f"{ind}for g in range(nseg):"]
+    out += [f"{i2}t0 = starts[g]", f"{i2}t1 = starts[g + 1]", f"{i2}code = codes[t0]"]
+    out += [f"{i2}b{j} = p0[c, {j}] * E[code, {j}]" for j in range(n)]
+    out += [f"{i2}ll = O[code]", f"{i2}dead = False"]
+    s = " + ".join(f"b{j}" for j in range(n))
+    resc = [f"{{i}}s = {s}", "{i}if TINY <= s <= HUGE:"]
+    resc += [f"{{i}}    a{j} = b{j}" for j in range(n)]
+    resc += ["{i}elif s > 0.0:", "{i}    ll += np.log(s)", "{i}    inv = 1.0 / s"]
+    resc += [f"{{i}}    a{j} = b{j} * inv" for j in range(n)]
+    resc += ["{i}else:", "{i}    dead = True"] + [f"{{i}}    a{j} = 0.0" for j in range(n)]
+    out += [line.format(i=i2) for line in resc]
+    out += [f"{i2}for t in range(t0 + 1, t1):", f"{i3}code = codes[t]", f"{i3}m = sidx[t]",
+            f"{i3}if m >= 0:", f"{i4}r = rem[t]"]
+    for mm in range(n):
+        terms = " + ".join(f"a{i} * T[m, {i}, {mm}]" for i in range(n))
+        poly = "1.0"
+        for d in range(degree, 0, -1):
+            poly = f"(1.0 + e{mm} * {1.0 / d!r} * {poly})" if d > 1 else f"(1.0 + e{mm} * {poly})"
+        out += [f"{i4}e{mm} = w{mm} * r", f"{i4}h{mm} = ({terms}) * {poly}"]
+    out += [f"{i3}else:", f"{i4}dd = dts[t]"]
+    for mm in range(n):
+        terms = " + ".join(f"a{i} * right[c, {i}, {mm}]" for i in range(n))
+        out.append(f"{i4}h{mm} = ({terms}) * np.exp(w{mm} * dd)")
+    for j in range(n):
+        terms = " + ".join(f"h{mm} * l{mm}_{j}" for mm in range(n))
+        out.append(f"{i3}b{j} = max({terms}, 0.0) * E[code, {j}]")
+    out += [f"{i3}ll += O[code]"]
+    out += [line.format(i=i3) for line in resc]
+    out += [f"{i2}if dead:", f"{i2}    total = -np.inf", f"{i2}else:",
+            f"{i2}    total += ll + np.log(" + " + ".join(f"a{j}" for j in range(n)) + ")"]
+    out += [f"{ind}out[c] = total"]
+    return _HEADER + "\n".join(out) + "\n"
+
+
+def build_eigen_table(n: int, degree: int = 5):
+    namespace: dict = {}
+    exec(compile(source_eigen_table(n, degree), "grid_variant_eigen", "exec"), namespace)
+    return namespace["forward"]
+
+
+def eigen_table_args(tr, steps):
+    """(prt, sidx, rem, right, lam, left, dts) for :func:`source_eigen_table` from grid
+    transitions ``tr`` (their eigen parts) and the grid ``steps`` (s, (J,))."""
+    decay = np.exp(tr.eigenvalues[:, None, :] * np.asarray(steps)[None, :, None])  # (k, J, N)
+    prt = np.ascontiguousarray(tr.right[:, None] * decay[:, :, None, :])  # R diag(e^{lam jh})
+    return (prt, tr.step_index, tr.remainder, tr.right, tr.eigenvalues, tr.left, tr.dts)
