@@ -65,8 +65,11 @@ def _probes_regular() -> None:
 
 
 def _probes_irregular() -> None:
+    # a sparse record (intervals a fair part of T_c: the uniformization remainder) and a
+    # dense one (the remainder in the eigen basis): both forms of the grid route
     rng = np.random.default_rng(4)
     _probes(np.cumsum(rng.exponential(1e-4, 4000)), 4)
+    _probes(np.cumsum(rng.exponential(2e-6, 4000)), 5)
 
 
 def _ringdown() -> None:

@@ -277,11 +277,13 @@ class ProbeLikelihood:
                                                        self.settings.size, starts)
         self.steps = probe_steps(record.time, starts)
         self.names = ("lifetime", "n_thermal") + tuple(response.free_names)
-        self._emission_cache: dict[int, tuple] = {}
-        #: number of parameter sets evaluated at max_levels although they needed more
-        self.capped = 0
-        #: largest truncation any parameter set asked for
-        self.largest_needed = 0
+        # a response without fitted parameters: P(1 | n, s) once, for every truncation
+        # (a likelihood call reads it and never changes the model)
+        self._fixed_prob_one = None
+        if not response.free_names:
+            response.check_coverage(self.max_levels, self.settings)
+            self._fixed_prob_one = response.prob_one(None, self.max_levels,
+                                                     self.settings)[0][:1]
 
     @property
     def ndim(self) -> int:
@@ -307,8 +309,6 @@ class ProbeLikelihood:
         need = np.where(step <= self.max_levels, step, need)
         if not cap:
             return need
-        self.largest_needed = max(self.largest_needed, int(need.max(initial=0)))
-        self.capped += int(np.count_nonzero(need > self.max_levels))
         return np.minimum(need, self.max_levels)
 
     def transitions(self, kappa: np.ndarray, n_th: np.ndarray,
@@ -374,13 +374,13 @@ class ProbeLikelihood:
         return p0
 
     def prob_one(self, free: np.ndarray | None, n_levels: int, k: int) -> np.ndarray:
-        """``P(1 | n, s)`` (k, S, N); cached when the response has no fitted parameter."""
+        """``P(1 | n, s)`` (k, S, N); computed once at construction when the response has
+        no fitted parameter (then of shape (1, S, N))."""
         if free is None:
-            if n_levels not in self._emission_cache:
+            if n_levels > self.max_levels:
                 self.response.check_coverage(n_levels, self.settings)
-                self._emission_cache[n_levels] = self.response.prob_one(
-                    None, n_levels, self.settings)[0][:1]
-            return self._emission_cache[n_levels]
+                return self.response.prob_one(None, n_levels, self.settings)[0][:1]
+            return np.ascontiguousarray(self._fixed_prob_one[:, :, :n_levels])
         return self.response.prob_one(free, n_levels, self.settings)[0]
 
     def _split(self, theta: ArrayLike):
