@@ -115,6 +115,7 @@ seed = 3
 freq = "6.8GHz"
 stage_temp = "20mK"
 max_steps = {steps}
+sampler = "{sampler}"
 allow_unconverged = true
 cavity = "C9"
 cooldown = "CD9"
@@ -130,12 +131,12 @@ signal = "power"
 """
 
 
-def _records(folder: Path, steps: int) -> Path:
+def _records(folder: Path, steps: int, sampler: str = "importance") -> Path:
     for i, argv in enumerate(SIMULATE):
         name = "ringdown.csv" if argv[0] == "ringdown" else f"jumps-{i + 1}.csv"
         assert main(["simulate", *argv, "-o", str(folder), "--file", name]) == 0
     batch = folder / "batch.toml"
-    batch.write_text(BATCH.format(steps=steps))
+    batch.write_text(BATCH.format(steps=steps, sampler=sampler))
     return batch
 
 
@@ -178,7 +179,9 @@ def test_a_worker_killed_mid_fit_is_survived(loopback, tmp_path):
     from cavchar.batch.worker import EVENT_TOPIC
 
     address, client = loopback
-    batch = _records(tmp_path, steps=3000)  # fits of a few seconds: time to kill one
+    # ensemble fits of a few seconds (importance sampling ends these in a tenth of one):
+    # time to kill one
+    batch = _records(tmp_path, steps=3000, sampler="ensemble")
     before = len(client.get_events(EVENT_TOPIC))
     outcome: list = []
 

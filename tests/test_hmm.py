@@ -253,3 +253,22 @@ def test_bad_inputs_are_refused():
         hk.ProbeSequence.from_outcomes([0, 1, 1], segment_starts=[1])
     with pytest.raises(ValueError):
         hk.Transitions.indexed(np.zeros((1, 2, 3, 3)), [0, 2])
+
+
+def test_without_a_writable_kernel_folder_the_loop_kernels_run(monkeypatch, tmp_path):
+    """No folder for the generated kernels (a read-only home): the loop kernels answer,
+    with the same value, and no code is compiled from text in memory."""
+    from cavchar.models import _hmm_unrolled
+
+    rng = np.random.default_rng(11)
+    n, t = 5, 400
+    trans = linalg.expm(generator(2.0, 0.4, n) * 0.03)[None]
+    p0 = thermal(0.4, n)[None]
+    emis = hk.emission_table(rng.uniform(0.05, 0.95, (1, 2, n)))
+    seq = hk.ProbeSequence.from_outcomes(rng.integers(0, 2, t).astype(float))
+    tr = hk.Transitions.regular(trans)
+    expected = hk.forward_loglik(tr, p0, emis, seq, unrolled=False)
+    monkeypatch.setattr(_hmm_unrolled, "_LOADED", {})
+    monkeypatch.setattr(_hmm_unrolled, "_cache_dir", lambda: None)
+    assert _hmm_unrolled.load(n) is None
+    np.testing.assert_array_equal(hk.forward_loglik(tr, p0, emis, seq, unrolled=True), expected)

@@ -9,7 +9,8 @@ code (``cache=True`` needs a real source file).  Writing is atomic, so several
 processes may ask for the same kernels at once.
 
 Cache folder: ``$CAVCHAR_KERNEL_DIR`` if set, else ``~/.cache/cavchar/kernels``;
-if neither is writable the code is compiled from memory without caching.
+if neither is writable the generic loop kernels of :mod:`cavchar.models.hmm_kernels`
+run instead (no code is compiled from text in memory).
 
 The generated functions (see :mod:`cavchar.models.hmm_kernels` for the
 meaning of the arguments) are ``forward_regular``, ``forward_indexed``,
@@ -248,36 +249,26 @@ def _cache_dir() -> Path | None:
     return path
 
 
-def _write_atomic(path: Path, text: str) -> None:
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=path.stem, suffix=".tmp")
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            fh.write(text)
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
+def load(n: int) -> ModuleType | None:
+    """Import (generating and caching if needed) the unrolled kernels for ``n`` levels;
+    None when no writable cache folder exists (the callers then use the loop kernels,
+    which numba caches beside the package: nothing is compiled from text in memory)."""
+    from cavchar.io.atomic import write_text_atomic
 
-
-def load(n: int) -> ModuleType:
-    """Import (generating and caching if needed) the unrolled kernels for ``n`` levels."""
     if n in _LOADED:
         return _LOADED[n]
+    folder = _cache_dir()
+    if folder is None:
+        return None
     text = source(n)
     digest = hashlib.sha256(text.encode()).hexdigest()[:10]
     name = f"cavchar_hmm_unrolled_n{n:02d}_v{GENERATOR_VERSION}_{digest}"
-    folder = _cache_dir()
-    if folder is not None:
-        path = folder / f"{name}.py"
-        if not path.exists() or path.read_text(encoding="utf-8") != text:
-            _write_atomic(path, text)
-        spec = importlib.util.spec_from_file_location(name, path)
-        module = importlib.util.module_from_spec(spec)
-        sys.modules[name] = module
-        spec.loader.exec_module(module)
-    else:  # no writable folder: compile from memory, without the on-disk cache
-        module = ModuleType(name)
-        exec(compile(text.replace("cache=True", "cache=False"), name, "exec"), module.__dict__)
+    path = folder / f"{name}.py"
+    if not path.exists() or path.read_text(encoding="utf-8") != text:
+        write_text_atomic(path, text, force=True)
+    spec = importlib.util.spec_from_file_location(name, path)
+    module = importlib.util.module_from_spec(spec)
+    sys.modules[name] = module
+    spec.loader.exec_module(module)
     _LOADED[n] = module
     return module

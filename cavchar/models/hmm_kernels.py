@@ -712,8 +712,8 @@ def forward_loglik(
     seq = (sequence.codes, sequence.starts, out)
     use_unrolled = n <= _hmm_unrolled.MAX_UNROLLED_LEVELS if unrolled is None else unrolled
     tr = transitions
-    if use_unrolled:
-        mod = _hmm_unrolled.load(n)
+    mod = _hmm_unrolled.load(n) if use_unrolled else None  # None: no writable kernel folder
+    if mod is not None:
         suffix = "_serial" if k == 1 else ""
         if tr.kind == "regular":
             getattr(mod, "forward_regular" + suffix)(
