@@ -81,7 +81,7 @@ def poisson_record(n_probes, mean_interval, seed):
 
 @pytest.mark.parametrize("n_levels, eigen_basis", [(8, True), (8, False), (20, False)])
 def test_grid_route_matches_a_per_interval_expm_product(n_levels, eigen_basis, monkeypatch):
-    # unrolled kernels (N <= 16) with the remainder in the eigen basis or by the
+    # unrolled kernels (N <= 12) with the remainder in the eigen basis or by the
     # uniformization series; the loop kernel (N = 20)
     monkeypatch.setattr(probes_module, "EIGEN_GRID", eigen_basis)
     # the eigen basis needs max |lambda| h <= 6.5e-3 for every set: dense probes

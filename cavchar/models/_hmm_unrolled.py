@@ -40,8 +40,12 @@ UNROLLED_TERMS = 6
 #: eigen-basis grid route: degree of the Taylor polynomial of exp(lambda r)
 EXP_DEGREE = 5
 
-#: largest N for which unrolled kernels are generated (beyond it: loop kernels)
-MAX_UNROLLED_LEVELS = 16
+#: largest N for which unrolled kernels are generated (beyond it: loop kernels).  Chosen
+#: by tests/benchmarks/bench_hmm.py (docs/probe-records.md, "Unrolled kernels"): over
+#: the loop kernels they are 7.8x (N = 6), 2.6x (8), 2.3x (12) but only 1.13x (16) as
+#: fast, while a cold compile of one of them takes 3.9 s (8), 8.4 s (12), 18.7 s (16);
+#: at N <= 12 the first fit of 10^5 probes already repays it, at 16 it never would
+MAX_UNROLLED_LEVELS = 12
 
 _LOADED: dict[int, ModuleType] = {}
 

@@ -54,7 +54,7 @@ for each probe: zero for single probes, the log of the scale of a block
 emission in the coarse mode.
 
 All forward kernels are vectorized over k parameter sets (numba ``prange``:
-the sets are shared among threads).  For N <= 16 fully unrolled kernels are
+the sets are shared among threads).  For N <= 12 fully unrolled kernels are
 generated (:mod:`cavchar.models._hmm_unrolled`); the loop kernels below are
 the reference implementation and serve larger N.
 """

@@ -144,7 +144,8 @@ def probe_steps(time: ArrayLike, starts: ArrayLike, rtol: float = STEP_RTOL,
 
 def eigen_grid_allowed(eigenvalues: np.ndarray, grid_step: float, n_levels: int) -> bool:
     """Whether the grid route may apply its remainder in the eigen basis: unrolled
-    kernels (N <= 16), ``EIGEN_GRID`` set and ``max |lambda| h`` within
+    kernels (N <= :data:`~cavchar.models._hmm_unrolled.MAX_UNROLLED_LEVELS`),
+    ``EIGEN_GRID`` set and ``max |lambda| h`` within
     :data:`~cavchar.models.hmm_kernels.EIGEN_GRID_LIMIT` (eigenvalues in 1/s, h in s).
     The caller also requires a well-conditioned eigen basis."""
     from cavchar.models._hmm_unrolled import MAX_UNROLLED_LEVELS
