@@ -37,13 +37,11 @@ def plot_record_and_occupation(
     occupation_time : (N,) array
         Observed time fraction in each photon number 0..N-1 (all segments).
     """
-    import matplotlib.pyplot as plt
-
-    from cavchar.plots.style import apply_style
+    from cavchar.plots.style import apply_style, new_figure
 
     with apply_style():
         if fig is None:
-            fig = plt.figure(figsize=(9.0, 3.4))
+            fig = new_figure((9.0, 3.4))
         ax_t, ax_p = fig.subplots(1, 2, gridspec_kw={"width_ratios": [2.2, 1]})
         shown = slice(0, min(times.size, 2000))
         t = np.r_[times[shown], end_time if times.size <= 2000 else times[2000]]
@@ -64,7 +62,7 @@ def plot_record_and_occupation(
         ax_p.set_xlabel("photon number")
         ax_p.set_ylabel("fraction of time")
         ax_p.legend(fontsize=7)
-        fig.tight_layout()
+        fig.set_layout_engine("constrained")  # laid out in the one drawing pass of savefig
     return fig
 
 
@@ -80,15 +78,13 @@ def plot_dwell_check(
     """Empirical survival of complete dwells per photon number against the fitted
     exponential ``exp(-r_n d)`` with ``r_n = kappa (n_th (n+1) + (1+n_th) n)``
     (median and 95% band over the posterior draws)."""
-    import matplotlib.pyplot as plt
-
-    from cavchar.plots.style import apply_style
+    from cavchar.plots.style import apply_style, new_figure
 
     numbers = [int(n) for n in np.unique(states) if np.sum((states == n) & complete) >= 3]
     numbers = numbers[:max_panels]
     with apply_style():
         if fig is None:
-            fig = plt.figure(figsize=(3.0 * max(len(numbers), 1), 3.0))
+            fig = new_figure((3.0 * max(len(numbers), 1), 3.0))
         axes = np.atleast_1d(fig.subplots(1, max(len(numbers), 1)))
         kappa = 1.0 / np.asarray(lifetime_draws)
         nth = np.asarray(n_thermal_draws)
@@ -110,7 +106,7 @@ def plot_dwell_check(
             ax.set_xlabel("dwell (ms)")
         axes[0].set_ylabel("fraction longer than")
         axes[0].legend(fontsize=7)
-        fig.tight_layout()
+        fig.set_layout_engine("constrained")  # laid out in the one drawing pass of savefig
     return fig
 
 

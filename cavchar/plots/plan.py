@@ -76,5 +76,5 @@ def plot_plan(table, fig=None, amounts=None):
         ax.set_ylabel("expected relative sd [%]")
         ax.set_title(f"precision forecast ({table.attrs.get('kind', '')})")
         ax.legend(loc="upper right")
-        fig.tight_layout()
+        fig.set_layout_engine("constrained")  # laid out in the one drawing pass of savefig
     return fig

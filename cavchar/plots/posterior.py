@@ -323,14 +323,16 @@ def trace_plot(
             axes[0].legend(loc="upper right", ncol=2)
         axes[-1].set_xlabel("sampler step" if stored is not None else "draw")
         fig.align_ylabels(axes)
-        fig.tight_layout()
+        fig.set_layout_engine("constrained")  # laid out in the one drawing pass of savefig
     return fig
 
 
 def figure_bytes(fig, fmt: str = "png", dpi: float | None = None, tight: bool = True) -> bytes:
     """The figure encoded as ``png``, ``pdf`` or ``svg`` bytes.
 
-    ``tight`` crops the canvas to the drawn artists (costs a second rendering pass).
+    ``tight`` crops the canvas to the drawn artists (costs a second rendering pass); a
+    figure with a layout engine (constrained layout) is laid out while it is drawn and
+    needs no crop, so it is drawn once.
     """
     fmt = fmt.lower().lstrip(".")
     if fmt not in FIGURE_FORMATS:
@@ -338,6 +340,8 @@ def figure_bytes(fig, fmt: str = "png", dpi: float | None = None, tight: bool = 
     from cavchar.plots.style import literal_figure
 
     literal_figure(fig)  # text that cannot be typeset is drawn as it is, never a crash
+    if tight and fig.get_layout_engine() is not None:
+        tight = False
     buffer = io.BytesIO()
     metadata = {"Creator": "cavchar"} if fmt in ("pdf", "svg") else {"Software": "cavchar"}
     if fmt == "pdf":

@@ -44,10 +44,9 @@ def plot_trajectory(
     max_probes : int
         Only the first ``max_probes`` probes are drawn.
     """
-    import matplotlib.pyplot as plt
 
     from cavchar.plots.posterior import display_unit
-    from cavchar.plots.style import BAND_68, INK, apply_style, series
+    from cavchar.plots.style import BAND_68, INK, apply_style, new_figure, series
 
     n = min(int(max_probes), len(time))
     t = np.asarray(time, dtype=float)[:n]
@@ -58,7 +57,7 @@ def plot_trajectory(
     p = np.asarray(path)[:n]
     with apply_style():
         if fig is None:
-            fig = plt.figure(figsize=(9.0, 4.2))
+            fig = new_figure((9.0, 4.2))
         ax_o, ax_n = fig.subplots(2, 1, sharex=True, gridspec_kw={"height_ratios": [1, 3]})
         seen = ~np.isnan(y)
         ax_o.vlines(x[seen & (y == 1)], 0.55, 1.0, color=INK, lw=0.5)
@@ -78,7 +77,7 @@ def plot_trajectory(
         ax_n.set_xlabel(f"time since first probe ({unit})")
         ax_n.set_ylim(bottom=-0.2)
         ax_n.legend(loc="upper right")
-        fig.tight_layout()
+        fig.set_layout_engine("constrained")  # laid out in the one drawing pass of savefig
     return fig
 
 

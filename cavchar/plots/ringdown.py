@@ -82,7 +82,7 @@ def plot_trace_fit(curves: dict, signal: str, fig=None):
             bottom.set_ylabel("residual / sd")
             bottom.set_xlabel(f"time ({unit})")
         axes[0, 0].legend(loc="upper right")
-        fig.tight_layout()
+        fig.set_layout_engine("constrained")  # laid out in the one drawing pass of savefig
     return fig
 
 
@@ -113,7 +113,7 @@ def plot_populations_fit(curves: dict, max_levels: int = 6, fig=None):
         ax.set_ylabel("fraction of shots")
         ax.set_title("photon-number populations (lines: model median, bands: 95%)")
         ax.legend(ncol=2)
-        fig.tight_layout()
+        fig.set_layout_engine("constrained")  # laid out in the one drawing pass of savefig
     return fig
 
 

@@ -292,5 +292,5 @@ def comparison_figure(results: Sequence[FitResult], labels: Sequence[str]):
         axes[-1].set_xlim(-0.6, len(results) - 0.4)
         axes[0].set_title("results side by side (thick bar 68%, thin bar 95%)")
         fig.align_ylabels(axes)
-        fig.tight_layout()
+        fig.set_layout_engine("constrained")  # laid out in the one drawing pass of savefig
     return fig
