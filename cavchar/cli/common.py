@@ -14,7 +14,7 @@ if TYPE_CHECKING:
 __all__ = ["quantity", "add_output_options", "add_sampler_options", "add_fit_context_options",
            "settings_from_args", "rate_priors_from_args", "check_input_files", "check_outputs",
            "finish_fit_command", "HelpFormatter", "add_layout_options", "laid_out", "for_option",
-           "add_prior_option", "priors_from_args"]
+           "add_prior_option", "priors_from_args", "add_command"]
 
 
 class HelpFormatter(argparse.ArgumentDefaultsHelpFormatter, argparse.RawDescriptionHelpFormatter):
@@ -35,6 +35,17 @@ class HelpFormatter(argparse.ArgumentDefaultsHelpFormatter, argparse.RawDescript
                 or action.option_strings == []):
             return text
         return text + " (default: %(default)s)"
+
+
+def add_command(group: argparse._SubParsersAction, name: str, summary: str, description: str,
+                epilog: str | None = None) -> argparse.ArgumentParser:
+    """Add the sub-command ``name`` to ``group`` with the project's help layout.
+
+    ``summary`` is the one-line help shown in the parent's list, ``description``
+    the paragraph at the top of the command's own help and ``epilog`` its
+    examples; the parser shows defaults through :class:`HelpFormatter`."""
+    return group.add_parser(name, help=summary, description=description, epilog=epilog,
+                            formatter_class=HelpFormatter)
 
 
 def quantity(dimension: str, *, minimum: float | None = 0.0, positive: bool = False,

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 
 from cavchar.cli.common import (
-    HelpFormatter,
+    add_command,
     add_fit_context_options,
     add_layout_options,
     add_output_options,
@@ -32,16 +32,14 @@ probe times, where several jumps may happen between samples.
 
 
 def register_fit(kinds: argparse._SubParsersAction) -> None:
-    parser = kinds.add_parser(
-        "jumps",
-        help="exact or sampled photon-number jump records",
-        description="Posterior of the energy lifetime T_c = 1/kappa and the thermal photon "
+    """Add ``jumps`` to the ``cavchar fit`` group."""
+    parser = add_command(
+        kinds, "jumps", "exact or sampled photon-number jump records",
+        "Posterior of the energy lifetime T_c = 1/kappa and the thermal photon "
         "number n_th of a damped mode from its photon-number record, by MCMC; with the "
         "mode frequency also Q, linewidth and effective temperature, and with the stage "
         "temperature the Planck check.",
-        epilog=EXAMPLES,
-        formatter_class=HelpFormatter,
-    )
+        EXAMPLES)
     parser.add_argument("record", help="record file (CSV/TSV, .gz, NPZ, Parquet)")
     parser.add_argument("--sampled", action="store_true",
                         help="photon numbers at probe times (not exact change points)")
@@ -60,6 +58,9 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
 
 
 def handle(args: argparse.Namespace) -> int:
+    """Run ``cavchar fit jumps``.
+
+    Read the records, fit, print and write the result; return the exit code."""
     check_input_files([args.record])
     from cavchar.fits.jumps import JumpPriors, fit_jumps
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 
 from cavchar.cli.common import (
-    HelpFormatter,
+    add_command,
     add_fit_context_options,
     add_layout_options,
     add_output_options,
@@ -45,16 +45,15 @@ separately.  File formats: docs/data-formats.md; the fit: docs/ringdown.md.
 
 
 def register_fit(kinds: argparse._SubParsersAction) -> None:
-    parser = kinds.add_parser(
-        "ringdown",
-        help="ring-down traces: power, dB, magnitude, IQ, mean photon number, populations",
-        description="Posterior of the energy lifetime T_c = 1/kappa from ring-down traces by "
+    """Add ``ringdown`` to the ``cavchar fit`` group."""
+    parser = add_command(
+        kinds, "ringdown",
+        "ring-down traces: power, dB, magnitude, IQ, mean photon number, populations",
+        "Posterior of the energy lifetime T_c = 1/kappa from ring-down traces by "
         "MCMC (amplitudes, floors and unknown noise marginalized where exact), with Q, "
         "linewidth and the amplitude decay time 2 T_c; mean-n and populations also give n_th, "
         "the effective temperature and, with --stage-temp, the Planck check.",
-        epilog=EXAMPLES,
-        formatter_class=HelpFormatter,
-    )
+        EXAMPLES)
     parser.add_argument("traces", nargs="+",
                         help="trace file(s) (CSV/TSV, .gz, NPZ, Parquet); several files share "
                         "T_c")
@@ -110,6 +109,9 @@ def _initial(text: str | None):
 
 
 def handle(args: argparse.Namespace) -> int:
+    """Run ``cavchar fit ringdown``.
+
+    Read the traces, fit, print and write the result; return the exit code."""
     check_input_files(args.traces)
     from cavchar.fits.ringdown import fit_ringdown
     from cavchar.fits.ringdown_data import time_factor
