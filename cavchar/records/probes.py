@@ -9,7 +9,7 @@ from typing import NamedTuple
 
 import numpy as np
 
-from cavchar.records.base import RecordBase, readonly_array, segment_spans
+from cavchar.records.base import RecordBase, segment_spans
 
 __all__ = ["ProbeRecord", "ProbeSegment"]
 
@@ -54,10 +54,8 @@ class ProbeRecord(RecordBase):
 
     def __post_init__(self) -> None:
         self._init_common()
-        time = self._float("time", self.time, None)
+        time = self._times(hint="give at least one probe")
         m = time.size
-        if m == 0:
-            raise self._error("the record has no rows", hint="give at least one probe")
         outcome = self._float("outcome", self.outcome, m, allow_nan=True)
         bad = ~np.isnan(outcome) & (outcome != 0) & (outcome != 1)
         if bad.any():
@@ -65,19 +63,13 @@ class ProbeRecord(RecordBase):
             raise self._error(f"outcome {outcome[row]} is neither 0 nor 1", row,
                               hint="write 0 or 1, or leave the cell empty for a lost probe")
         setting = None if self.setting is None else self._float("setting", self.setting, m)
-        segment, ids, bounds = self._groups("segment", self.segment, m)
-        self._increasing(time, bounds, "segment")
-        for name, value in (("time", time), ("outcome", outcome), ("setting", setting),
-                            ("segment", segment), ("segment_ids", ids), ("bounds", bounds)):
-            object.__setattr__(self, name, None if value is None
-                               else readonly_array(value, getattr(self, name, None)))
+        segment, ids, bounds = self._ordered_groups("segment", self.segment, time)
+        self._freeze(time=time, outcome=outcome, setting=setting, segment=segment,
+                     segment_ids=ids, bounds=bounds)
 
     def __repr__(self) -> str:
         return (f"ProbeRecord({self.time.size} probes, {self.n_lost} lost, "
                 f"{self.segment_ids.size} segment(s), source={self.source!r})")
-
-    def __len__(self) -> int:
-        return int(self.time.size)
 
     @property
     def n_segments(self) -> int:
