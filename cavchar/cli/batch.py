@@ -20,23 +20,34 @@ Exit codes: 0 every entry has a result, 2 bad batch file (nothing fitted),
 """
 
 
+DESCRIPTION = """
+Fit every record listed in a batch file (TOML) in parallel on a local Dask cluster (one
+single-threaded worker process per core) or an existing Dask cluster, with one output folder per
+entry, a summary table and an overview report.
+"""
+
+CHECK_DESCRIPTION = """
+Read the batch file and report every bad entry at once (missing file, unknown option, bad unit
+or prior, missing response table) with its line; exit 2 if there is any.
+"""
+
+RUN_DESCRIPTION = """
+Fit every entry; failures stay per entry.  Entries done before with the same inputs and settings
+are skipped (--force refits them).
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add ``batch`` (with its actions ``check`` and ``run``) to the sub-commands."""
     parser = add_command(
         subparsers, "batch",
         "fit many records from one batch file, on this machine or a Dask cluster",
-        "Fit every record listed in a batch file (TOML) in parallel on a local "
-        "Dask cluster (one single-threaded worker process per core) or an existing Dask "
-        "cluster, with one output folder per entry, a summary table and an overview report.",
-        EXAMPLES)
+        DESCRIPTION, EXAMPLES)
     actions = parser.add_subparsers(dest="batch_command", metavar="ACTION")
 
     check = add_command(
-        actions, "check", "check every entry of a batch file, fit nothing",
-        "Read the batch file and report every bad entry at once (missing file, "
-        "unknown option, bad unit or prior, missing response table) with its line; exit 2 "
-        "if there is any.",
-        EXAMPLES)
+        actions, "check",
+        "check every entry of a batch file, fit nothing", CHECK_DESCRIPTION, EXAMPLES)
     check.add_argument("batch_file", help="the batch file (TOML, see docs/batch.md)")
     check.add_argument("--log", action="store_true",
                        help="also check that every entry has a cavity and a cooldown")
@@ -44,11 +55,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                        help="batch seed (default: the file's seed, else 1)")
     check.set_defaults(func=handle_check)
 
-    run = add_command(
-        actions, "run", "fit every entry of a batch file",
-        "Fit every entry; failures stay per entry.  Entries done before with "
-        "the same inputs and settings are skipped (--force refits them).",
-        EXAMPLES)
+    run = add_command(actions, "run", "fit every entry of a batch file", RUN_DESCRIPTION, EXAMPLES)
     run.add_argument("batch_file", help="the batch file (TOML, see docs/batch.md)")
     run.add_argument("-o", "--out", metavar="DIR", default=None,
                      help="output folder (default: <batch file name>-results in the current "

@@ -31,15 +31,19 @@ With -o DIR: budget.json and budget.png.
 """
 
 
+DESCRIPTION = """
+Fit n_th measured at several stage temperatures [K] with a two-bath model (or the stage
+occupation plus a constant excess when the hot bath's temperature is not identifiable), with
+credible intervals by MCMC.
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add ``budget`` (thermal budget fit over stage temperatures) to the sub-commands."""
     parser = add_command(
-        subparsers, "budget", "thermal budget: hot because the stage is warm, or because something "
-        "hot leaks in?",
-        "Fit n_th measured at several stage temperatures [K] with a two-bath "
-        "model (or the stage occupation plus a constant excess when the hot bath's "
-        "temperature is not identifiable), with credible intervals by MCMC.",
-        EXAMPLES)
+        subparsers, "budget",
+        "thermal budget: hot because the stage is warm, or because something "
+        "hot leaks in?", DESCRIPTION, EXAMPLES)
     add_log_file_option(parser)
     parser.add_argument("--cavity", default=None, help="cavity name (data from the log)")
     parser.add_argument("--cooldown", action="append", default=None,

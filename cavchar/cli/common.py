@@ -42,9 +42,12 @@ def add_command(group: argparse._SubParsersAction, name: str, summary: str, desc
     """Add the sub-command ``name`` to ``group`` with the project's help layout.
 
     ``summary`` is the one-line help shown in the parent's list, ``description``
-    the paragraph at the top of the command's own help and ``epilog`` its
-    examples; the parser shows defaults through :class:`HelpFormatter`."""
-    return group.add_parser(name, help=summary, description=description, epilog=epilog,
+    the paragraph at the top of the command's own help (it may be written wrapped
+    over several lines; they are joined with single spaces) and ``epilog`` its
+    examples, kept as laid out; the parser shows defaults through
+    :class:`HelpFormatter`."""
+    paragraph = " ".join(line.strip() for line in description.strip().splitlines())
+    return group.add_parser(name, help=summary, description=paragraph, epilog=epilog,
                             formatter_class=HelpFormatter)
 
 

@@ -22,14 +22,17 @@ the mirror set against an example spec (spec.toml) and fits the thermal budget.
 """
 
 
+DESCRIPTION = """
+Simulate an invented data set, fit it, log it, follow the trend, qualify against an example
+spec, fit the thermal budget and write one self-contained HTML report.
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add ``demo`` (the whole job on an invented scenario) to the sub-commands."""
     parser = add_command(
-        subparsers, "demo", "run the whole job on an invented scenario and write an HTML report",
-        "Simulate an invented data set, fit it, log it, follow the trend, "
-        "qualify against an example spec, fit the thermal budget and write one "
-        "self-contained HTML report.",
-        EXAMPLES)
+        subparsers, "demo",
+        "run the whole job on an invented scenario and write an HTML report", DESCRIPTION, EXAMPLES)
     parser.add_argument("-o", "--out", metavar="DIR", default="cavchar-demo",
                         help="folder for the data, results, log, spec and report")
     parser.add_argument("--quick", action="store_true",

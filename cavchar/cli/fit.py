@@ -15,6 +15,7 @@ from cavchar.cli.common import add_command
 FIT_MODULES = ("fit_jumps", "fit_probes", "fit_ringdown")
 
 
+
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add ``fit`` and one sub-command per record kind (``FIT_MODULES``) to the sub-commands."""
     parser = add_command(

@@ -31,15 +31,18 @@ probe times, where several jumps may happen between samples.
 """
 
 
+DESCRIPTION = """
+Posterior of the energy lifetime T_c = 1/kappa and the thermal photon number n_th of a damped
+mode from its photon-number record, by MCMC; with the mode frequency also Q, linewidth and
+effective temperature, and with the stage temperature the Planck check.
+"""
+
+
 def register_fit(kinds: argparse._SubParsersAction) -> None:
     """Add ``jumps`` to the ``cavchar fit`` group."""
     parser = add_command(
-        kinds, "jumps", "exact or sampled photon-number jump records",
-        "Posterior of the energy lifetime T_c = 1/kappa and the thermal photon "
-        "number n_th of a damped mode from its photon-number record, by MCMC; with the "
-        "mode frequency also Q, linewidth and effective temperature, and with the stage "
-        "temperature the Planck check.",
-        EXAMPLES)
+        kinds, "jumps",
+        "exact or sampled photon-number jump records", DESCRIPTION, EXAMPLES)
     parser.add_argument("record", help="record file (CSV/TSV, .gz, NPZ, Parquet)")
     parser.add_argument("--sampled", action="store_true",
                         help="photon numbers at probe times (not exact change points)")

@@ -60,16 +60,19 @@ _FRINGE_OPTIONS = (
 )
 
 
+DESCRIPTION = """
+Posterior of the energy lifetime T_c = 1/kappa, the thermal photon number n_th and any fitted
+response parameters from the raw outcome of every probe, through a hidden Markov model of the
+photon number; with the mode frequency also Q, linewidth and effective temperature, with the
+stage temperature the Planck check.  Also reconstructs the photon-number trajectory.
+"""
+
+
 def register_fit(kinds: argparse._SubParsersAction) -> None:
     """Add ``probes`` to the ``cavchar fit`` group."""
     parser = add_command(
-        kinds, "probes", "raw QND probe records (0/1 outcome per probe)",
-        "Posterior of the energy lifetime T_c = 1/kappa, the thermal photon "
-        "number n_th and any fitted response parameters from the raw outcome of every "
-        "probe, through a hidden Markov model of the photon number; with the mode "
-        "frequency also Q, linewidth and effective temperature, with the stage "
-        "temperature the Planck check.  Also reconstructs the photon-number trajectory.",
-        EXAMPLES)
+        kinds, "probes",
+        "raw QND probe records (0/1 outcome per probe)", DESCRIPTION, EXAMPLES)
     parser.add_argument("record", help="probe-record file (CSV/TSV, .gz, NPZ, Parquet)")
     parser.add_argument("--response", choices=("fringe", "table"), default=None,
                         help="probe response model; unset: table when --response-table is "

@@ -44,16 +44,20 @@ separately.  File formats: docs/data-formats.md; the fit: docs/ringdown.md.
 """
 
 
+DESCRIPTION = """
+Posterior of the energy lifetime T_c = 1/kappa from ring-down traces by MCMC (amplitudes, floors
+and unknown noise marginalized where exact), with Q, linewidth and the amplitude decay time 2
+T_c; mean-n and populations also give n_th, the effective temperature and, with --stage-temp,
+the Planck check.
+"""
+
+
 def register_fit(kinds: argparse._SubParsersAction) -> None:
     """Add ``ringdown`` to the ``cavchar fit`` group."""
     parser = add_command(
         kinds, "ringdown",
         "ring-down traces: power, dB, magnitude, IQ, mean photon number, populations",
-        "Posterior of the energy lifetime T_c = 1/kappa from ring-down traces by "
-        "MCMC (amplitudes, floors and unknown noise marginalized where exact), with Q, "
-        "linewidth and the amplitude decay time 2 T_c; mean-n and populations also give n_th, "
-        "the effective temperature and, with --stage-temp, the Planck check.",
-        EXAMPLES)
+        DESCRIPTION, EXAMPLES)
     parser.add_argument("traces", nargs="+",
                         help="trace file(s) (CSV/TSV, .gz, NPZ, Parquet); several files share "
                         "T_c")

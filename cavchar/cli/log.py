@@ -125,14 +125,17 @@ def log_from_args(result: FitResult, args: argparse.Namespace) -> int | None:
     return fit_id
 
 
+DESCRIPTION = """
+Keep fits of each cavity across cooldowns in an SQLite log, with a compact copy of the posterior
+draws of lifetime [s], n_th and effective temperature [K] for later comparisons.
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add ``log`` (the cooldown log and its actions) to the sub-commands."""
     parser = add_command(
-        subparsers, "log", "cooldown log: cavities, cooldowns and logged fits",
-        "Keep fits of each cavity across cooldowns in an SQLite log, with a "
-        "compact copy of the posterior draws of lifetime [s], n_th and effective "
-        "temperature [K] for later comparisons.",
-        EXAMPLES)
+        subparsers, "log",
+        "cooldown log: cavities, cooldowns and logged fits", DESCRIPTION, EXAMPLES)
     actions = parser.add_subparsers(dest="log_action", metavar="ACTION")
 
     def sub(name: str, help_text: str) -> argparse.ArgumentParser:

@@ -88,22 +88,38 @@ def _common(parser: argparse.ArgumentParser, n_thermal_required: bool = True) ->
     add_output_options(parser)
 
 
+DESCRIPTION = """
+Forecast the precision of T_c, n_th (and Q, T_eff) from the Fisher information (Cramér–Rao
+bound) of the likelihood the fits use, for a target relative sd (needed amount of data) or a
+given amount (expected sd); confirmed by a short simulate-and-fit study.  All times in s unless
+a unit is given.
+"""
+
+JUMPS_DESCRIPTION = """
+Record length for a jump record (exact change points, or the photon number read every
+--sample-interval).
+"""
+
+PROBES_DESCRIPTION = """
+Number of probes for a raw probe record with a Ramsey-fringe response (or a calibrated
+table).  The information per probe is estimated on long simulated records; the perfect-readout
+column is the bound of a readout that reveals the photon number.
+"""
+
+RINGDOWN_DESCRIPTION = """
+Number of averaged (or jointly fitted) ring-down traces.  Noise is per point of one trace (dB
+for db; per quadrature for iq and amplitude).
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add ``plan`` (precision forecasts for jumps, probes and ring-down) to the sub-commands."""
     parser = add_command(
-        subparsers, "plan", "how much data a target precision needs (or the reverse)",
-        "Forecast the precision of T_c, n_th (and Q, T_eff) from the Fisher "
-        "information (Cramér–Rao bound) of the likelihood the fits use, for a target "
-        "relative sd (needed amount of data) or a given amount (expected sd); confirmed by "
-        "a short simulate-and-fit study.  All times in s unless a unit is given.",
-        EXAMPLES)
+        subparsers, "plan",
+        "how much data a target precision needs (or the reverse)", DESCRIPTION, EXAMPLES)
     kinds = parser.add_subparsers(dest="plan_kind", metavar="KIND")
 
-    jumps = add_command(
-        kinds, "jumps", "photon-number jump records",
-        "Record length for a jump record (exact change "
-        "points, or the photon number read every --sample-interval).",
-        EXAMPLES)
+    jumps = add_command(kinds, "jumps", "photon-number jump records", JUMPS_DESCRIPTION, EXAMPLES)
     _common(jumps)
     jumps.add_argument("--record-length", type=TIME, default=None,
                        help="forecast the precision of this total record length, e.g. 2min")
@@ -112,13 +128,8 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     jumps.set_defaults(func=handle)
 
     probes = add_command(
-        kinds, "probes", "raw QND probe records (hidden Markov model)",
-        "Number of probes for a raw probe record with a "
-        "Ramsey-fringe response (or a calibrated table).  The "
-        "information per probe is estimated on long simulated records; "
-        "the perfect-readout column is the bound of a readout that "
-        "reveals the photon number.",
-        EXAMPLES)
+        kinds, "probes",
+        "raw QND probe records (hidden Markov model)", PROBES_DESCRIPTION, EXAMPLES)
     _common(probes)
     probes.add_argument("--probe-interval", type=TIME, required=True,
                         help="time between probes, e.g. 20us")
@@ -144,12 +155,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                         help="probability a probe is lost")
     probes.set_defaults(func=handle)
 
-    ring = add_command(
-        kinds, "ringdown", "ring-down traces",
-        "Number of averaged (or jointly fitted) ring-down "
-        "traces.  Noise is per point of one trace (dB for db; per "
-        "quadrature for iq and amplitude).",
-        EXAMPLES)
+    ring = add_command(kinds, "ringdown", "ring-down traces", RINGDOWN_DESCRIPTION, EXAMPLES)
     _common(ring, n_thermal_required=False)
     ring.add_argument("--signal", required=True, type=_signal_word,
                       choices=("power", "db", "amplitude", "iq", "mean-n", "populations"),

@@ -42,15 +42,18 @@ Exit code 0 all PASS, 4 any FAIL, 5 otherwise any UNDECIDED (2 bad input).
 """
 
 
+DESCRIPTION = """
+Judge each requirement of a spec file from the posterior draws of a logged fit (or a result
+file): the posterior probability that it is met, against its credibility level.
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add ``qualify`` (PASS / FAIL / UNDECIDED against a spec) to the sub-commands."""
     parser = add_command(
         subparsers, "qualify",
         "check a cavity against a spec: PASS / FAIL / UNDECIDED (exit 0/4/5)",
-        "Judge each requirement of a spec file from the posterior draws of a "
-        "logged fit (or a result file): the posterior probability that it is met, against "
-        "its credibility level.",
-        EXAMPLES)
+        DESCRIPTION, EXAMPLES)
     parser.add_argument("spec", metavar="SPEC.toml", help="spec file")
     add_log_file_option(parser)
     parser.add_argument("--cavity", default=None, help="cavity name (data from the log)")

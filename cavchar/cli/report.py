@@ -19,16 +19,19 @@ are equal-tailed 68% and 95% credible intervals of the posterior draws.
 """
 
 
+DESCRIPTION = """
+Write one HTML file with the summary (lifetime, Q, linewidth, n_th, effective temperature with
+68% and 95% intervals), the Planck check in words, the data with the fit, model checks, corner
+plot, chain traces, convergence diagnostics and provenance of each result; with several results
+also a comparison.
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add ``report`` (self-contained HTML report of result files) to the sub-commands."""
     parser = add_command(
-        subparsers, "report", "self-contained HTML report of fit results",
-        "Write one HTML file with the summary (lifetime, Q, linewidth, n_th, "
-        "effective temperature with 68% and 95% intervals), the Planck check in words, "
-        "the data with the fit, model checks, corner plot, chain traces, convergence "
-        "diagnostics and provenance of each result; with several results also a "
-        "comparison.",
-        EXAMPLES)
+        subparsers, "report",
+        "self-contained HTML report of fit results", DESCRIPTION, EXAMPLES)
     parser.add_argument("results", nargs="+", metavar="RESULT.json",
                         help="result files written by `cavchar fit ... -o DIR`")
     parser.add_argument("-o", "--out", required=True, metavar="FILE",

@@ -51,15 +51,19 @@ HELP = {
 }
 
 
+DESCRIPTION = """
+Simulate a thermally damped cavity mode (up rate kappa n_th (n+1), down rate kappa (1+n_th) n,
+kappa = 1/lifetime) and write the data in the formats 'cavchar fit' reads (see
+docs/data-formats.md).  Same seed, same file.
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add ``simulate`` and one sub-command per record shape to the sub-commands."""
     parser = add_command(
         subparsers, "simulate",
         "write invented, seeded data files (jumps, sampled, probes, ringdown)",
-        "Simulate a thermally damped cavity mode (up rate kappa n_th (n+1), down "
-        "rate kappa (1+n_th) n, kappa = 1/lifetime) and write the data in the formats "
-        "'cavchar fit' reads (see docs/data-formats.md).  Same seed, same file.",
-        "Run 'cavchar simulate SHAPE --help' for the options of each shape.")
+        DESCRIPTION, "Run 'cavchar simulate SHAPE --help' for the options of each shape.")
     shapes = parser.add_subparsers(dest="shape", metavar="SHAPE")
     for shape in ("jumps", "sampled", "probes", "ringdown"):
         sub = add_command(

@@ -15,15 +15,19 @@ EXAMPLES = """examples:
 """
 
 
+DESCRIPTION = """
+Mean thermal photon number n = 1/(exp(h nu / k_B T) - 1) of a mode at frequency nu, and the
+effective temperature T_eff = h nu / (k_B ln(1 + 1/n)) of a measured n_th.  Constants are exact
+(2019 SI).
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add ``thermal`` (Planck occupation and effective temperature) to the sub-commands."""
     parser = add_command(
         subparsers, "thermal",
         "Planck occupation of a mode and its inverse, the effective temperature",
-        "Mean thermal photon number n = 1/(exp(h nu / k_B T) - 1) of a mode at "
-        "frequency nu, and the effective temperature T_eff = h nu / (k_B ln(1 + 1/n)) of a "
-        "measured n_th.  Constants are exact (2019 SI).",
-        EXAMPLES)
+        DESCRIPTION, EXAMPLES)
     parser.add_argument("--freq", type=quantity("frequency", positive=True), required=True,
                         help="mode frequency, e.g. 6.8GHz")
     parser.add_argument("--temp", type=quantity("temperature"), action="append", default=None,

@@ -40,17 +40,20 @@ def parse_fraction(text: str) -> float:
     return value
 
 
+DESCRIPTION = """
+Trend of one or more cavities across cooldowns from the cooldown log: median and 95% intervals
+of the lifetime [s], n_th and effective temperature [K] from the fits that stand for each
+cooldown (named in every row), and the posterior probability that the lifetime fell by more than
+a fraction relative to a reference cooldown.
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
     """Add ``trend`` (lifetime, n_th and T_eff per cooldown) to the sub-commands."""
     parser = add_command(
-        subparsers, "trend", "lifetime, n_th and effective temperature per cooldown, with the "
-        "probability that the lifetime fell; several cavities side by side",
-        "Trend of one or more cavities across cooldowns from the cooldown log: "
-        "median and 95% intervals of the lifetime [s], n_th and effective temperature [K] "
-        "from the fits that stand for each cooldown (named in every row), and the posterior "
-        "probability that the lifetime fell by more than a fraction relative to a reference "
-        "cooldown.",
-        EXAMPLES)
+        subparsers, "trend",
+        "lifetime, n_th and effective temperature per cooldown, with the "
+        "probability that the lifetime fell; several cavities side by side", DESCRIPTION, EXAMPLES)
     add_log_file_option(parser)
     parser.add_argument("--cavity", required=True, action="append",
                         help="cavity name (repeat to compare cavities side by side)")
