@@ -173,6 +173,7 @@ class JumpRecord(RecordBase):
 
     @property
     def n_segments(self) -> int:
+        """Number of segments."""
         return int(self.segment_ids.size)
 
     @property
@@ -189,6 +190,7 @@ class JumpRecord(RecordBase):
 
     @property
     def max_photons(self) -> int:
+        """Largest photon number in the record."""
         return int(self.photons.max())
 
     def dwell_times(self) -> np.ndarray:
@@ -249,10 +251,12 @@ class SampledRecord(RecordBase):
 
     @property
     def n_segments(self) -> int:
+        """Number of segments."""
         return int(self.segment_ids.size)
 
     @property
     def max_photons(self) -> int:
+        """Largest photon number in the record."""
         return int(self.photons.max())
 
     def segments(self) -> list[SampledSegment]:

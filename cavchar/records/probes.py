@@ -73,10 +73,12 @@ class ProbeRecord(RecordBase):
 
     @property
     def n_segments(self) -> int:
+        """Number of segments."""
         return int(self.segment_ids.size)
 
     @property
     def n_lost(self) -> int:
+        """Number of lost probes (NaN outcome)."""
         return int(np.count_nonzero(np.isnan(self.outcome)))
 
     @property

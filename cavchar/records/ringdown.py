@@ -147,6 +147,7 @@ class RingdownTrace(RecordBase):
 
     @property
     def n_traces(self) -> int:
+        """Number of traces."""
         return int(self.trace_ids.size)
 
     @property

@@ -73,6 +73,7 @@ class DecibelDecay:
 
     @property
     def ndim(self) -> int:
+        """Number of sampled parameters: lifetime (s), amplitude and floor (linear power units)."""
         return 3
 
     def _least_squares(self) -> np.ndarray:
@@ -92,6 +93,7 @@ class DecibelDecay:
         return np.exp(sol.x)
 
     def initial_guess(self) -> np.ndarray:
+        """The least-squares start ``(T_c, A, F)``, a copy."""
         return self.start.copy()
 
     def _rss(self, theta: np.ndarray) -> np.ndarray:

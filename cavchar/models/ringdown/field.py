@@ -97,6 +97,7 @@ class MagnitudeDecay:
 
     @property
     def ndim(self) -> int:
+        """Number of sampled parameters: lifetime, amplitude and, when unknown, sigma."""
         return 3 if self.fitted_sigma else 2
 
     def _least_squares(self) -> np.ndarray:
@@ -117,6 +118,7 @@ class MagnitudeDecay:
         return np.exp(x)
 
     def initial_guess(self) -> np.ndarray:
+        """The least-squares start ``(T_c, a[, sigma])``, a copy."""
         return self.start.copy()
 
     def log_likelihood(self, theta: np.ndarray) -> np.ndarray:
@@ -141,6 +143,7 @@ class MagnitudeDecay:
     __call__ = log_likelihood
 
     def draw_nuisance(self, draws: np.ndarray, rng: np.random.Generator) -> dict:
+        """Nothing is marginalized analytically in this model: an empty dict."""
         return {}
 
     def expected(self, theta: np.ndarray) -> list[np.ndarray]:
@@ -219,9 +222,11 @@ class IQDecay:
 
     @property
     def ndim(self) -> int:
+        """Number of sampled parameters: lifetime, detuning and, when unknown, sigma."""
         return 3 if self.fitted_sigma else 2
 
     def initial_guess(self) -> np.ndarray:
+        """The least-squares start ``(T_c, delta[, sigma])``, a copy."""
         return self.start.copy()
 
     def _needed_limit(self, lifetime: float, detuning: float) -> float:
@@ -358,6 +363,7 @@ class IQDecay:
         return [p["alpha"][0] * phi + p["offset"][0]]
 
     def noise_scale(self, theta: np.ndarray) -> list[np.ndarray]:
+        """Per-quadrature noise sd of each point at ``theta`` (one array per trace)."""
         theta = np.asarray(theta, dtype=float)
         if self.fitted_sigma:
             return [np.full(self.tau.size, theta[2])]

@@ -111,9 +111,11 @@ class MeanPhotonDecay:
 
     @property
     def ndim(self) -> int:
+        """Number of sampled parameters: lifetime (s) and n_th."""
         return 2
 
     def initial_guess(self) -> np.ndarray:
+        """The least-squares start ``(T_c, n_th)``, a copy."""
         return self.start.copy()
 
     def _pieces(self, j: int, rate: np.ndarray, n_th: np.ndarray, direct: bool = False) -> dict:
@@ -178,6 +180,10 @@ class MeanPhotonDecay:
         return out
 
     def expected(self, theta: np.ndarray) -> list[np.ndarray]:
+        """Mean photon number ``n_th + a exp(-tau/T_c)`` of each trace at ``theta``.
+
+        The amplitude ``a`` is the least-squares value given ``theta`` (``n0 - n_th``
+        when ``n0`` is fixed)."""
         theta = np.asarray(theta, dtype=float)
         out = []
         for j, s in enumerate(self.series):
@@ -187,6 +193,7 @@ class MeanPhotonDecay:
         return out
 
     def noise_scale(self, theta: np.ndarray) -> list[np.ndarray]:
+        """Noise sd of each point at ``theta`` (one array per trace; stated or estimated)."""
         theta = np.asarray(theta, dtype=float)
         out = []
         for j, s in enumerate(self.series):
@@ -291,9 +298,11 @@ class PopulationDecay:
 
     @property
     def ndim(self) -> int:
+        """Number of sampled parameters: lifetime (s) and n_th."""
         return 2
 
     def initial_guess(self) -> np.ndarray:
+        """The least-squares start ``(T_c, n_th)``, a copy."""
         return self.start.copy()
 
     def populations(self, theta: np.ndarray) -> np.ndarray:
@@ -328,6 +337,7 @@ class PopulationDecay:
     __call__ = log_likelihood
 
     def draw_nuisance(self, draws: np.ndarray, rng: np.random.Generator) -> dict:
+        """Nothing is marginalized analytically in this model: an empty dict."""
         return {}
 
     def expected(self, theta: np.ndarray) -> list[np.ndarray]:

@@ -219,14 +219,17 @@ class PowerDecay:
 
     @property
     def rate_hat(self) -> float:
+        """Least-squares decay rate of the power in 1/s (shared rate for several traces)."""
         start = self.start
         return float(start.rates[0]) if len(self.series) == 1 else float(start.rate)
 
     @property
     def ndim(self) -> int:
+        """One sampled parameter, the lifetime (amplitudes and floors are marginalized)."""
         return 1
 
     def initial_guess(self) -> np.ndarray:
+        """The start ``(T_c,)`` with ``T_c = 1 / rate_hat`` in s."""
         return np.array([1.0 / self.rate_hat])
 
     def _pieces(self, j: int, rate: np.ndarray, direct: bool = False) -> dict:

@@ -56,10 +56,12 @@ class DecaySeries:
 
     @property
     def n(self) -> int:
+        """Number of points."""
         return int(self.tau.size)
 
     @property
     def span(self) -> float:
+        """Time spanned by the points (s), 0 for an empty series."""
         return float(np.ptp(self.tau)) if self.tau.size else 0.0
 
     def weights(self) -> np.ndarray:
