@@ -25,7 +25,7 @@ from scipy import optimize, special
 
 from cavchar.models.ringdown.least_squares import fit_exponentials
 from cavchar.models.ringdown.power import default_lifetime_bounds
-from cavchar.models.ringdown.series import DecaySeries, as_batch, default_spec
+from cavchar.models.ringdown.series import DecayModel, DecaySeries, as_batch, default_spec
 
 __all__ = ["DecibelDecay", "db_model"]
 
@@ -37,7 +37,7 @@ def db_model(tau: np.ndarray, lifetime, amplitude, floor) -> np.ndarray:
     return 10.0 * np.log10(amplitude * np.exp(-tau / lifetime) + floor)
 
 
-class DecibelDecay:
+class DecibelDecay(DecayModel):
     """Exponential decay with floor observed in dB (module docstring).
 
     Parameters
@@ -71,11 +71,6 @@ class DecibelDecay:
             default_spec("floor", "", "F", 1e-9 * base, 1e3 * peak, True),
         )
 
-    @property
-    def ndim(self) -> int:
-        """Number of sampled parameters: lifetime (s), amplitude and floor (linear power units)."""
-        return 3
-
     def _least_squares(self) -> np.ndarray:
         """Start: linear-power fit (relative weights), then least squares in dB."""
         power = 10 ** (self.y / 10)
@@ -91,10 +86,6 @@ class DecibelDecay:
 
         sol = optimize.least_squares(resid, x0, method="lm", xtol=1e-12, ftol=1e-12)
         return np.exp(sol.x)
-
-    def initial_guess(self) -> np.ndarray:
-        """The least-squares start ``(T_c, A, F)``, a copy."""
-        return self.start.copy()
 
     def _rss(self, theta: np.ndarray) -> np.ndarray:
         out = np.empty(theta.shape[0])

@@ -57,6 +57,7 @@ from cavchar.models.ringdown.exponential_sums import ExponentialSums
 from cavchar.models.ringdown.least_squares import fit_exponentials
 from cavchar.models.ringdown.power import default_lifetime_bounds
 from cavchar.models.ringdown.series import (
+    DecayModel,
     DecaySeries,
     amplitude_bound,
     as_batch,
@@ -68,7 +69,7 @@ __all__ = ["rice_logpdf", "MagnitudeDecay", "IQDecay"]
 _BLOCK = 2_000_000
 
 
-class MagnitudeDecay:
+class MagnitudeDecay(DecayModel):
     """Field magnitudes with Rice noise; see the module docstring.
 
     Parameters
@@ -84,7 +85,6 @@ class MagnitudeDecay:
         self.tau = np.asarray(series.tau, dtype=float)
         self.m = np.asarray(series.values, dtype=float)
         self.fitted_sigma = series.sigma is None
-        self.start = self._least_squares()
         low, high = default_lifetime_bounds([series])
         top = float(self.m.max())
         params = [
@@ -94,11 +94,7 @@ class MagnitudeDecay:
         if self.fitted_sigma:
             params.append(default_spec("sigma", "", "sigma", 1e-6 * top, 1e2 * top, True))
         self.specs = tuple(params)
-
-    @property
-    def ndim(self) -> int:
-        """Number of sampled parameters: lifetime, amplitude and, when unknown, sigma."""
-        return 3 if self.fitted_sigma else 2
+        self.start = self._least_squares()  # evaluates the likelihood: after the specs
 
     def _least_squares(self) -> np.ndarray:
         """Start from the power ``m^2``: ``E[m^2] = nu^2 + 2 sigma^2`` decays with ``T_c``."""
@@ -116,10 +112,6 @@ class MagnitudeDecay:
                                 options={"xatol": 1e-8, "fatol": 1e-8, "maxiter": 4000})
         x = sol.x if np.isfinite(sol.fun) else x0
         return np.exp(x)
-
-    def initial_guess(self) -> np.ndarray:
-        """The least-squares start ``(T_c, a[, sigma])``, a copy."""
-        return self.start.copy()
 
     def log_likelihood(self, theta: np.ndarray) -> np.ndarray:
         """(k, ndim) -> (k,), columns lifetime, amplitude[, sigma]."""
@@ -142,10 +134,6 @@ class MagnitudeDecay:
 
     __call__ = log_likelihood
 
-    def draw_nuisance(self, draws: np.ndarray, rng: np.random.Generator) -> dict:
-        """Nothing is marginalized analytically in this model: an empty dict."""
-        return {}
-
     def expected(self, theta: np.ndarray) -> list[np.ndarray]:
         """Mean magnitude ``E[m]`` of the Rice law at ``theta`` (Rice 1945)."""
         theta = np.asarray(theta, dtype=float)
@@ -166,7 +154,7 @@ class MagnitudeDecay:
         return [np.sqrt(np.maximum(2 * sig * sig + nu * nu - mean * mean, 1e-300))]
 
 
-class IQDecay:
+class IQDecay(DecayModel):
     """Complex IQ ring-down with detuning; amplitude and offset marginalized (module docstring).
 
     Parameters
@@ -219,15 +207,6 @@ class IQDecay:
         if self.fitted_sigma:
             params.append(default_spec("sigma", "", "sigma", 1e-6 * top, 1e2 * top, True))
         self.specs = tuple(params)
-
-    @property
-    def ndim(self) -> int:
-        """Number of sampled parameters: lifetime, detuning and, when unknown, sigma."""
-        return 3 if self.fitted_sigma else 2
-
-    def initial_guess(self) -> np.ndarray:
-        """The least-squares start ``(T_c, delta[, sigma])``, a copy."""
-        return self.start.copy()
 
     def _needed_limit(self, lifetime: float, detuning: float) -> float:
         """Rates the posterior needs, ``1/T_c`` and ``|s|``, with headroom for ``T_c``

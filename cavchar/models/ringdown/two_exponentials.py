@@ -18,7 +18,13 @@ from scipy import special
 from cavchar.models.ringdown.exponential_sums import ExponentialSums
 from cavchar.models.ringdown.least_squares import fit_exponentials
 from cavchar.models.ringdown.power import default_lifetime_bounds
-from cavchar.models.ringdown.series import DecaySeries, amplitude_bound, as_batch, default_spec
+from cavchar.models.ringdown.series import (
+    DecayModel,
+    DecaySeries,
+    amplitude_bound,
+    as_batch,
+    default_spec,
+)
 
 __all__ = ["TwoExponentialPower", "ModelComparison", "compare_exponentials"]
 
@@ -43,7 +49,7 @@ def _floor_profiled_rss(rates1, rates2, amps1, amps2, tau, w, y
     return out
 
 
-class TwoExponentialPower:
+class TwoExponentialPower(DecayModel):
     """``A_1 e^{-tau/T_1} + A_2 e^{-tau/T_2} + F`` on one trace, ``T_1 > T_2``.
 
     Sampled: ``lifetime`` (the slower, ``T_1``), ``lifetime_fast`` (``T_2``) in s and
@@ -87,11 +93,6 @@ class TwoExponentialPower:
         else:
             self._const = (0.5 * math.log(2 * math.pi)
                            - 0.5 * float(np.sum(np.log(2 * math.pi * series.sigma**2))))
-
-    @property
-    def ndim(self) -> int:
-        """Four sampled parameters: the two lifetimes (s) and their amplitudes."""
-        return 4
 
     def initial_guess(self) -> np.ndarray:
         """The least-squares start ``(T_1, T_2, A_1, A_2)`` (amplitudes kept positive)."""
