@@ -49,10 +49,8 @@ class DecibelDecay(DecayModel):
     signal = "db"
 
     def __init__(self, series: DecaySeries) -> None:
-        self.series = series
-        self.tau = np.asarray(series.tau, dtype=float)
+        self._hold(series)
         self.y = np.asarray(series.values, dtype=float)
-        self.fitted_sigma = series.sigma is None
         n = series.n
         if self.fitted_sigma:
             self._const = (special.gammaln(n / 2) + (n / 2 - 1) * math.log(2)

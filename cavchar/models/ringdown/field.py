@@ -81,10 +81,8 @@ class MagnitudeDecay(DecayModel):
     signal = "amplitude"
 
     def __init__(self, series: DecaySeries) -> None:
-        self.series = series
-        self.tau = np.asarray(series.tau, dtype=float)
+        self._hold(series)
         self.m = np.asarray(series.values, dtype=float)
-        self.fitted_sigma = series.sigma is None
         low, high = default_lifetime_bounds([series])
         top = float(self.m.max())
         params = [
@@ -172,10 +170,8 @@ class IQDecay(DecayModel):
 
     def __init__(self, series: DecaySeries, *, alpha_max: float | None = None,
                  compress: bool = True) -> None:
-        self.series = series
-        self.tau = np.asarray(series.tau, dtype=float)
+        self._hold(series)
         self.z = np.asarray(series.values, dtype=complex)
-        self.fitted_sigma = series.sigma is None
         self.alpha_max = float(alpha_max if alpha_max is not None
                                else amplitude_bound(np.abs(self.z)))
         self.weights = series.weights()

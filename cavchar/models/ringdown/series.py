@@ -181,6 +181,13 @@ class DecayModel:
         """The least-squares start, shape ``(ndim,)`` in physical units (a copy)."""
         return self.start.copy()
 
+    def _hold(self, series: DecaySeries) -> None:
+        """Keep one trace: ``series``, its delays ``tau`` in s (float array) and whether its
+        noise sigma is unknown (then fitted)."""
+        self.series = series
+        self.tau = np.asarray(series.tau, dtype=float)
+        self.fitted_sigma = series.sigma is None
+
     def draw_nuisance(self, draws: np.ndarray, rng: np.random.Generator) -> dict:
         """Exact conditional draws of the analytically marginalized parameters; a model
         that marginalizes none returns an empty dict."""
