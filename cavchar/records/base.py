@@ -8,7 +8,8 @@ otherwise.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from collections.abc import Mapping
+from dataclasses import KW_ONLY, dataclass, field
 from types import MappingProxyType
 
 import numpy as np
@@ -16,7 +17,7 @@ from numpy.typing import ArrayLike
 
 from cavchar.errors import InputError
 
-__all__ = ["RecordBase", "readonly_array", "segment_spans"]
+__all__ = ["RecordBase", "SegmentedRecord", "readonly_array", "segment_spans"]
 
 
 def readonly_array(array: np.ndarray, given: object = None) -> np.ndarray:
@@ -33,7 +34,18 @@ def readonly_array(array: np.ndarray, given: object = None) -> np.ndarray:
 
 @dataclass(frozen=True, eq=False, repr=False)
 class RecordBase:
-    """Shared metadata, source tracking and validation helpers."""
+    """Shared metadata, source tracking and validation helpers.
+
+    Every record has the keyword-only fields ``metadata`` (free ``key -> value``
+    strings), ``source`` (the file it came from), ``lines`` (1-based line, or row
+    for binary files, of each record row in that file) and ``line_kind``
+    (``"line"`` or ``"row"``), used in error messages."""
+
+    _: KW_ONLY
+    metadata: Mapping[str, str] = field(default_factory=dict)
+    source: str | None = None
+    lines: np.ndarray | None = None
+    line_kind: str = "line"
 
     def _init_common(self) -> None:
         meta = MappingProxyType({str(k): str(v) for k, v in dict(self.metadata or {}).items()})
@@ -188,6 +200,21 @@ class RecordBase:
         except InputError as exc:
             raise InputError(f"metadata {key!r}: {exc.message}", path=self.source,
                              hint=exc.hint) from None
+
+
+@dataclass(frozen=True, eq=False, repr=False)
+class SegmentedRecord(RecordBase):
+    """A record whose rows fall into segments: ``segment_ids`` (ids in file order) and
+    ``bounds`` (row where each segment starts, then the row count), both set by the
+    record's validation."""
+
+    segment_ids: np.ndarray = field(init=False)
+    bounds: np.ndarray = field(init=False)
+
+    @property
+    def n_segments(self) -> int:
+        """Number of segments."""
+        return int(self.segment_ids.size)
 
 
 def segment_spans(bounds: np.ndarray):

@@ -3,13 +3,12 @@ number observed at probe times (:class:`SampledRecord`).  Times in s."""
 
 from __future__ import annotations
 
-from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import NamedTuple
 
 import numpy as np
 
-from cavchar.records.base import RecordBase, segment_spans
+from cavchar.records.base import SegmentedRecord, segment_spans
 
 __all__ = ["JumpRecord", "SampledRecord", "JumpSegment", "SampledSegment", "evenly_sampled"]
 
@@ -88,7 +87,7 @@ class SampledSegment(NamedTuple):
 
 
 @dataclass(frozen=True, eq=False, repr=False)
-class JumpRecord(RecordBase):
+class JumpRecord(SegmentedRecord):
     """Exact photon-number change points of one or more segments.
 
     Row ``i`` says the photon number is ``photons[i]`` from ``time[i]`` until
@@ -120,12 +119,6 @@ class JumpRecord(RecordBase):
     photons: np.ndarray
     end_time: np.ndarray
     segment: np.ndarray | None = None
-    metadata: Mapping[str, str] = field(default_factory=dict)
-    source: str | None = None
-    lines: np.ndarray | None = None
-    line_kind: str = "line"
-    segment_ids: np.ndarray = field(init=False)
-    bounds: np.ndarray = field(init=False)
 
     def __post_init__(self) -> None:
         self._init_common()
@@ -172,11 +165,6 @@ class JumpRecord(RecordBase):
                 f"source={self.source!r})")
 
     @property
-    def n_segments(self) -> int:
-        """Number of segments."""
-        return int(self.segment_ids.size)
-
-    @property
     def n_jumps(self) -> int:
         """Number of one-photon jumps (rows whose photon number differs from the previous)."""
         step = np.diff(self.photons)
@@ -210,7 +198,7 @@ class JumpRecord(RecordBase):
 
 
 @dataclass(frozen=True, eq=False, repr=False)
-class SampledRecord(RecordBase):
+class SampledRecord(SegmentedRecord):
     """Photon number observed at probe times (regular or irregular), per segment.
 
     Unlike a :class:`JumpRecord`, consecutive samples may differ by any number
@@ -231,12 +219,6 @@ class SampledRecord(RecordBase):
     time: np.ndarray
     photons: np.ndarray
     segment: np.ndarray | None = None
-    metadata: Mapping[str, str] = field(default_factory=dict)
-    source: str | None = None
-    lines: np.ndarray | None = None
-    line_kind: str = "line"
-    segment_ids: np.ndarray = field(init=False)
-    bounds: np.ndarray = field(init=False)
 
     def __post_init__(self) -> None:
         self._init_common()
@@ -248,11 +230,6 @@ class SampledRecord(RecordBase):
     def __repr__(self) -> str:
         return (f"SampledRecord({self.time.size} samples, {self.segment_ids.size} segment(s), "
                 f"source={self.source!r})")
-
-    @property
-    def n_segments(self) -> int:
-        """Number of segments."""
-        return int(self.segment_ids.size)
 
     @property
     def max_photons(self) -> int:

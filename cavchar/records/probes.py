@@ -3,13 +3,12 @@ probe settings (rad) and segments.  Times in s."""
 
 from __future__ import annotations
 
-from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import NamedTuple
 
 import numpy as np
 
-from cavchar.records.base import RecordBase, segment_spans
+from cavchar.records.base import SegmentedRecord, segment_spans
 
 __all__ = ["ProbeRecord", "ProbeSegment"]
 
@@ -24,7 +23,7 @@ class ProbeSegment(NamedTuple):
 
 
 @dataclass(frozen=True, eq=False, repr=False)
-class ProbeRecord(RecordBase):
+class ProbeRecord(SegmentedRecord):
     """Raw outcome of every probe.
 
     Parameters
@@ -45,12 +44,6 @@ class ProbeRecord(RecordBase):
     outcome: np.ndarray
     setting: np.ndarray | None = None
     segment: np.ndarray | None = None
-    metadata: Mapping[str, str] = field(default_factory=dict)
-    source: str | None = None
-    lines: np.ndarray | None = None
-    line_kind: str = "line"
-    segment_ids: np.ndarray = field(init=False)
-    bounds: np.ndarray = field(init=False)
 
     def __post_init__(self) -> None:
         self._init_common()
@@ -70,11 +63,6 @@ class ProbeRecord(RecordBase):
     def __repr__(self) -> str:
         return (f"ProbeRecord({self.time.size} probes, {self.n_lost} lost, "
                 f"{self.segment_ids.size} segment(s), source={self.source!r})")
-
-    @property
-    def n_segments(self) -> int:
-        """Number of segments."""
-        return int(self.segment_ids.size)
 
     @property
     def n_lost(self) -> int:
