@@ -6,11 +6,8 @@ import argparse
 
 from cavchar.cli.common import (
     add_command,
-    add_fit_context_options,
-    add_layout_options,
-    add_output_options,
+    add_fit_options,
     add_prior_option,
-    add_sampler_options,
     check_input_files,
     check_outputs,
     finish_fit_command,
@@ -53,10 +50,7 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
     parser.add_argument("--stationary-start", action="store_true",
                         help="score each segment's first photon number with the thermal "
                         "(Bose-Einstein) law; only for records starting in equilibrium")
-    add_layout_options(parser, exact_rows=True)
-    add_fit_context_options(parser)
-    add_sampler_options(parser)
-    add_output_options(parser)
+    add_fit_options(parser, exact_rows=True)
     parser.set_defaults(func=handle)
 
 

@@ -7,11 +7,8 @@ import math
 
 from cavchar.cli.common import (
     add_command,
-    add_fit_context_options,
-    add_layout_options,
-    add_output_options,
+    add_fit_options,
     add_prior_option,
-    add_sampler_options,
     check_input_files,
     check_outputs,
     finish_fit_command,
@@ -96,10 +93,7 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
     parser.add_argument("--initial-photons", type=whole(0, MAX_INITIAL_PHOTONS), default=None,
                         metavar="N",
                         help="segments start in Fock state N; unset: thermal equilibrium")
-    add_layout_options(parser)
-    add_fit_context_options(parser)
-    add_sampler_options(parser)
-    add_output_options(parser)
+    add_fit_options(parser)
     parser.set_defaults(func=handle)
 
 

@@ -6,11 +6,8 @@ import argparse
 
 from cavchar.cli.common import (
     add_command,
-    add_fit_context_options,
-    add_layout_options,
-    add_output_options,
+    add_fit_options,
     add_prior_option,
-    add_sampler_options,
     check_input_files,
     check_outputs,
     finish_fit_command,
@@ -80,10 +77,7 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
     add_prior_option(parser, "lifetime, n_thermal, lifetime_fast, detuning, ... as the "
                      "signal's model has them", "wide log-uniform ranges (uniform for signed "
                      "or bounded parameters)")
-    add_layout_options(parser, trace=True)
-    add_fit_context_options(parser)
-    add_sampler_options(parser)
-    add_output_options(parser)
+    add_fit_options(parser, trace=True)
     parser.set_defaults(func=handle)
 
 
