@@ -8,8 +8,7 @@ otherwise.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
-from dataclasses import KW_ONLY, dataclass, field
+from dataclasses import dataclass, field
 from types import MappingProxyType
 
 import numpy as np
@@ -34,18 +33,7 @@ def readonly_array(array: np.ndarray, given: object = None) -> np.ndarray:
 
 @dataclass(frozen=True, eq=False, repr=False)
 class RecordBase:
-    """Shared metadata, source tracking and validation helpers.
-
-    Every record has the keyword-only fields ``metadata`` (free ``key -> value``
-    strings), ``source`` (the file it came from), ``lines`` (1-based line, or row
-    for binary files, of each record row in that file) and ``line_kind``
-    (``"line"`` or ``"row"``), used in error messages."""
-
-    _: KW_ONLY
-    metadata: Mapping[str, str] = field(default_factory=dict)
-    source: str | None = None
-    lines: np.ndarray | None = None
-    line_kind: str = "line"
+    """Shared metadata, source tracking and validation helpers."""
 
     def _init_common(self) -> None:
         meta = MappingProxyType({str(k): str(v) for k, v in dict(self.metadata or {}).items()})

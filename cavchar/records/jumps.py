@@ -3,7 +3,8 @@ number observed at probe times (:class:`SampledRecord`).  Times in s."""
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from collections.abc import Mapping
+from dataclasses import dataclass, field
 from typing import NamedTuple
 
 import numpy as np
@@ -119,6 +120,10 @@ class JumpRecord(SegmentedRecord):
     photons: np.ndarray
     end_time: np.ndarray
     segment: np.ndarray | None = None
+    metadata: Mapping[str, str] = field(default_factory=dict)
+    source: str | None = None
+    lines: np.ndarray | None = None
+    line_kind: str = "line"
 
     def __post_init__(self) -> None:
         self._init_common()
@@ -219,6 +224,10 @@ class SampledRecord(SegmentedRecord):
     time: np.ndarray
     photons: np.ndarray
     segment: np.ndarray | None = None
+    metadata: Mapping[str, str] = field(default_factory=dict)
+    source: str | None = None
+    lines: np.ndarray | None = None
+    line_kind: str = "line"
 
     def __post_init__(self) -> None:
         self._init_common()

@@ -3,7 +3,8 @@ probe settings (rad) and segments.  Times in s."""
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from collections.abc import Mapping
+from dataclasses import dataclass, field
 from typing import NamedTuple
 
 import numpy as np
@@ -44,6 +45,10 @@ class ProbeRecord(SegmentedRecord):
     outcome: np.ndarray
     setting: np.ndarray | None = None
     segment: np.ndarray | None = None
+    metadata: Mapping[str, str] = field(default_factory=dict)
+    source: str | None = None
+    lines: np.ndarray | None = None
+    line_kind: str = "line"
 
     def __post_init__(self) -> None:
         self._init_common()

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import NamedTuple
 
@@ -55,6 +56,10 @@ class RingdownTrace(RecordBase):
     signal: str
     sigma: np.ndarray | None = None
     trace: np.ndarray | None = None
+    metadata: Mapping[str, str] = field(default_factory=dict)
+    source: str | None = None
+    lines: np.ndarray | None = None
+    line_kind: str = "line"
     trace_ids: np.ndarray = field(init=False)
     bounds: np.ndarray = field(init=False)
 
