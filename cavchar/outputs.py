@@ -105,6 +105,7 @@ def planck_statement(planck: PlanckCheck) -> str:
 
 
 def print_summary(result: FitResult) -> None:
+    """Print the plain-text summary of ``result`` (:func:`summary_text`) to stdout."""
     print(summary_text(result))
 
 

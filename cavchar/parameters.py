@@ -147,10 +147,12 @@ class ParameterSpace:
 
     @property
     def names(self) -> list[str]:
+        """Parameter names in order."""
         return [s.name for s in self.specs]
 
     @property
     def ndim(self) -> int:
+        """Number of parameters."""
         return len(self.specs)
 
     def to_sampler(self, x: ArrayLike) -> np.ndarray:

@@ -79,13 +79,16 @@ class Prior:
     family: str = ""
 
     @property
-    def support(self) -> tuple[float, float]:  # pragma: no cover - overridden
-        raise NotImplementedError
+    def support(self) -> tuple[float, float]:
+        """``(low, high)``: the bounds of the family (families without bounds override it)."""
+        return (self.low, self.high)  # type: ignore[attr-defined]
 
     def logpdf(self, x: ArrayLike) -> np.ndarray:  # pragma: no cover - overridden
+        """Log density at ``x`` (any shape, same shape back); ``-inf`` outside the support."""
         raise NotImplementedError
 
     def ppf(self, q: ArrayLike) -> np.ndarray:  # pragma: no cover - overridden
+        """Quantile function: the ``x`` with ``P(X <= x) = q`` for ``q`` in [0, 1] (any shape)."""
         raise NotImplementedError
 
     def sample(self, rng: np.random.Generator, size: int | tuple[int, ...] = 1) -> np.ndarray:
@@ -95,6 +98,11 @@ class Prior:
     def to_dict(self) -> dict[str, Any]:  # pragma: no cover - overridden
         """Plain-JSON description: ``{"family": ..., <parameters>}`` (infinite bounds as None)."""
         raise NotImplementedError
+
+    def _store(self, **values: float) -> None:
+        """Set validated parameters (and cached constants) on the frozen instance."""
+        for key, value in values.items():
+            object.__setattr__(self, key, value)
 
     def _inside(self, x: np.ndarray) -> np.ndarray:
         low, high = self.support
@@ -118,25 +126,22 @@ class LogUniform(Prior):
         if not 0.0 < low < high:
             raise InputError(f"log-uniform prior needs 0 < low < high, got low={low:g}, "
                              f"high={high:g}", hint="give two positive bounds, smaller first")
-        object.__setattr__(self, "low", low)
-        object.__setattr__(self, "high", high)
-        object.__setattr__(self, "_log_norm", math.log(math.log(high / low)))
-
-    @property
-    def support(self) -> tuple[float, float]:
-        return (self.low, self.high)
+        self._store(low=low, high=high, _log_norm=math.log(math.log(high / low)))
 
     def logpdf(self, x: ArrayLike) -> np.ndarray:
+        """Log density ``-ln x - ln ln(high/low)`` inside ``[low, high]``, ``-inf`` outside."""
         x = np.asarray(x, dtype=float)
         inside = self._inside(x)
         with np.errstate(divide="ignore", invalid="ignore"):
             return np.where(inside, -np.log(np.where(inside, x, 1.0)) - self._log_norm, -np.inf)
 
     def ppf(self, q: ArrayLike) -> np.ndarray:
+        """Quantile ``low (high/low)^q`` (inverse of the log-uniform CDF)."""
         q = np.asarray(q, dtype=float)
         return self.low * np.exp(q * math.log(self.high / self.low))
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form ``{"family": "loguniform", "low": ..., "high": ...}``."""
         return {"family": self.family, "low": self.low, "high": self.high}
 
 
@@ -154,23 +159,20 @@ class Uniform(Prior):
         if not low < high:
             raise InputError(f"uniform prior needs low < high, got low={low:g}, high={high:g}",
                              hint="give the smaller bound first")
-        object.__setattr__(self, "low", low)
-        object.__setattr__(self, "high", high)
-        object.__setattr__(self, "_log_norm", math.log(high - low))
-
-    @property
-    def support(self) -> tuple[float, float]:
-        return (self.low, self.high)
+        self._store(low=low, high=high, _log_norm=math.log(high - low))
 
     def logpdf(self, x: ArrayLike) -> np.ndarray:
+        """Log density ``-ln(high - low)`` inside ``[low, high]``, ``-inf`` outside."""
         x = np.asarray(x, dtype=float)
         return np.where(self._inside(x), -self._log_norm, -np.inf)
 
     def ppf(self, q: ArrayLike) -> np.ndarray:
+        """Quantile ``low + q (high - low)``."""
         q = np.asarray(q, dtype=float)
         return self.low + q * (self.high - self.low)
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form ``{"family": "uniform", "low": ..., "high": ...}``."""
         return {"family": self.family, "low": self.low, "high": self.high}
 
 
@@ -208,21 +210,22 @@ class Normal(Prior):
         if not log_z > -700.0:  # mass below ~1e-304: nothing left to sample from
             raise InputError(f"normal prior N({mean:g}, {sd:g}) has almost no mass in "
                              f"[{low:g}, {high:g}]", hint="widen the bounds or move the mean")
-        for key, value in (("mean", mean), ("sd", sd), ("low", low), ("high", high)):
-            object.__setattr__(self, key, value)
-        object.__setattr__(self, "_log_norm", log_z + math.log(sd) + _LOG_SQRT_2PI)
-
-    @property
-    def support(self) -> tuple[float, float]:
-        return (self.low, self.high)
+        self._store(mean=mean, sd=sd, low=low, high=high,
+                    _log_norm=log_z + math.log(sd) + _LOG_SQRT_2PI)
 
     def logpdf(self, x: ArrayLike) -> np.ndarray:
+        """Log density ``-z^2/2 - ln(sd Z sqrt(2 pi))``, ``z = (x - mean)/sd``, inside the
+        bounds."""
         x = np.asarray(x, dtype=float)
         z = (x - self.mean) / self.sd
         with np.errstate(invalid="ignore"):
             return np.where(self._inside(x), -0.5 * z * z - self._log_norm, -np.inf)
 
     def ppf(self, q: ArrayLike) -> np.ndarray:
+        """Quantile of the truncated normal, ``mean + sd Phi^-1(Phi(a) + q (Phi(b) - Phi(a)))``.
+
+        Computed on the lower-tail side of the mean (mirrored when both bounds lie above it)
+        so that Phi is never evaluated close to 1; clipped to ``[low, high]``."""
         q = np.asarray(q, dtype=float)
         a, b = (self.low - self.mean) / self.sd, (self.high - self.mean) / self.sd
         if a > 0:  # mirror so the tail arithmetic happens where Phi is not close to 1
@@ -234,6 +237,7 @@ class Normal(Prior):
         return np.clip(self.mean + self.sd * z, self.low, self.high)
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form with keys family, mean, sd, low, high; infinite bounds as None."""
         def bound(v: float) -> float | None:
             return v if math.isfinite(v) else None
 
@@ -255,15 +259,17 @@ class LogNormal(Prior):
         if median <= 0 or sigma <= 0:
             raise InputError(f"log-normal prior needs median > 0 and width > 0, got "
                              f"median={median:g}, width={sigma:g}")
-        object.__setattr__(self, "median", median)
-        object.__setattr__(self, "sigma_log", sigma)
-        object.__setattr__(self, "_mu", math.log(median))
+        self._store(median=median, sigma_log=sigma, _mu=math.log(median))
 
     @property
     def support(self) -> tuple[float, float]:
+        """``(0, inf)``."""
         return (0.0, math.inf)
 
     def logpdf(self, x: ArrayLike) -> np.ndarray:
+        """Log density ``-z^2/2 - ln x - ln(sigma_log sqrt(2 pi))``.
+
+        Here ``z = ln(x/median)/sigma_log``; ``-inf`` for ``x <= 0``."""
         x = np.asarray(x, dtype=float)
         inside = (x > 0) & (x < math.inf)
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -273,10 +279,12 @@ class LogNormal(Prior):
         return np.where(inside, out, -np.inf)
 
     def ppf(self, q: ArrayLike) -> np.ndarray:
+        """Quantile ``median exp(sigma_log Phi^-1(q))``."""
         q = np.asarray(q, dtype=float)
         return np.exp(self._mu + self.sigma_log * special.ndtri(q))
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form ``{"family": "lognormal", "median": ..., "sigma_log": ...}``."""
         return {"family": self.family, "median": self.median, "sigma_log": self.sigma_log}
 
 
@@ -306,15 +314,14 @@ class Beta(Prior):
         if not low < high:
             raise InputError(f"beta prior needs low < high, got low={low:g}, high={high:g}",
                              hint="give the smaller bound first")
-        for key, value in (("a", a), ("b", b), ("low", low), ("high", high)):
-            object.__setattr__(self, key, value)
-        object.__setattr__(self, "_log_norm", float(special.betaln(a, b)) + math.log(high - low))
-
-    @property
-    def support(self) -> tuple[float, float]:
-        return (self.low, self.high)
+        self._store(a=a, b=b, low=low, high=high,
+                    _log_norm=float(special.betaln(a, b)) + math.log(high - low))
 
     def logpdf(self, x: ArrayLike) -> np.ndarray:
+        """Log density ``(a-1) ln u + (b-1) ln(1-u) - ln B(a, b) - ln(high - low)``.
+
+
+        Here ``u = (x - low)/(high - low)``; ``-inf`` outside ``[low, high]``."""
         x = np.asarray(x, dtype=float)
         inside = self._inside(x)
         u = np.clip((np.where(inside, x, self.low) - self.low) / (self.high - self.low), 0, 1)
@@ -324,10 +331,12 @@ class Beta(Prior):
         return np.where(inside & ~np.isnan(out), out, -np.inf)
 
     def ppf(self, q: ArrayLike) -> np.ndarray:
+        """Quantile ``low + (high - low) I^-1_q(a, b)`` (inverse regularized incomplete beta)."""
         q = np.asarray(q, dtype=float)
         return self.low + (self.high - self.low) * special.betaincinv(self.a, self.b, q)
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form with keys family, a, b, low, high."""
         return {"family": self.family, "a": self.a, "b": self.b, "low": self.low,
                 "high": self.high}
 

@@ -125,6 +125,7 @@ class Interval:
     n_draws: int
 
     def as_dict(self) -> dict[str, float]:
+        """Plain-JSON form: median, 68% and 95% bounds and the number of draws."""
         return {"median": self.median, "lo68": self.lo68, "hi68": self.hi68,
                 "lo95": self.lo95, "hi95": self.hi95, "n_draws": self.n_draws}
 

@@ -262,6 +262,7 @@ class FitResult:
     # ------------------------------------------------------------------ access
     @property
     def parameter_names(self) -> list[str]:
+        """Names of the sampled parameters, in the order of the draws' columns."""
         return [s.name for s in self.specs]
 
     @property

@@ -141,6 +141,7 @@ class FitKind:
         return self.family if self.variant is None else f"{self.family}-{self.variant}"
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form (family, and variant when there is one)."""
         return _without_none({"family": self.family, "variant": self.variant})
 
     @classmethod
@@ -161,6 +162,7 @@ class InputFile:
     sha256: str | None = None
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form: path and SHA-256 of the file."""
         return {"path": self.path, "sha256": self.sha256}
 
 
@@ -217,6 +219,7 @@ class Provenance:
         return None if self.created_at is None else parse_timestamp(self.created_at)
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form (absent fields left out)."""
         return _without_none({"inputs": [f.to_dict() for f in self.inputs],
                               "command_line": self.command_line, "versions": self.versions,
                               "created_at": self.created_at, "platform": self.platform})
@@ -330,6 +333,7 @@ class SamplerDiagnostics:
                 object.__setattr__(self, f.name, freeze(getattr(self, f.name)))
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form: the known fields that are set, then any extra field a sampler wrote."""
         out = _without_none({f.name: getattr(self, f.name) for f in fields(self)
                              if f.name != "extra"})
         if not self.failed_checks:
@@ -402,6 +406,7 @@ class PlanckCheck:
             or self.effective_temperature_upper95_k is not None)
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form (absent fields left out; ``piles_up_at_zero`` always given)."""
         out = _without_none({f.name: getattr(self, f.name) for f in fields(self)})
         out["piles_up_at_zero"] = bool(self.piles_up_at_zero)
         return out

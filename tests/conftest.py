@@ -26,3 +26,20 @@ def run_cli(capsys):
         return code, out, err
 
     return run
+
+
+@pytest.fixture
+def modules_loaded_by():
+    """Function ``(modules, watched) -> list``: which of the ``watched`` module names a fresh
+    interpreter holds after ``import <modules>`` (a comma-separated import list)."""
+    import subprocess
+    import sys
+
+    def loaded(modules: str, watched: tuple[str, ...]) -> list[str]:
+        code = (f"import sys, {modules}; "
+                f"print(','.join(m for m in {watched!r} if m in sys.modules))")
+        proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+        assert proc.returncode == 0, proc.stdout + proc.stderr
+        return [m for m in proc.stdout.strip().split(",") if m]
+
+    return loaded

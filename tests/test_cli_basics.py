@@ -42,13 +42,10 @@ def test_thermal_help_has_units_and_example(run_cli):
     assert "6.8GHz" in out and "mK" in out
 
 
-def test_import_is_light():
+def test_import_is_light(modules_loaded_by):
     # STYLE: `import cavchar` must not pull in plotting libraries or numba
-    code = ("import sys, cavchar, cavchar.thermal, cavchar.dynamics, cavchar.units; "
-            "bad = [m for m in ('matplotlib', 'corner', 'numba', 'emcee') if m in sys.modules]; "
-            "print(bad); sys.exit(1 if bad else 0)")
-    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
-    assert proc.returncode == 0, proc.stdout + proc.stderr
+    assert modules_loaded_by("cavchar, cavchar.thermal, cavchar.dynamics, cavchar.units",
+                             ("matplotlib", "corner", "numba", "emcee")) == []
 
 
 def test_console_script_runs():

@@ -296,20 +296,12 @@ def _bytes_test(config):
     return run
 
 
-def _npz_test(config):
+def _container_test(config, files, suffix):
+    """A fuzz test of every reader on binary containers drawn from ``files()``."""
     @config
-    @given(reader=st.sampled_from(sorted(READERS)), data=npz_files())
+    @given(reader=st.sampled_from(sorted(READERS)), data=files())
     def run(folder, reader, data):
-        _fuzz_bytes(folder, reader, data, ".npz")
-
-    return run
-
-
-def _parquet_test(config):
-    @config
-    @given(reader=st.sampled_from(sorted(READERS)), data=parquet_files())
-    def run(folder, reader, data):
-        _fuzz_bytes(folder, reader, data, ".parquet")
+        _fuzz_bytes(folder, reader, data, suffix)
 
     return run
 
@@ -325,14 +317,14 @@ def _result_test(config):
 
 test_text_tables = _text_test(QUICK)
 test_raw_bytes = _bytes_test(QUICK)
-test_npz_archives = _npz_test(QUICK)
-test_parquet_files = _parquet_test(QUICK)
+test_npz_archives = _container_test(QUICK, npz_files, ".npz")
+test_parquet_files = _container_test(QUICK, parquet_files, ".parquet")
 test_result_files = _result_test(QUICK)
 
 test_text_tables_long = pytest.mark.slow(_text_test(LONG))
 test_raw_bytes_long = pytest.mark.slow(_bytes_test(LONG))
-test_npz_archives_long = pytest.mark.slow(_npz_test(LONG))
-test_parquet_files_long = pytest.mark.slow(_parquet_test(LONG))
+test_npz_archives_long = pytest.mark.slow(_container_test(LONG, npz_files, ".npz"))
+test_parquet_files_long = pytest.mark.slow(_container_test(LONG, parquet_files, ".parquet"))
 test_result_files_long = pytest.mark.slow(_result_test(LONG))
 
 

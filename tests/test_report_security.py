@@ -66,26 +66,29 @@ def _assert_no_payload_survives(page: str) -> None:
     assert "alert(" not in "".join(str(v) for _, attrs in tags for _, v in attrs)
 
 
-def _string_leaves(value, at=()):
+def _leaf_paths(value, keep, at=(), first_draw_only=False):
+    """Key paths of the leaves of ``value`` for which ``keep(leaf)`` holds (with
+    ``first_draw_only``, only the first element of each list under ``samples``)."""
     if isinstance(value, dict):
-        for key, item in value.items():
-            yield from _string_leaves(item, (*at, key))
+        items = value.items()
     elif isinstance(value, list):
-        for i, item in enumerate(value):
-            yield from _string_leaves(item, (*at, i))
-    elif isinstance(value, str):
-        yield at
+        cut = first_draw_only and at[:1] == ("samples",)
+        items = enumerate(value[:1] if cut else value)
+    else:
+        if keep(value):
+            yield at
+        return
+    for key, item in items:
+        yield from _leaf_paths(item, keep, (*at, key), first_draw_only)
 
 
-def _number_leaves(value, at=()):
-    if isinstance(value, dict):
-        for key, item in value.items():
-            yield from _number_leaves(item, (*at, key))
-    elif isinstance(value, list):
-        for i, item in enumerate(value[:1] if at[:1] == ("samples",) else value):
-            yield from _number_leaves(item, (*at, i))
-    elif isinstance(value, (int, float)) and not isinstance(value, bool):
-        yield at
+def _string_leaves(value):
+    return _leaf_paths(value, lambda leaf: isinstance(leaf, str))
+
+
+def _number_leaves(value):
+    return _leaf_paths(value, lambda leaf: isinstance(leaf, (int, float))
+                       and not isinstance(leaf, bool), first_draw_only=True)
 
 
 def _set(data, path, value):

@@ -90,17 +90,24 @@ RUNAWAY = [
 ]
 
 
-@pytest.mark.parametrize("case", RUNAWAY, ids=[c[0] for c in RUNAWAY])
-def test_absurd_size_refused_before_allocating(case, tmp_path, run_cli, monkeypatch):
-    _, argv, option = case
-    monkeypatch.chdir(tmp_path)
-    run_cli(*argv)  # imports done outside the count
+def _peak_memory(run_cli, argv):
+    """Exit code, stderr and peak traced memory in bytes of one command; a first run
+    beforehand keeps the imports outside the count."""
+    run_cli(*argv)
     tracemalloc.start()
     try:
         code, _, err = run_cli(*argv)
         peak = tracemalloc.get_traced_memory()[1]
     finally:
         tracemalloc.stop()
+    return code, err, peak
+
+
+@pytest.mark.parametrize("case", RUNAWAY, ids=[c[0] for c in RUNAWAY])
+def test_absurd_size_refused_before_allocating(case, tmp_path, run_cli, monkeypatch):
+    _, argv, option = case
+    monkeypatch.chdir(tmp_path)
+    code, err, peak = _peak_memory(run_cli, argv)
     assert code == 2 and option in err and "Traceback" not in err
     assert peak < MEMORY_LIMIT, f"{peak / 2**20:.0f} MiB"
     assert list(tmp_path.iterdir()) == []
@@ -110,13 +117,7 @@ def test_huge_photon_number_in_a_response_table(tmp_path, run_cli):
     (tmp_path / "p.csv").write_text("time,outcome\n0,0\n1e-6,1\n", encoding="utf-8")
     (tmp_path / "t.csv").write_text("photons,p_one\n0,0.1\n1e10,0.9\n", encoding="utf-8")
     argv = ("fit", "probes", str(tmp_path / "p.csv"), "--response-table", str(tmp_path / "t.csv"))
-    run_cli(*argv)  # imports done outside the count
-    tracemalloc.start()
-    try:
-        code, _, err = run_cli(*argv)
-        peak = tracemalloc.get_traced_memory()[1]
-    finally:
-        tracemalloc.stop()
+    code, err, peak = _peak_memory(run_cli, argv)
     assert code == 2 and "t.csv, line 3" in err and "largest the models follow" in err
     assert peak < MEMORY_LIMIT
 

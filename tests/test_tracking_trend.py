@@ -188,16 +188,10 @@ def test_plot_trend_smoke(tmp_path):
     assert "P(lifetime fell" in fig.axes[0].get_title()
 
 
-def test_open_log_is_light():
+def test_open_log_is_light(modules_loaded_by):
     # import cavchar.tracking.store pulls in neither pandas nor matplotlib (subprocess check)
-    import subprocess
-    import sys
-
-    code = ("import sys, cavchar.tracking.store, cavchar.tracking.trend, cavchar.cli.log;"
-            "bad=[m for m in ('matplotlib','pandas','scipy.stats') if m in sys.modules];"
-            "print(bad); sys.exit(1 if bad else 0)")
-    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
-    assert done.returncode == 0, done.stdout + done.stderr
+    assert modules_loaded_by("cavchar.tracking.store, cavchar.tracking.trend, cavchar.cli.log",
+                             ("matplotlib", "pandas", "scipy.stats")) == []
 
 
 def test_trend_draws_user_text_literally(tmp_path, run_cli, monkeypatch):

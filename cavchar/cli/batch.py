@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from cavchar.cli.common import HelpFormatter
+from cavchar.cli.common import add_command
 
 EXAMPLES = """examples:
   cavchar batch check examples/batch/cooldown.toml
@@ -20,23 +20,34 @@ Exit codes: 0 every entry has a result, 2 bad batch file (nothing fitted),
 """
 
 
+DESCRIPTION = """
+Fit every record listed in a batch file (TOML) in parallel on a local Dask cluster (one
+single-threaded worker process per core) or an existing Dask cluster, with one output folder per
+entry, a summary table and an overview report.
+"""
+
+CHECK_DESCRIPTION = """
+Read the batch file and report every bad entry at once (missing file, unknown option, bad unit
+or prior, missing response table) with its line; exit 2 if there is any.
+"""
+
+RUN_DESCRIPTION = """
+Fit every entry; failures stay per entry.  Entries done before with the same inputs and settings
+are skipped (--force refits them).
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
-    parser = subparsers.add_parser(
-        "batch",
-        help="fit many records from one batch file, on this machine or a Dask cluster",
-        description="Fit every record listed in a batch file (TOML) in parallel on a local "
-        "Dask cluster (one single-threaded worker process per core) or an existing Dask "
-        "cluster, with one output folder per entry, a summary table and an overview report.",
-        epilog=EXAMPLES,
-        formatter_class=HelpFormatter,
-    )
+    """Add ``batch`` (with its actions ``check`` and ``run``) to the sub-commands."""
+    parser = add_command(
+        subparsers, "batch",
+        "fit many records from one batch file, on this machine or a Dask cluster",
+        DESCRIPTION, EXAMPLES)
     actions = parser.add_subparsers(dest="batch_command", metavar="ACTION")
 
-    check = actions.add_parser(
-        "check", help="check every entry of a batch file, fit nothing",
-        description="Read the batch file and report every bad entry at once (missing file, "
-        "unknown option, bad unit or prior, missing response table) with its line; exit 2 "
-        "if there is any.", epilog=EXAMPLES, formatter_class=HelpFormatter)
+    check = add_command(
+        actions, "check",
+        "check every entry of a batch file, fit nothing", CHECK_DESCRIPTION, EXAMPLES)
     check.add_argument("batch_file", help="the batch file (TOML, see docs/batch.md)")
     check.add_argument("--log", action="store_true",
                        help="also check that every entry has a cavity and a cooldown")
@@ -44,11 +55,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                        help="batch seed (default: the file's seed, else 1)")
     check.set_defaults(func=handle_check)
 
-    run = actions.add_parser(
-        "run", help="fit every entry of a batch file",
-        description="Fit every entry; failures stay per entry.  Entries done before with "
-        "the same inputs and settings are skipped (--force refits them).",
-        epilog=EXAMPLES, formatter_class=HelpFormatter)
+    run = add_command(actions, "run", "fit every entry of a batch file", RUN_DESCRIPTION, EXAMPLES)
     run.add_argument("batch_file", help="the batch file (TOML, see docs/batch.md)")
     run.add_argument("-o", "--out", metavar="DIR", default=None,
                      help="output folder (default: <batch file name>-results in the current "
@@ -93,6 +100,9 @@ def _print_problems(command: str, exc) -> int:
 
 
 def handle_check(args: argparse.Namespace) -> int:
+    """Run ``cavchar batch check``.
+
+    Report every bad entry of the batch file; exit 0, or 2 if any."""
     from cavchar.batch.spec import BatchFileError
 
     try:
@@ -122,6 +132,7 @@ def _check(args: argparse.Namespace) -> int:
 
 
 def handle_run(args: argparse.Namespace) -> int:
+    """Run ``cavchar batch run``: fit every entry of the batch file and write the summary."""
     from cavchar.batch.spec import BatchFileError
 
     try:

@@ -6,7 +6,7 @@ import argparse
 import json
 from pathlib import Path
 
-from cavchar.cli.common import HelpFormatter, add_output_options, quantity
+from cavchar.cli.common import add_command, add_output_options, quantity
 from cavchar.cli.log import add_log_file_option, add_selection_options, interval_text
 from cavchar.errors import InputError
 
@@ -31,14 +31,19 @@ With -o DIR: budget.json and budget.png.
 """
 
 
+DESCRIPTION = """
+Fit n_th measured at several stage temperatures [K] with a two-bath model (or the stage
+occupation plus a constant excess when the hot bath's temperature is not identifiable), with
+credible intervals by MCMC.
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
-    parser = subparsers.add_parser(
-        "budget", help="thermal budget: hot because the stage is warm, or because something "
-        "hot leaks in?",
-        description="Fit n_th measured at several stage temperatures [K] with a two-bath "
-        "model (or the stage occupation plus a constant excess when the hot bath's "
-        "temperature is not identifiable), with credible intervals by MCMC.",
-        epilog=EXAMPLES, formatter_class=HelpFormatter)
+    """Add ``budget`` (thermal budget fit over stage temperatures) to the sub-commands."""
+    parser = add_command(
+        subparsers, "budget",
+        "thermal budget: hot because the stage is warm, or because something "
+        "hot leaks in?", DESCRIPTION, EXAMPLES)
     add_log_file_option(parser)
     parser.add_argument("--cavity", default=None, help="cavity name (data from the log)")
     parser.add_argument("--cooldown", action="append", default=None,
@@ -154,6 +159,7 @@ def print_budgets(report) -> None:
 
 
 def handle(args: argparse.Namespace) -> int:
+    """Run ``cavchar budget``: fit the two-bath model and print it; return the exit code."""
     from cavchar.fits.budget import thermal_budget
     from cavchar.tracking.budget import cooldown_budgets
 

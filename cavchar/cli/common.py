@@ -14,7 +14,7 @@ if TYPE_CHECKING:
 __all__ = ["quantity", "add_output_options", "add_sampler_options", "add_fit_context_options",
            "settings_from_args", "rate_priors_from_args", "check_input_files", "check_outputs",
            "finish_fit_command", "HelpFormatter", "add_layout_options", "laid_out", "for_option",
-           "add_prior_option", "priors_from_args"]
+           "add_prior_option", "priors_from_args", "add_command", "add_fit_options"]
 
 
 class HelpFormatter(argparse.ArgumentDefaultsHelpFormatter, argparse.RawDescriptionHelpFormatter):
@@ -35,6 +35,20 @@ class HelpFormatter(argparse.ArgumentDefaultsHelpFormatter, argparse.RawDescript
                 or action.option_strings == []):
             return text
         return text + " (default: %(default)s)"
+
+
+def add_command(group: argparse._SubParsersAction, name: str, summary: str, description: str,
+                epilog: str | None = None) -> argparse.ArgumentParser:
+    """Add the sub-command ``name`` to ``group`` with the project's help layout.
+
+    ``summary`` is the one-line help shown in the parent's list, ``description``
+    the paragraph at the top of the command's own help (it may be written wrapped
+    over several lines; they are joined with single spaces) and ``epilog`` its
+    examples, kept as laid out; the parser shows defaults through
+    :class:`HelpFormatter`."""
+    paragraph = " ".join(line.strip() for line in description.strip().splitlines())
+    return group.add_parser(name, help=summary, description=paragraph, epilog=epilog,
+                            formatter_class=HelpFormatter)
 
 
 def quantity(dimension: str, *, minimum: float | None = 0.0, positive: bool = False,
@@ -170,6 +184,15 @@ def add_layout_options(parser: argparse.ArgumentParser, *, trace: bool = False,
         group.add_argument("--rows-are-changes", action="store_true",
                            help="the rows are exact change points even though they are evenly "
                            "spaced and repeat photon numbers")
+
+
+def add_fit_options(parser: argparse.ArgumentParser, **layout: bool) -> None:
+    """The options every ``cavchar fit`` command shares, in this order: file layout
+    (:func:`add_layout_options` with ``layout``), fit context, sampler and outputs."""
+    add_layout_options(parser, **layout)
+    add_fit_context_options(parser)
+    add_sampler_options(parser)
+    add_output_options(parser)
 
 
 def laid_out(path: str, args: argparse.Namespace):

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from cavchar.cli.common import HelpFormatter, whole
+from cavchar.cli.common import add_command, whole
 
 EXAMPLES = """examples:
   cavchar demo                      # writes ./cavchar-demo/ and prints where the report is
@@ -22,16 +22,17 @@ the mirror set against an example spec (spec.toml) and fits the thermal budget.
 """
 
 
+DESCRIPTION = """
+Simulate an invented data set, fit it, log it, follow the trend, qualify against an example
+spec, fit the thermal budget and write one self-contained HTML report.
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
-    parser = subparsers.add_parser(
-        "demo",
-        help="run the whole job on an invented scenario and write an HTML report",
-        description="Simulate an invented data set, fit it, log it, follow the trend, "
-        "qualify against an example spec, fit the thermal budget and write one "
-        "self-contained HTML report.",
-        epilog=EXAMPLES,
-        formatter_class=HelpFormatter,
-    )
+    """Add ``demo`` (the whole job on an invented scenario) to the sub-commands."""
+    parser = add_command(
+        subparsers, "demo",
+        "run the whole job on an invented scenario and write an HTML report", DESCRIPTION, EXAMPLES)
     parser.add_argument("-o", "--out", metavar="DIR", default="cavchar-demo",
                         help="folder for the data, results, log, spec and report")
     parser.add_argument("--quick", action="store_true",
@@ -44,6 +45,9 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 
 def handle(args: argparse.Namespace) -> int:
+    """Run ``cavchar demo``.
+
+    Simulate, fit, log, qualify and write the report; return the exit code."""
     from cavchar.demo.run import DEFAULT_SEED, run_demo
 
     outcome = run_demo(args.out, quick=args.quick,

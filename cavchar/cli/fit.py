@@ -10,18 +10,17 @@ import argparse
 import importlib
 import importlib.util
 
-from cavchar.cli.common import HelpFormatter
+from cavchar.cli.common import add_command
 
 FIT_MODULES = ("fit_jumps", "fit_probes", "fit_ringdown")
 
 
+
 def register(subparsers: argparse._SubParsersAction) -> None:
-    parser = subparsers.add_parser(
-        "fit",
-        help="fit a record: lifetime, thermal photon number, effective temperature",
-        description="Fit a jump record, a raw probe record or a ring-down trace by MCMC.",
-        formatter_class=HelpFormatter,
-    )
+    """Add ``fit`` and one sub-command per record kind (``FIT_MODULES``) to the sub-commands."""
+    parser = add_command(
+        subparsers, "fit", "fit a record: lifetime, thermal photon number, effective temperature",
+        "Fit a jump record, a raw probe record or a ring-down trace by MCMC.")
     kinds = parser.add_subparsers(dest="fit_kind", metavar="KIND")
     for name in FIT_MODULES:
         importlib.import_module(f"cavchar.cli.{name}").register_fit(kinds)

@@ -5,12 +5,9 @@ from __future__ import annotations
 import argparse
 
 from cavchar.cli.common import (
-    HelpFormatter,
-    add_fit_context_options,
-    add_layout_options,
-    add_output_options,
+    add_command,
+    add_fit_options,
     add_prior_option,
-    add_sampler_options,
     check_input_files,
     check_outputs,
     finish_fit_command,
@@ -31,17 +28,18 @@ probe times, where several jumps may happen between samples.
 """
 
 
+DESCRIPTION = """
+Posterior of the energy lifetime T_c = 1/kappa and the thermal photon number n_th of a damped
+mode from its photon-number record, by MCMC; with the mode frequency also Q, linewidth and
+effective temperature, and with the stage temperature the Planck check.
+"""
+
+
 def register_fit(kinds: argparse._SubParsersAction) -> None:
-    parser = kinds.add_parser(
-        "jumps",
-        help="exact or sampled photon-number jump records",
-        description="Posterior of the energy lifetime T_c = 1/kappa and the thermal photon "
-        "number n_th of a damped mode from its photon-number record, by MCMC; with the "
-        "mode frequency also Q, linewidth and effective temperature, and with the stage "
-        "temperature the Planck check.",
-        epilog=EXAMPLES,
-        formatter_class=HelpFormatter,
-    )
+    """Add ``jumps`` to the ``cavchar fit`` group."""
+    parser = add_command(
+        kinds, "jumps",
+        "exact or sampled photon-number jump records", DESCRIPTION, EXAMPLES)
     parser.add_argument("record", help="record file (CSV/TSV, .gz, NPZ, Parquet)")
     parser.add_argument("--sampled", action="store_true",
                         help="photon numbers at probe times (not exact change points)")
@@ -52,14 +50,14 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
     parser.add_argument("--stationary-start", action="store_true",
                         help="score each segment's first photon number with the thermal "
                         "(Bose-Einstein) law; only for records starting in equilibrium")
-    add_layout_options(parser, exact_rows=True)
-    add_fit_context_options(parser)
-    add_sampler_options(parser)
-    add_output_options(parser)
+    add_fit_options(parser, exact_rows=True)
     parser.set_defaults(func=handle)
 
 
 def handle(args: argparse.Namespace) -> int:
+    """Run ``cavchar fit jumps``.
+
+    Read the records, fit, print and write the result; return the exit code."""
     check_input_files([args.record])
     from cavchar.fits.jumps import JumpPriors, fit_jumps
 

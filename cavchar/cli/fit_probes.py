@@ -6,12 +6,9 @@ import argparse
 import math
 
 from cavchar.cli.common import (
-    HelpFormatter,
-    add_fit_context_options,
-    add_layout_options,
-    add_output_options,
+    add_command,
+    add_fit_options,
     add_prior_option,
-    add_sampler_options,
     check_input_files,
     check_outputs,
     finish_fit_command,
@@ -60,19 +57,19 @@ _FRINGE_OPTIONS = (
 )
 
 
+DESCRIPTION = """
+Posterior of the energy lifetime T_c = 1/kappa, the thermal photon number n_th and any fitted
+response parameters from the raw outcome of every probe, through a hidden Markov model of the
+photon number; with the mode frequency also Q, linewidth and effective temperature, with the
+stage temperature the Planck check.  Also reconstructs the photon-number trajectory.
+"""
+
+
 def register_fit(kinds: argparse._SubParsersAction) -> None:
     """Add ``probes`` to the ``cavchar fit`` group."""
-    parser = kinds.add_parser(
-        "probes",
-        help="raw QND probe records (0/1 outcome per probe)",
-        description="Posterior of the energy lifetime T_c = 1/kappa, the thermal photon "
-        "number n_th and any fitted response parameters from the raw outcome of every "
-        "probe, through a hidden Markov model of the photon number; with the mode "
-        "frequency also Q, linewidth and effective temperature, with the stage "
-        "temperature the Planck check.  Also reconstructs the photon-number trajectory.",
-        epilog=EXAMPLES,
-        formatter_class=HelpFormatter,
-    )
+    parser = add_command(
+        kinds, "probes",
+        "raw QND probe records (0/1 outcome per probe)", DESCRIPTION, EXAMPLES)
     parser.add_argument("record", help="probe-record file (CSV/TSV, .gz, NPZ, Parquet)")
     parser.add_argument("--response", choices=("fringe", "table"), default=None,
                         help="probe response model; unset: table when --response-table is "
@@ -96,10 +93,7 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
     parser.add_argument("--initial-photons", type=whole(0, MAX_INITIAL_PHOTONS), default=None,
                         metavar="N",
                         help="segments start in Fock state N; unset: thermal equilibrium")
-    add_layout_options(parser)
-    add_fit_context_options(parser)
-    add_sampler_options(parser)
-    add_output_options(parser)
+    add_fit_options(parser)
     parser.set_defaults(func=handle)
 
 
@@ -194,6 +188,9 @@ def check_lines(check: dict | None) -> list[str]:
 
 
 def handle(args: argparse.Namespace) -> int:
+    """Run ``cavchar fit probes``.
+
+    Read the records, fit, print and write the result; return the exit code."""
     check_input_files([args.record])
     from pathlib import Path
 

@@ -5,12 +5,9 @@ from __future__ import annotations
 import argparse
 
 from cavchar.cli.common import (
-    HelpFormatter,
-    add_fit_context_options,
-    add_layout_options,
-    add_output_options,
+    add_command,
+    add_fit_options,
     add_prior_option,
-    add_sampler_options,
     check_input_files,
     check_outputs,
     finish_fit_command,
@@ -44,17 +41,20 @@ separately.  File formats: docs/data-formats.md; the fit: docs/ringdown.md.
 """
 
 
+DESCRIPTION = """
+Posterior of the energy lifetime T_c = 1/kappa from ring-down traces by MCMC (amplitudes, floors
+and unknown noise marginalized where exact), with Q, linewidth and the amplitude decay time 2
+T_c; mean-n and populations also give n_th, the effective temperature and, with --stage-temp,
+the Planck check.
+"""
+
+
 def register_fit(kinds: argparse._SubParsersAction) -> None:
-    parser = kinds.add_parser(
-        "ringdown",
-        help="ring-down traces: power, dB, magnitude, IQ, mean photon number, populations",
-        description="Posterior of the energy lifetime T_c = 1/kappa from ring-down traces by "
-        "MCMC (amplitudes, floors and unknown noise marginalized where exact), with Q, "
-        "linewidth and the amplitude decay time 2 T_c; mean-n and populations also give n_th, "
-        "the effective temperature and, with --stage-temp, the Planck check.",
-        epilog=EXAMPLES,
-        formatter_class=HelpFormatter,
-    )
+    """Add ``ringdown`` to the ``cavchar fit`` group."""
+    parser = add_command(
+        kinds, "ringdown",
+        "ring-down traces: power, dB, magnitude, IQ, mean photon number, populations",
+        DESCRIPTION, EXAMPLES)
     parser.add_argument("traces", nargs="+",
                         help="trace file(s) (CSV/TSV, .gz, NPZ, Parquet); several files share "
                         "T_c")
@@ -77,10 +77,7 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
     add_prior_option(parser, "lifetime, n_thermal, lifetime_fast, detuning, ... as the "
                      "signal's model has them", "wide log-uniform ranges (uniform for signed "
                      "or bounded parameters)")
-    add_layout_options(parser, trace=True)
-    add_fit_context_options(parser)
-    add_sampler_options(parser)
-    add_output_options(parser)
+    add_fit_options(parser, trace=True)
     parser.set_defaults(func=handle)
 
 
@@ -110,6 +107,9 @@ def _initial(text: str | None):
 
 
 def handle(args: argparse.Namespace) -> int:
+    """Run ``cavchar fit ringdown``.
+
+    Read the traces, fit, print and write the result; return the exit code."""
     check_input_files(args.traces)
     from cavchar.fits.ringdown import fit_ringdown
     from cavchar.fits.ringdown_data import time_factor

@@ -12,7 +12,7 @@ import json
 from datetime import date
 from typing import TYPE_CHECKING
 
-from cavchar.cli.common import HelpFormatter, quantity
+from cavchar.cli.common import add_command, quantity
 from cavchar.errors import InputError
 
 if TYPE_CHECKING:
@@ -125,18 +125,24 @@ def log_from_args(result: FitResult, args: argparse.Namespace) -> int | None:
     return fit_id
 
 
+DESCRIPTION = """
+Keep fits of each cavity across cooldowns in an SQLite log, with a compact copy of the posterior
+draws of lifetime [s], n_th and effective temperature [K] for later comparisons.
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
-    parser = subparsers.add_parser(
-        "log", help="cooldown log: cavities, cooldowns and logged fits",
-        description="Keep fits of each cavity across cooldowns in an SQLite log, with a "
-        "compact copy of the posterior draws of lifetime [s], n_th and effective "
-        "temperature [K] for later comparisons.",
-        epilog=EXAMPLES, formatter_class=HelpFormatter)
+    """Add ``log`` (the cooldown log and its actions) to the sub-commands."""
+    parser = add_command(
+        subparsers, "log",
+        "cooldown log: cavities, cooldowns and logged fits", DESCRIPTION, EXAMPLES)
     actions = parser.add_subparsers(dest="log_action", metavar="ACTION")
 
     def sub(name: str, help_text: str) -> argparse.ArgumentParser:
-        p = actions.add_parser(name, help=help_text, description=help_text,
-                               epilog=EXAMPLES, formatter_class=HelpFormatter)
+        p = add_command(
+            actions, name, help_text,
+            help_text,
+            EXAMPLES)
         add_log_file_option(p)
         return p
 

@@ -58,6 +58,7 @@ class CommandParser(argparse.ArgumentParser):
         self._negative_number_matcher = re.compile(r"^-(\d|\.\d)")
 
     def error(self, message: str) -> None:  # type: ignore[override]
+        """Print the usage error as one line on stderr naming the option, then exit with code 2."""
         print(f"{self.prog}: error: {clean_text(message)} (see {self.prog} --help)",
               file=sys.stderr)
         sys.exit(2)

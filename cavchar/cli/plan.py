@@ -6,7 +6,7 @@ import argparse
 import math
 from pathlib import Path
 
-from cavchar.cli.common import HelpFormatter, add_output_options, quantity, real, whole
+from cavchar.cli.common import add_command, add_output_options, quantity, real, whole
 from cavchar.errors import InputError
 from cavchar.units import format_quantity
 
@@ -88,20 +88,38 @@ def _common(parser: argparse.ArgumentParser, n_thermal_required: bool = True) ->
     add_output_options(parser)
 
 
+DESCRIPTION = """
+Forecast the precision of T_c, n_th (and Q, T_eff) from the Fisher information (Cramér–Rao
+bound) of the likelihood the fits use, for a target relative sd (needed amount of data) or a
+given amount (expected sd); confirmed by a short simulate-and-fit study.  All times in s unless
+a unit is given.
+"""
+
+JUMPS_DESCRIPTION = """
+Record length for a jump record (exact change points, or the photon number read every
+--sample-interval).
+"""
+
+PROBES_DESCRIPTION = """
+Number of probes for a raw probe record with a Ramsey-fringe response (or a calibrated
+table).  The information per probe is estimated on long simulated records; the perfect-readout
+column is the bound of a readout that reveals the photon number.
+"""
+
+RINGDOWN_DESCRIPTION = """
+Number of averaged (or jointly fitted) ring-down traces.  Noise is per point of one trace (dB
+for db; per quadrature for iq and amplitude).
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
-    parser = subparsers.add_parser(
-        "plan", help="how much data a target precision needs (or the reverse)",
-        description="Forecast the precision of T_c, n_th (and Q, T_eff) from the Fisher "
-        "information (Cramér–Rao bound) of the likelihood the fits use, for a target "
-        "relative sd (needed amount of data) or a given amount (expected sd); confirmed by "
-        "a short simulate-and-fit study.  All times in s unless a unit is given.",
-        epilog=EXAMPLES, formatter_class=HelpFormatter)
+    """Add ``plan`` (precision forecasts for jumps, probes and ring-down) to the sub-commands."""
+    parser = add_command(
+        subparsers, "plan",
+        "how much data a target precision needs (or the reverse)", DESCRIPTION, EXAMPLES)
     kinds = parser.add_subparsers(dest="plan_kind", metavar="KIND")
 
-    jumps = kinds.add_parser("jumps", help="photon-number jump records",
-                             description="Record length for a jump record (exact change "
-                             "points, or the photon number read every --sample-interval).",
-                             epilog=EXAMPLES, formatter_class=HelpFormatter)
+    jumps = add_command(kinds, "jumps", "photon-number jump records", JUMPS_DESCRIPTION, EXAMPLES)
     _common(jumps)
     jumps.add_argument("--record-length", type=TIME, default=None,
                        help="forecast the precision of this total record length, e.g. 2min")
@@ -109,13 +127,9 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                        help="sampled record: time between photon-number readings, e.g. 50us")
     jumps.set_defaults(func=handle)
 
-    probes = kinds.add_parser("probes", help="raw QND probe records (hidden Markov model)",
-                              description="Number of probes for a raw probe record with a "
-                              "Ramsey-fringe response (or a calibrated table).  The "
-                              "information per probe is estimated on long simulated records; "
-                              "the perfect-readout column is the bound of a readout that "
-                              "reveals the photon number.",
-                              epilog=EXAMPLES, formatter_class=HelpFormatter)
+    probes = add_command(
+        kinds, "probes",
+        "raw QND probe records (hidden Markov model)", PROBES_DESCRIPTION, EXAMPLES)
     _common(probes)
     probes.add_argument("--probe-interval", type=TIME, required=True,
                         help="time between probes, e.g. 20us")
@@ -141,11 +155,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                         help="probability a probe is lost")
     probes.set_defaults(func=handle)
 
-    ring = kinds.add_parser("ringdown", help="ring-down traces",
-                            description="Number of averaged (or jointly fitted) ring-down "
-                            "traces.  Noise is per point of one trace (dB for db; per "
-                            "quadrature for iq and amplitude).",
-                            epilog=EXAMPLES, formatter_class=HelpFormatter)
+    ring = add_command(kinds, "ringdown", "ring-down traces", RINGDOWN_DESCRIPTION, EXAMPLES)
     _common(ring, n_thermal_required=False)
     ring.add_argument("--signal", required=True, type=_signal_word,
                       choices=("power", "db", "amplitude", "iq", "mean-n", "populations"),
@@ -261,6 +271,9 @@ def format_table(table) -> str:
 
 
 def handle(args: argparse.Namespace) -> int:
+    """Run ``cavchar plan <kind>``.
+
+    Forecast, optionally confirm by simulation, print and write; return the exit code."""
     out = None
     if args.out:
         from cavchar.io.atomic import check_can_write

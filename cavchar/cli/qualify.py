@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 import json
 
-from cavchar.cli.common import HelpFormatter, quantity
+from cavchar.cli.common import add_command, quantity
 from cavchar.cli.log import (
     add_log_file_option,
     add_selection_options,
@@ -42,13 +42,18 @@ Exit code 0 all PASS, 4 any FAIL, 5 otherwise any UNDECIDED (2 bad input).
 """
 
 
+DESCRIPTION = """
+Judge each requirement of a spec file from the posterior draws of a logged fit (or a result
+file): the posterior probability that it is met, against its credibility level.
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
-    parser = subparsers.add_parser(
-        "qualify", help="check a cavity against a spec: PASS / FAIL / UNDECIDED (exit 0/4/5)",
-        description="Judge each requirement of a spec file from the posterior draws of a "
-        "logged fit (or a result file): the posterior probability that it is met, against "
-        "its credibility level.",
-        epilog=EXAMPLES, formatter_class=HelpFormatter)
+    """Add ``qualify`` (PASS / FAIL / UNDECIDED against a spec) to the sub-commands."""
+    parser = add_command(
+        subparsers, "qualify",
+        "check a cavity against a spec: PASS / FAIL / UNDECIDED (exit 0/4/5)",
+        DESCRIPTION, EXAMPLES)
     parser.add_argument("spec", metavar="SPEC.toml", help="spec file")
     add_log_file_option(parser)
     parser.add_argument("--cavity", default=None, help="cavity name (data from the log)")
@@ -73,6 +78,7 @@ class _Span:
 
 
 def print_qualification(report) -> None:
+    """Print the verdict of every requirement of a qualification report and the overall verdict."""
     from cavchar.derived import format_probability_error
     from cavchar.tracking.qualify import QUANTITIES
 
@@ -92,6 +98,7 @@ def print_qualification(report) -> None:
 
 
 def handle(args: argparse.Namespace) -> int:
+    """Run ``cavchar qualify``: judge the spec; exit 0 on PASS, 4 on FAIL, 5 on UNDECIDED."""
     from cavchar.tracking.qualify import evidence_from_entry, evidence_from_log, qualify, read_spec
 
     spec = read_spec(args.spec)

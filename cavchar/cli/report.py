@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from cavchar.cli.common import HelpFormatter
+from cavchar.cli.common import add_command
 
 EXAMPLES = """examples:
   cavchar report fit_out/result.json -o report.html
@@ -19,18 +19,19 @@ are equal-tailed 68% and 95% credible intervals of the posterior draws.
 """
 
 
+DESCRIPTION = """
+Write one HTML file with the summary (lifetime, Q, linewidth, n_th, effective temperature with
+68% and 95% intervals), the Planck check in words, the data with the fit, model checks, corner
+plot, chain traces, convergence diagnostics and provenance of each result; with several results
+also a comparison.
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
-    parser = subparsers.add_parser(
-        "report",
-        help="self-contained HTML report of fit results",
-        description="Write one HTML file with the summary (lifetime, Q, linewidth, n_th, "
-        "effective temperature with 68% and 95% intervals), the Planck check in words, "
-        "the data with the fit, model checks, corner plot, chain traces, convergence "
-        "diagnostics and provenance of each result; with several results also a "
-        "comparison.",
-        epilog=EXAMPLES,
-        formatter_class=HelpFormatter,
-    )
+    """Add ``report`` (self-contained HTML report of result files) to the sub-commands."""
+    parser = add_command(
+        subparsers, "report",
+        "self-contained HTML report of fit results", DESCRIPTION, EXAMPLES)
     parser.add_argument("results", nargs="+", metavar="RESULT.json",
                         help="result files written by `cavchar fit ... -o DIR`")
     parser.add_argument("-o", "--out", required=True, metavar="FILE",
@@ -59,6 +60,9 @@ def _fraction(text: str) -> float:
 
 
 def handle(args: argparse.Namespace) -> int:
+    """Run ``cavchar report``.
+
+    Read the result files and write the HTML report; return the exit code."""
     from cavchar.errors import InputError
     from cavchar.io.atomic import check_can_write
     from cavchar.report import write_report

@@ -6,7 +6,7 @@ import argparse
 import math
 from pathlib import Path
 
-from cavchar.cli.common import HelpFormatter, add_output_options, quantity, real, whole
+from cavchar.cli.common import add_command, add_output_options, quantity, real, whole
 from cavchar.errors import InputError
 from cavchar.units import format_quantity, parse_quantity
 
@@ -51,18 +51,25 @@ HELP = {
 }
 
 
+DESCRIPTION = """
+Simulate a thermally damped cavity mode (up rate kappa n_th (n+1), down rate kappa (1+n_th) n,
+kappa = 1/lifetime) and write the data in the formats 'cavchar fit' reads (see
+docs/data-formats.md).  Same seed, same file.
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
-    parser = subparsers.add_parser(
-        "simulate", help="write invented, seeded data files (jumps, sampled, probes, ringdown)",
-        description="Simulate a thermally damped cavity mode (up rate kappa n_th (n+1), down "
-        "rate kappa (1+n_th) n, kappa = 1/lifetime) and write the data in the formats "
-        "'cavchar fit' reads (see docs/data-formats.md).  Same seed, same file.",
-        epilog="Run 'cavchar simulate SHAPE --help' for the options of each shape.",
-        formatter_class=HelpFormatter)
+    """Add ``simulate`` and one sub-command per record shape to the sub-commands."""
+    parser = add_command(
+        subparsers, "simulate",
+        "write invented, seeded data files (jumps, sampled, probes, ringdown)",
+        DESCRIPTION, "Run 'cavchar simulate SHAPE --help' for the options of each shape.")
     shapes = parser.add_subparsers(dest="shape", metavar="SHAPE")
     for shape in ("jumps", "sampled", "probes", "ringdown"):
-        sub = shapes.add_parser(shape, help=HELP[shape], description=f"Simulate: {HELP[shape]}.",
-                                epilog=EXAMPLES[shape], formatter_class=HelpFormatter)
+        sub = add_command(
+            shapes, shape, HELP[shape],
+            f"Simulate: {HELP[shape]}.",
+            EXAMPLES[shape])
         _common(sub, shape)
         if shape != "ringdown":
             _record_options(sub, shape)
@@ -231,6 +238,7 @@ def _path(args: argparse.Namespace):
 
 
 def handle_jumps(args: argparse.Namespace) -> int:
+    """Run ``cavchar simulate jumps``: write an invented jump record (exact change points)."""
     from cavchar.io.writers import write_jump_record
     from cavchar.simulate import simulate_jump_record
 
@@ -245,6 +253,9 @@ def handle_jumps(args: argparse.Namespace) -> int:
 
 
 def handle_sampled(args: argparse.Namespace) -> int:
+    """Run ``cavchar simulate sampled``.
+
+    Write an invented photon-number record read at fixed intervals."""
     from cavchar.io.writers import write_sampled_record
     from cavchar.records import SampledRecord
     from cavchar.simulate import photons_at, simulate_sampled_record
@@ -267,6 +278,9 @@ def handle_sampled(args: argparse.Namespace) -> int:
 
 
 def handle_probes(args: argparse.Namespace) -> int:
+    """Run ``cavchar simulate probes``.
+
+    Write an invented raw QND probe record and its response table."""
     from cavchar.io.writers import write_probe_record, write_sampled_record
     from cavchar.models.response import FringeResponse, TableResponse
     from cavchar.simulate import probes_on_path, simulate_probe_record
@@ -308,6 +322,7 @@ def _number(text: str, dimension: str, option: str, minimum: float | None = 0.0)
 
 
 def handle_ringdown(args: argparse.Namespace) -> int:
+    """Run ``cavchar simulate ringdown``: write invented ring-down traces of the chosen signal."""
     import numpy as np
 
     from cavchar.io.writers import write_ringdown

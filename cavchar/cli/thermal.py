@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from cavchar.cli.common import HelpFormatter, quantity
+from cavchar.cli.common import add_command, quantity
 from cavchar.errors import InputError
 from cavchar.units import format_quantity
 
@@ -15,16 +15,19 @@ EXAMPLES = """examples:
 """
 
 
+DESCRIPTION = """
+Mean thermal photon number n = 1/(exp(h nu / k_B T) - 1) of a mode at frequency nu, and the
+effective temperature T_eff = h nu / (k_B ln(1 + 1/n)) of a measured n_th.  Constants are exact
+(2019 SI).
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
-    parser = subparsers.add_parser(
-        "thermal",
-        help="Planck occupation of a mode and its inverse, the effective temperature",
-        description="Mean thermal photon number n = 1/(exp(h nu / k_B T) - 1) of a mode at "
-        "frequency nu, and the effective temperature T_eff = h nu / (k_B ln(1 + 1/n)) of a "
-        "measured n_th.  Constants are exact (2019 SI).",
-        epilog=EXAMPLES,
-        formatter_class=HelpFormatter,
-    )
+    """Add ``thermal`` (Planck occupation and effective temperature) to the sub-commands."""
+    parser = add_command(
+        subparsers, "thermal",
+        "Planck occupation of a mode and its inverse, the effective temperature",
+        DESCRIPTION, EXAMPLES)
     parser.add_argument("--freq", type=quantity("frequency", positive=True), required=True,
                         help="mode frequency, e.g. 6.8GHz")
     parser.add_argument("--temp", type=quantity("temperature"), action="append", default=None,
@@ -35,6 +38,9 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 
 def handle(args: argparse.Namespace) -> int:
+    """Run ``cavchar thermal``.
+
+    Print n_th for each temperature and T_eff for each n_th; return 0."""
     from cavchar.thermal import H_OVER_KB, effective_temperature, planck_occupation
 
     if not args.temp and not args.n_thermal:

@@ -6,7 +6,7 @@ import argparse
 import json
 from pathlib import Path
 
-from cavchar.cli.common import HelpFormatter, add_output_options
+from cavchar.cli.common import add_command, add_output_options
 from cavchar.cli.log import add_log_file_option, add_selection_options, interval_text
 from cavchar.errors import InputError
 
@@ -40,16 +40,20 @@ def parse_fraction(text: str) -> float:
     return value
 
 
+DESCRIPTION = """
+Trend of one or more cavities across cooldowns from the cooldown log: median and 95% intervals
+of the lifetime [s], n_th and effective temperature [K] from the fits that stand for each
+cooldown (named in every row), and the posterior probability that the lifetime fell by more than
+a fraction relative to a reference cooldown.
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
-    parser = subparsers.add_parser(
-        "trend", help="lifetime, n_th and effective temperature per cooldown, with the "
-        "probability that the lifetime fell; several cavities side by side",
-        description="Trend of one or more cavities across cooldowns from the cooldown log: "
-        "median and 95% intervals of the lifetime [s], n_th and effective temperature [K] "
-        "from the fits that stand for each cooldown (named in every row), and the posterior "
-        "probability that the lifetime fell by more than a fraction relative to a reference "
-        "cooldown.",
-        epilog=EXAMPLES, formatter_class=HelpFormatter)
+    """Add ``trend`` (lifetime, n_th and T_eff per cooldown) to the sub-commands."""
+    parser = add_command(
+        subparsers, "trend",
+        "lifetime, n_th and effective temperature per cooldown, with the "
+        "probability that the lifetime fell; several cavities side by side", DESCRIPTION, EXAMPLES)
     add_log_file_option(parser)
     parser.add_argument("--cavity", required=True, action="append",
                         help="cavity name (repeat to compare cavities side by side)")
@@ -142,6 +146,9 @@ def print_comparison(comparison, why: bool = False) -> None:
 
 
 def handle(args: argparse.Namespace) -> int:
+    """Run ``cavchar trend``.
+
+    Print the per-cooldown table and the probability of a drop; return the exit code."""
     from cavchar.tracking.store import open_log
     from cavchar.tracking.trend import compare_cavities, cooldown_trend
 

@@ -79,6 +79,7 @@ class Scenario:
     spec_toml: str = field(default="")
 
     def cooldown(self, label: str) -> CooldownPlan:
+        """The cooldown plan with this ``label`` (KeyError if the scenario has none)."""
         for plan in self.cooldowns:
             if plan.label == label:
                 return plan

@@ -184,6 +184,7 @@ class Budget:
 
     @property
     def stated(self) -> BudgetFit:
+        """The fit of the stated model: the two-bath fit, or the stage-plus-excess fit."""
         return self.two_bath if self.model == MODEL_TWO_BATH else self.excess
 
     @property
@@ -204,6 +205,7 @@ class Budget:
         return dict(zip(("median", "lo68", "hi68", "lo95", "hi95"), q, strict=True))
 
     def to_dict(self) -> dict:
+        """Plain-JSON form: frequency, stated model and reason, both fits with their parameters."""
         def fit_dict(fit: BudgetFit | None) -> dict | None:
             if fit is None:
                 return None

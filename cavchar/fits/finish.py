@@ -31,6 +31,7 @@ class FitContext:
     command_line: Sequence[str] | None = None
 
     def sources(self) -> list[str]:
+        """Source file names of the record(s) behind the fit (records without a source left out)."""
         records = self.record if isinstance(self.record, (list, tuple)) else [self.record]
         return [r.source for r in records if getattr(r, "source", None)]
 

@@ -63,6 +63,7 @@ class RingdownData:
 
     @property
     def source(self) -> str:
+        """The source files of the traces joined by ", " (``"the trace"`` when none has one)."""
         names = [r.source for r in self.records if r.source]
         return ", ".join(names) if names else "the trace"
 

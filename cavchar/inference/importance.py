@@ -115,6 +115,7 @@ class ImportanceSettings:
             raise InputError(f"target_ess must be positive, got {self.target_ess}")
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form of the settings (an infinite ``df`` as None)."""
         out = asdict(self)
         out["df"] = None if math.isinf(self.df) else float(self.df)
         return out

@@ -144,6 +144,7 @@ class SamplerSettings:
             raise bad(f"unknown moves {self.moves!r}", hint=f"one of {', '.join(_MOVES)}")
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form of the settings (every field)."""
         return asdict(self)
 
 
@@ -190,6 +191,7 @@ class PosteriorRun:
 
     @property
     def names(self) -> list[str]:
+        """Parameter names in the order of the columns of the draws."""
         return [s.name for s in self.specs]
 
 

@@ -175,10 +175,12 @@ class FringeResponse:
 
     @property
     def free_names(self) -> tuple[str, ...]:
+        """Names of the response parameters given a prior (fitted), in the fringe's order."""
         return tuple(n for n, _, _ in _FRINGE if isinstance(getattr(self, n), Prior))
 
     @property
     def fixed_values(self) -> dict[str, float]:
+        """The response parameters given as numbers (held fixed), name -> value."""
         return {n: getattr(self, n) for n, _, _ in _FRINGE
                 if not isinstance(getattr(self, n), Prior)}
 
@@ -292,14 +294,17 @@ class TableResponse:
 
     @property
     def free_names(self) -> tuple[str, ...]:
+        """No free parameters: a calibrated table is used as stated."""
         return ()
 
     @property
     def fixed_values(self) -> dict[str, float]:
+        """No fixed scalar parameters: the table holds the whole response."""
         return {}
 
     @property
     def roles(self) -> dict[str, str]:
+        """Role of the response in the fit: the table is ``"stated"``."""
         return {"table": "stated"}
 
     def for_fit(self) -> TableResponse:
@@ -312,6 +317,7 @@ class TableResponse:
         return int(self.p_one.shape[0] - 1)
 
     def parameter_specs(self) -> tuple[ParameterSpec, ...]:
+        """No sampled parameters (empty tuple)."""
         return ()
 
     def _columns(self, settings: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -353,6 +359,7 @@ class TableResponse:
         return np.broadcast_to(p, (k,) + p.shape).copy(), np.ones(k, dtype=bool)
 
     def describe(self) -> dict[str, Any]:
+        """Plain-JSON description: kind, source, largest photon number, settings (rad) and P(1)."""
         return {"kind": "table", "source": self.source, "max_photons": self.max_photons,
                 "settings": None if self.settings is None else self.settings.tolist(),
                 "p_one": self.p_one.tolist()}

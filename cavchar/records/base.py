@@ -8,7 +8,7 @@ otherwise.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from types import MappingProxyType
 
 import numpy as np
@@ -16,7 +16,7 @@ from numpy.typing import ArrayLike
 
 from cavchar.errors import InputError
 
-__all__ = ["RecordBase", "readonly_array", "segment_spans"]
+__all__ = ["RecordBase", "SegmentedRecord", "readonly_array", "segment_spans"]
 
 
 def readonly_array(array: np.ndarray, given: object = None) -> np.ndarray:
@@ -136,6 +136,31 @@ class RecordBase:
                 seen.add(int(value))
         return array, order, bounds
 
+    def _times(self, hint: str, noun: str = "record") -> np.ndarray:
+        """The ``time`` column in s as float64, refused when the record has no rows."""
+        time = self._float("time", self.time, None)
+        if time.size == 0:
+            raise self._error(f"the {noun} has no rows", hint=hint)
+        return time
+
+    def _ordered_groups(self, name: str, ids: ArrayLike | None, time: np.ndarray):
+        """:meth:`_groups` of ``ids`` over the rows of ``time``, then the check that
+        ``time`` increases strictly inside every group."""
+        array, order, bounds = self._groups(name, ids, time.size)
+        self._increasing(time, bounds, name)
+        return array, order, bounds
+
+    def _freeze(self, **arrays: np.ndarray | None) -> None:
+        """Store each validated array as a read-only field (``None`` stays ``None``);
+        the caller's own arrays are never frozen (:func:`readonly_array`)."""
+        for name, value in arrays.items():
+            object.__setattr__(self, name, None if value is None
+                               else readonly_array(value, getattr(self, name, None)))
+
+    def __len__(self) -> int:
+        """Number of rows (change points, samples, probes or trace points)."""
+        return int(self.time.size)
+
     def _increasing(self, time: np.ndarray, bounds: np.ndarray, name: str) -> None:
         """Strictly increasing times inside every group."""
         if time.size < 2:
@@ -163,6 +188,21 @@ class RecordBase:
         except InputError as exc:
             raise InputError(f"metadata {key!r}: {exc.message}", path=self.source,
                              hint=exc.hint) from None
+
+
+@dataclass(frozen=True, eq=False, repr=False)
+class SegmentedRecord(RecordBase):
+    """A record whose rows fall into segments: ``segment_ids`` (ids in file order) and
+    ``bounds`` (row where each segment starts, then the row count), both set by the
+    record's validation."""
+
+    segment_ids: np.ndarray = field(init=False)
+    bounds: np.ndarray = field(init=False)
+
+    @property
+    def n_segments(self) -> int:
+        """Number of segments."""
+        return int(self.segment_ids.size)
 
 
 def segment_spans(bounds: np.ndarray):

@@ -9,7 +9,7 @@ from typing import NamedTuple
 
 import numpy as np
 
-from cavchar.records.base import RecordBase, readonly_array, segment_spans
+from cavchar.records.base import SegmentedRecord, segment_spans
 
 __all__ = ["JumpRecord", "SampledRecord", "JumpSegment", "SampledSegment", "evenly_sampled"]
 
@@ -88,7 +88,7 @@ class SampledSegment(NamedTuple):
 
 
 @dataclass(frozen=True, eq=False, repr=False)
-class JumpRecord(RecordBase):
+class JumpRecord(SegmentedRecord):
     """Exact photon-number change points of one or more segments.
 
     Row ``i`` says the photon number is ``photons[i]`` from ``time[i]`` until
@@ -124,18 +124,13 @@ class JumpRecord(RecordBase):
     source: str | None = None
     lines: np.ndarray | None = None
     line_kind: str = "line"
-    segment_ids: np.ndarray = field(init=False)
-    bounds: np.ndarray = field(init=False)
 
     def __post_init__(self) -> None:
         self._init_common()
-        time = self._float("time", self.time, None)
+        time = self._times(hint="give at least one change point")
         m = time.size
-        if m == 0:
-            raise self._error("the record has no rows", hint="give at least one change point")
         photons = self._integers("photon number", self.photons, m, minimum=0)
-        segment, ids, bounds = self._groups("segment", self.segment, m)
-        self._increasing(time, bounds, "segment")
+        segment, ids, bounds = self._ordered_groups("segment", self.segment, time)
         end = np.atleast_1d(self._real("end_time", self.end_time))
         if end.size == 1 and ids.size > 1:
             raise self._error(f"one end time given for {ids.size} segments",
@@ -166,21 +161,13 @@ class JumpRecord(RecordBase):
             raise self._error(f"the photon number jumps from {photons[row - 1]} to "
                               f"{photons[row]} at {time[row]} s; an exact record changes by "
                               "one photon at a time", row, hint=_SAMPLED_HINT)
-        for name, value in (("time", time), ("photons", photons), ("end_time", end),
-                            ("segment", segment), ("segment_ids", ids), ("bounds", bounds)):
-            object.__setattr__(self, name, readonly_array(value, getattr(self, name, None)))
+        self._freeze(time=time, photons=photons, end_time=end, segment=segment, segment_ids=ids,
+                     bounds=bounds)
 
     def __repr__(self) -> str:
         return (f"JumpRecord({self.time.size} rows, {self.n_jumps} jumps, "
                 f"{self.segment_ids.size} segment(s), {self.observed_time:.6g} s observed, "
                 f"source={self.source!r})")
-
-    def __len__(self) -> int:
-        return int(self.time.size)
-
-    @property
-    def n_segments(self) -> int:
-        return int(self.segment_ids.size)
 
     @property
     def n_jumps(self) -> int:
@@ -196,6 +183,7 @@ class JumpRecord(RecordBase):
 
     @property
     def max_photons(self) -> int:
+        """Largest photon number in the record."""
         return int(self.photons.max())
 
     def dwell_times(self) -> np.ndarray:
@@ -215,7 +203,7 @@ class JumpRecord(RecordBase):
 
 
 @dataclass(frozen=True, eq=False, repr=False)
-class SampledRecord(RecordBase):
+class SampledRecord(SegmentedRecord):
     """Photon number observed at probe times (regular or irregular), per segment.
 
     Unlike a :class:`JumpRecord`, consecutive samples may differ by any number
@@ -240,34 +228,21 @@ class SampledRecord(RecordBase):
     source: str | None = None
     lines: np.ndarray | None = None
     line_kind: str = "line"
-    segment_ids: np.ndarray = field(init=False)
-    bounds: np.ndarray = field(init=False)
 
     def __post_init__(self) -> None:
         self._init_common()
-        time = self._float("time", self.time, None)
-        if time.size == 0:
-            raise self._error("the record has no rows", hint="give at least one sample")
+        time = self._times(hint="give at least one sample")
         photons = self._integers("photon number", self.photons, time.size, minimum=0)
-        segment, ids, bounds = self._groups("segment", self.segment, time.size)
-        self._increasing(time, bounds, "segment")
-        for name, value in (("time", time), ("photons", photons), ("segment", segment),
-                            ("segment_ids", ids), ("bounds", bounds)):
-            object.__setattr__(self, name, readonly_array(value, getattr(self, name, None)))
+        segment, ids, bounds = self._ordered_groups("segment", self.segment, time)
+        self._freeze(time=time, photons=photons, segment=segment, segment_ids=ids, bounds=bounds)
 
     def __repr__(self) -> str:
         return (f"SampledRecord({self.time.size} samples, {self.segment_ids.size} segment(s), "
                 f"source={self.source!r})")
 
-    def __len__(self) -> int:
-        return int(self.time.size)
-
-    @property
-    def n_segments(self) -> int:
-        return int(self.segment_ids.size)
-
     @property
     def max_photons(self) -> int:
+        """Largest photon number in the record."""
         return int(self.photons.max())
 
     def segments(self) -> list[SampledSegment]:

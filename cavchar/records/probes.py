@@ -9,7 +9,7 @@ from typing import NamedTuple
 
 import numpy as np
 
-from cavchar.records.base import RecordBase, readonly_array, segment_spans
+from cavchar.records.base import SegmentedRecord, segment_spans
 
 __all__ = ["ProbeRecord", "ProbeSegment"]
 
@@ -24,7 +24,7 @@ class ProbeSegment(NamedTuple):
 
 
 @dataclass(frozen=True, eq=False, repr=False)
-class ProbeRecord(RecordBase):
+class ProbeRecord(SegmentedRecord):
     """Raw outcome of every probe.
 
     Parameters
@@ -49,15 +49,11 @@ class ProbeRecord(RecordBase):
     source: str | None = None
     lines: np.ndarray | None = None
     line_kind: str = "line"
-    segment_ids: np.ndarray = field(init=False)
-    bounds: np.ndarray = field(init=False)
 
     def __post_init__(self) -> None:
         self._init_common()
-        time = self._float("time", self.time, None)
+        time = self._times(hint="give at least one probe")
         m = time.size
-        if m == 0:
-            raise self._error("the record has no rows", hint="give at least one probe")
         outcome = self._float("outcome", self.outcome, m, allow_nan=True)
         bad = ~np.isnan(outcome) & (outcome != 0) & (outcome != 1)
         if bad.any():
@@ -65,26 +61,17 @@ class ProbeRecord(RecordBase):
             raise self._error(f"outcome {outcome[row]} is neither 0 nor 1", row,
                               hint="write 0 or 1, or leave the cell empty for a lost probe")
         setting = None if self.setting is None else self._float("setting", self.setting, m)
-        segment, ids, bounds = self._groups("segment", self.segment, m)
-        self._increasing(time, bounds, "segment")
-        for name, value in (("time", time), ("outcome", outcome), ("setting", setting),
-                            ("segment", segment), ("segment_ids", ids), ("bounds", bounds)):
-            object.__setattr__(self, name, None if value is None
-                               else readonly_array(value, getattr(self, name, None)))
+        segment, ids, bounds = self._ordered_groups("segment", self.segment, time)
+        self._freeze(time=time, outcome=outcome, setting=setting, segment=segment,
+                     segment_ids=ids, bounds=bounds)
 
     def __repr__(self) -> str:
         return (f"ProbeRecord({self.time.size} probes, {self.n_lost} lost, "
                 f"{self.segment_ids.size} segment(s), source={self.source!r})")
 
-    def __len__(self) -> int:
-        return int(self.time.size)
-
-    @property
-    def n_segments(self) -> int:
-        return int(self.segment_ids.size)
-
     @property
     def n_lost(self) -> int:
+        """Number of lost probes (NaN outcome)."""
         return int(np.count_nonzero(np.isnan(self.outcome)))
 
     @property

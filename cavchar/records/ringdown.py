@@ -9,7 +9,7 @@ from typing import NamedTuple
 import numpy as np
 from numpy.typing import ArrayLike
 
-from cavchar.records.base import RecordBase, readonly_array, segment_spans
+from cavchar.records.base import RecordBase, segment_spans
 
 __all__ = ["RingdownTrace", "TraceSegment", "SIGNALS"]
 
@@ -70,10 +70,8 @@ class RingdownTrace(RecordBase):
             raise self._error(f"unknown signal kind {self.signal!r}",
                               hint=f"choose one of {', '.join(SIGNALS)}")
         object.__setattr__(self, "signal", signal)
-        time = self._float("time", self.time, None)
+        time = self._times(hint="give at least one point", noun="trace")
         m = time.size
-        if m == 0:
-            raise self._error("the trace has no rows", hint="give at least one point")
         value = self._value(signal, self.value, m)
         sigma = None
         if self.sigma is not None:
@@ -84,12 +82,9 @@ class RingdownTrace(RecordBase):
                 row = int(np.argmax(sigma <= 0))
                 raise self._error(f"sigma {sigma[row]} is not positive", row,
                                   hint="a standard deviation must be > 0")
-        trace, ids, bounds = self._groups("trace", self.trace, m)
-        self._increasing(time, bounds, "trace")
-        for name, item in (("time", time), ("value", value), ("sigma", sigma),
-                           ("trace", trace), ("trace_ids", ids), ("bounds", bounds)):
-            object.__setattr__(self, name, None if item is None
-                               else readonly_array(item, getattr(self, name, None)))
+        trace, ids, bounds = self._ordered_groups("trace", self.trace, time)
+        self._freeze(time=time, value=value, sigma=sigma, trace=trace, trace_ids=ids,
+                     bounds=bounds)
 
     def _value(self, signal: str, value: ArrayLike, m: int) -> np.ndarray:
         if signal == "iq":
@@ -150,11 +145,9 @@ class RingdownTrace(RecordBase):
         return (f"RingdownTrace({self.signal}, {self.time.size} points, "
                 f"{self.trace_ids.size} trace(s), source={self.source!r})")
 
-    def __len__(self) -> int:
-        return int(self.time.size)
-
     @property
     def n_traces(self) -> int:
+        """Number of traces."""
         return int(self.trace_ids.size)
 
     @property

@@ -227,6 +227,7 @@ class CooldownBudget:
 
     @property
     def fit_ids(self) -> tuple[int, ...]:
+        """Log ids of the fits used for this cooldown, sorted."""
         return tuple(sorted(u[0] for u in self.selection.used))
 
 
@@ -243,9 +244,11 @@ class CooldownBudgets:
 
     @property
     def fit_ids(self) -> tuple[int, ...]:
+        """Log ids of the fits used for any cooldown, sorted."""
         return tuple(sorted({i for c in self.per_cooldown for i in c.fit_ids}))
 
     def to_dict(self) -> dict:
+        """Plain-JSON form: cavity, frequency and, per cooldown, the fits used and set aside."""
         return {"cavity": self.cavity, "freq_hz": self.freq_hz, "fit_ids": list(self.fit_ids),
                 "per_cooldown": [{"cooldown": c.cooldown, "fit_ids": list(c.fit_ids),
                                   "used": [{"fit_id": i, "stage_temp_k": t, "why": why}

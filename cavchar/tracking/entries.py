@@ -140,6 +140,8 @@ class FitEntry:
 
     @property
     def settings_sha256(self) -> str:
+        """SHA-256 of the settings that decide the result (kind, model, settings, seed,
+        parameters)."""
         return settings_digest(self.kind, self.model, self.settings, self.seed,
                                self.parameters)
 

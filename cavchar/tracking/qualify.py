@@ -69,6 +69,7 @@ class Requirement:
     notes: str = ""
 
     def describe(self) -> str:
+        """The requirement in words, e.g. ``lifetime >= 1 ms at 95% credibility``."""
         from cavchar.units import format_quantity
 
         dim = QUANTITIES[self.quantity][0]
@@ -266,11 +267,13 @@ class Qualification:
 
     @property
     def status(self) -> str:
+        """Overall verdict: FAIL if any requirement fails, else UNDECIDED if any is, else PASS."""
         states = {v.status for v in self.verdicts}
         return "FAIL" if "FAIL" in states else "UNDECIDED" if "UNDECIDED" in states else "PASS"
 
     @property
     def exit_code(self) -> int:
+        """Exit code of the verdict: 0 PASS, 4 FAIL, 5 UNDECIDED."""
         return {"PASS": EXIT_PASS, "FAIL": EXIT_FAIL, "UNDECIDED": EXIT_UNDECIDED}[self.status]
 
     @property
@@ -280,6 +283,7 @@ class Qualification:
                              if v.evidence is not None and v.evidence.fit_id is not None}))
 
     def to_dict(self) -> dict:
+        """Plain-JSON form: title, spec path, verdict, exit code, fit ids and every requirement."""
         return {"title": self.spec.title, "spec": self.spec.path, "status": self.status,
                 "exit_code": self.exit_code, "fit_ids": list(self.fit_ids),
                 "requirements": [_verdict_dict(v) for v in self.verdicts]}

@@ -62,6 +62,7 @@ class Choice:
     reason: str
 
     def as_dict(self) -> dict:
+        """Plain-JSON form of the choice."""
         return {"quantity": self.quantity, "fit_id": self.fit_id, "kind": self.kind,
                 "stage_temp_k": self.stage_temp_k, "reason": self.reason}
 
@@ -84,6 +85,7 @@ class CooldownSelection:
         return tuple(sorted({c.fit_id for c in self.choices.values()}))
 
     def as_dict(self) -> dict:
+        """Plain-JSON form: the cavity, cooldown, base temperature, choices and notes."""
         return {"cavity": self.cavity, "cooldown": self.cooldown,
                 "base_temp_k": self.base_temp_k, "fit_ids": list(self.fit_ids),
                 "used": {q: c.as_dict() for q, c in self.choices.items()},

@@ -217,6 +217,7 @@ class CooldownLog:
         self.close()
 
     def close(self) -> None:
+        """Close the database connection."""
         self._con.close()
 
     @contextmanager
@@ -251,9 +252,11 @@ class CooldownLog:
 
     # -- cavities and cooldowns ---------------------------------------------------
     def cavities(self) -> list[Cavity]:
+        """Every cavity in the log, by name."""
         return [Cavity(*r) for r in self._query("SELECT * FROM cavities ORDER BY name")]
 
     def cooldowns(self) -> list[Cooldown]:
+        """Every cooldown in the log, by start date."""
         rows = self._query("SELECT * FROM cooldowns ORDER BY start_date, id")
         return [Cooldown(*r[:4], json.loads(r[4]), *r[5:]) for r in rows]
 

@@ -433,6 +433,7 @@ class ComparisonRow:
     basis: str
 
     def as_dict(self) -> dict:
+        """Plain-JSON form of the row."""
         return dict(self.__dict__)
 
 
@@ -444,10 +445,12 @@ class CavityComparison:
     rows: tuple[ComparisonRow, ...]
 
     def to_dict(self) -> dict:
+        """Plain-JSON form: each cavity's trend and the lifetime comparisons."""
         return {"cavities": [t.to_dict() for t in self.trends],
                 "lifetime_comparisons": [r.as_dict() for r in self.rows]}
 
     def table(self):
+        """One table (pandas DataFrame) of every cavity's trend, stacked."""
         import pandas as pd
 
         return pd.concat([t.table() for t in self.trends], ignore_index=True)

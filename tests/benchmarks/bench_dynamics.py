@@ -6,19 +6,8 @@ Target (foundation issue): >= 100x faster than mesolve, agreement < 1e-8.
 
 from __future__ import annotations
 
-import statistics
-import time
-
 import numpy as np
-
-
-def _median_time(func, repeats):
-    times = []
-    for _ in range(repeats):
-        start = time.perf_counter()
-        out = func()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times), out
+from timing import median_time
 
 
 def main() -> None:
@@ -43,8 +32,8 @@ def main() -> None:
                             options={"atol": 1e-13, "rtol": 1e-11})
         return np.array(res.expect).T
 
-    t_ours, p_ours = _median_time(ours, 21)
-    t_peer, p_peer = _median_time(peer, 3)
+    t_ours, p_ours = median_time(ours, 21)
+    t_peer, p_peer = median_time(peer, 3)
     print(f"populations, N={n_levels}, 1000 times: cavchar {t_ours * 1e3:.3f} ms, "
           f"QuTiP mesolve {t_peer * 1e3:.1f} ms, ratio {t_peer / t_ours:.0f}x, "
           f"max |difference| {np.max(np.abs(p_ours - p_peer)):.2e}")

@@ -19,31 +19,16 @@ from __future__ import annotations
 import argparse
 import json
 import math
-import statistics
 import subprocess
 import sys
 import time
 
 import numpy as np
+from timing import median_seconds, peak_rss_mb
 
 LIFETIME, N_TH, INTERVAL = 0.08, 0.15, 1e-4
 RESPONSE = dict(visibility=0.9, phase_per_photon=math.pi, readout_error_0=0.02,
                 readout_error_1=0.03)
-
-
-def peak_rss_mb() -> float:
-    """Peak resident memory of this process in MB: VmHWM from /proc (fresh at exec, unlike
-    getrusage's ru_maxrss, which a child started from a big parent may inherit)."""
-    try:
-        with open("/proc/self/status", encoding="ascii") as fh:
-            for line in fh:
-                if line.startswith("VmHWM:"):
-                    return float(line.split()[1]) / 1024.0
-    except OSError:
-        pass
-    import resource
-
-    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
 
 
 def make_record(n_probes: int, seed: int = 1):
@@ -69,12 +54,7 @@ def hmmlearn_score_time(rec, n_levels: int, repeats: int = 3) -> float:
     ref.transmat_ = transition_matrices_batch([1 / LIFETIME], [N_TH], n_levels, [INTERVAL])[0, 0]
     ref.emissionprob_ = np.column_stack([1 - p1, p1])
     x = rec.outcome.astype(int)[:, None]
-    times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        ref.score(x)
-        times.append(time.perf_counter() - t0)
-    return statistics.median(times)
+    return median_seconds(lambda: ref.score(x), repeats)
 
 
 def run_fit(n_probes: int, mode: str, walkers: int) -> dict:

@@ -10,21 +10,12 @@ CSV (the jump-record fit reads it back).
 
 from __future__ import annotations
 
-import statistics
 import tempfile
 import time
 from pathlib import Path
 
 import numpy as np
-
-
-def _median_time(func, repeats):
-    times, out = [], None
-    for _ in range(repeats):
-        start = time.perf_counter()
-        out = func()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times), out
+from timing import median_time
 
 
 def main() -> None:
@@ -40,15 +31,15 @@ def main() -> None:
     simulate_jump_record(lifetime, n_th, 1.0, seed=0)  # compiles (or loads the cache)
     print(f"first call (numba compile or cache load): {time.perf_counter() - start:.2f} s")
 
-    t_fast, record = _median_time(
+    t_fast, record = median_time(
         lambda: simulate_jump_record(lifetime, n_th, duration, seed=1), 7)
     print(f"Gillespie, {record.n_jumps:,} jumps: median {t_fast * 1e3:.1f} ms "
           f"({t_fast / record.n_jumps * 1e9:.1f} ns per jump); target < 1 s")
 
     small = duration / 10
     rng_args = (kappa, n_th, 0, 0.0, small)
-    t_compiled, fast = _median_time(lambda: jump_path(*rng_args, np.random.default_rng(2)), 7)
-    t_python, slow = _median_time(
+    t_compiled, fast = median_time(lambda: jump_path(*rng_args, np.random.default_rng(2)), 7)
+    t_python, slow = median_time(
         lambda: jump_path(*rng_args, np.random.default_rng(2), compiled=False), 3)
     assert np.array_equal(fast[0], slow[0]) and np.array_equal(fast[1], slow[1])
     jumps = fast[0].size - 1
@@ -57,8 +48,8 @@ def main() -> None:
 
     with tempfile.TemporaryDirectory() as folder:
         path = Path(folder) / "jumps.csv"
-        t_write, _ = _median_time(lambda: write_jump_record(record, path, force=True), 3)
-        t_read, back = _median_time(lambda: read_jump_record(path), 5)
+        t_write, _ = median_time(lambda: write_jump_record(record, path, force=True), 3)
+        t_read, back = median_time(lambda: read_jump_record(path), 5)
         assert np.array_equal(back.time, record.time)
         size = path.stat().st_size / 1e6
         print(f"CSV of {len(record):,} rows ({size:.0f} MB): write {t_write * 1e3:.0f} ms, "

@@ -14,36 +14,11 @@ from __future__ import annotations
 
 import argparse
 import json
-import statistics
 import subprocess
 import sys
-import time
 
 import numpy as np
-
-
-def peak_rss_mb() -> float:
-    """Peak resident memory of this process in MB: VmHWM from /proc (fresh at exec, unlike
-    getrusage's ru_maxrss, which a child started from a big parent may inherit)."""
-    try:
-        with open("/proc/self/status", encoding="ascii") as fh:
-            for line in fh:
-                if line.startswith("VmHWM:"):
-                    return float(line.split()[1]) / 1024.0
-    except OSError:
-        pass
-    import resource
-
-    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
-
-
-def median_time(func, repeats: int) -> float:
-    times = []
-    for _ in range(repeats):
-        start = time.perf_counter()
-        func()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times)
+from timing import median_seconds, peak_rss_mb
 
 
 def make_case(n_probes: int, n_levels: int, k: int, seed: int = 1):
@@ -104,7 +79,7 @@ def main() -> None:
     ref.emissionprob_ = np.column_stack([1 - c["p1"][0], c["p1"][0]])
     x = c["y"][:, None]
     expected = ref.score(x)
-    t_ref = median_time(lambda: ref.score(x), args.repeats)
+    t_ref = median_seconds(lambda: ref.score(x), args.repeats)
 
     print(f"{t} probes, {n} levels, {numba.get_num_threads()} numba threads")
     print(f"hmmlearn CategoricalHMM.score (scaling): {t_ref * 1e3:8.1f} ms "
@@ -118,15 +93,15 @@ def main() -> None:
         tr = hk.Transitions.regular(c["trans"][sl])
         got = hk.forward_loglik(tr, c["p0"][sl], c["emis"], c["seq"])  # compile / warm
         assert abs(got[0] / expected - 1) < 1e-8, (got[0], expected)
-        per_set = median_time(lambda tr=tr, sl=sl: hk.forward_loglik(
+        per_set = median_seconds(lambda tr=tr, sl=sl: hk.forward_loglik(
             tr, c["p0"][sl], c["emis"], c["seq"]), args.repeats) / k
         rows.append(("regular, unrolled", k, per_set))
-    per_set = median_time(lambda: hk.forward_loglik(tr_all, c["p0"], c["emis"], c["seq"],
+    per_set = median_seconds(lambda: hk.forward_loglik(tr_all, c["p0"], c["emis"], c["seq"],
                                                     unrolled=False), 3) / 32
     rows.append(("regular, loop kernel", 32, per_set))
     tre = hk.Transitions.eigen(r, lam, left, dts)
     hk.forward_loglik(tre, c["p0"], c["emis"], c["seq"])
-    per_set = median_time(lambda: hk.forward_loglik(tre, c["p0"], c["emis"], c["seq"]), 3) / 32
+    per_set = median_seconds(lambda: hk.forward_loglik(tre, c["p0"], c["emis"], c["seq"]), 3) / 32
     rows.append(("irregular (eigen), unrolled", 32, per_set))
     for name, k, per_set in rows:
         print(f"cavchar {name:30s} k={k:2d}: {per_set * 1e3:8.2f} ms/set "
@@ -135,12 +110,13 @@ def main() -> None:
     print(f"RESULT exact log-likelihood speed-up (k = 32): {t_ref / best:.1f}x (target >= 4x)")
 
     one = tr_all.select(0)
-    t_fb = median_time(lambda: hk.posterior_marginals(one, c["p0"][0], c["emis"][0], c["seq"]), 3)
-    t_vi = median_time(lambda: hk.viterbi(one, c["p0"][0], c["emis"][0], c["seq"]), 3)
+    t_fb = median_seconds(
+        lambda: hk.posterior_marginals(one, c["p0"][0], c["emis"][0], c["seq"]), 3)
+    t_vi = median_seconds(lambda: hk.viterbi(one, c["p0"][0], c["emis"][0], c["seq"]), 3)
     print(f"forward-backward marginals: {t_fb * 1e3:.1f} ms; Viterbi: {t_vi * 1e3:.1f} ms "
           f"(hmmlearn predict_proba/decode for comparison: ", end="")
-    t_pp = median_time(lambda: ref.predict_proba(x), 1)
-    t_de = median_time(lambda: ref.decode(x), 1)
+    t_pp = median_seconds(lambda: ref.predict_proba(x), 1)
+    t_de = median_seconds(lambda: ref.decode(x), 1)
     print(f"{t_pp * 1e3:.1f} ms / {t_de * 1e3:.1f} ms)")
 
     out = subprocess.run([sys.executable, __file__, "--memory-child", "--probes", str(t),

@@ -12,21 +12,13 @@ Run: ``python tests/benchmarks/bench_jumps.py [--memory]``; medians of repeats.
 
 from __future__ import annotations
 
-import statistics
 import subprocess
 import sys
 import tempfile
 import time
 from pathlib import Path
 
-
-def _median(func, repeats: int) -> float:
-    times = []
-    for _ in range(repeats):
-        start = time.perf_counter()
-        func()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times)
+from timing import median_seconds
 
 
 def _exact_file(folder: Path, rows: int) -> Path:
@@ -60,13 +52,13 @@ def main() -> None:
             rec = read_jump_record(path)
             jump_statistics(rec.time, rec.photons, rec.end_time, rec.segment)
 
-        t_ours = _median(read_and_stats, 5)
-        t_peer = _median(lambda: pd.read_csv(path, comment="#"), 5)
+        t_ours = median_seconds(read_and_stats, 5)
+        t_peer = median_seconds(lambda: pd.read_csv(path, comment="#"), 5)
         print(f"read + statistics: {t_ours:.3f} s (target < 1 s); pandas.read_csv alone "
               f"{t_peer:.3f} s; ratio {t_ours / t_peer:.2f}")
 
         settings = SamplerSettings(quiet=True, seed=1, target_ess=4000)
-        t_fit = _median(lambda: fit_jumps(path, settings=settings), 3)
+        t_fit = median_seconds(lambda: fit_jumps(path, settings=settings), 3)
         result = fit_jumps(path, settings=settings)
         ess = min(result.diagnostics["ess_bulk"].values())
         print(f"whole exact fit: {t_fit:.2f} s (target < 5 s), smallest bulk ESS {ess:.0f}")

@@ -7,20 +7,9 @@ Run: ``python tests/benchmarks/bench_plan.py`` (medians of repeats, ratio, agree
 
 from __future__ import annotations
 
-import statistics
-import time
-
 import numpy as np
 from scipy import linalg
-
-
-def _median_time(func, repeats):
-    times = []
-    for _ in range(repeats):
-        start = time.perf_counter()
-        out = func()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times), out
+from timing import median_time
 
 
 def _peer_derivatives(lifetime, n_thermal, dts, n_levels):
@@ -44,9 +33,9 @@ def main() -> None:
     lifetime, n_thermal, n_levels = 1.2e-3, 0.1, 16
     dts = np.linspace(0.05e-3, 5e-3, 40)
 
-    t_ours, (p1, g1) = _median_time(
+    t_ours, (p1, g1) = median_time(
         lambda: _transition_derivatives(lifetime, n_thermal, dts, n_levels), 21)
-    t_peer, (p2, g2) = _median_time(
+    t_peer, (p2, g2) = median_time(
         lambda: _peer_derivatives(lifetime, n_thermal, dts, n_levels), 5)
     rows = slice(0, 4)  # the rows the information uses with any weight (thermal bulk + Fock 2)
     diff_p = np.max(np.abs(p1[:, rows] - p2[:, rows]))

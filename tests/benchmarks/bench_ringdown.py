@@ -16,20 +16,11 @@ Targets (ring-down issue):
 from __future__ import annotations
 
 import argparse
-import statistics
 import time
 import warnings
 
 import numpy as np
-
-
-def _median_time(func, repeats):
-    times, out = [], None
-    for _ in range(repeats):
-        start = time.perf_counter()
-        out = func()
-        times.append(time.perf_counter() - start)
-    return statistics.median(times), out
+from timing import median_time
 
 
 def _trace(n, seed, lifetime=0.2, amp=3.0, floor=0.1, sigma=0.5, span=1.0):
@@ -55,8 +46,8 @@ def bench_least_squares(n: int, repeats: int) -> float:
         return curve_fit(model, t, y, p0=[3.0 * 1.03, 5.0 * 0.97, 0.1 * 1.1])
 
     ours()  # compile / warm caches
-    t_ours, fit = _median_time(ours, repeats)
-    t_peer, (p, cov) = _median_time(peer, repeats)
+    t_ours, fit = median_time(ours, repeats)
+    t_peer, (p, cov) = median_time(peer, repeats)
     dev = np.max(np.abs(fit.params - p) / np.sqrt(np.diag(cov)))
     print(f"least squares, n = {n:.0e}: variable projection {t_ours:.3f} s, curve_fit from a "
           f"good guess {t_peer:.3f} s, ratio curve_fit/ours {t_peer / t_ours:.2f} "
@@ -95,7 +86,7 @@ def bench_posterior(n: int, repeats: int, target: float) -> float:
     derived quantities, residual diagnostics, the two-exponential comparison."""
     t, y = _trace(n, 2)
     _fit(*_trace(30_000, 3), seed=1)  # compile the kernels (short and long paths) once
-    elapsed, result = _median_time(lambda: _fit(t, y, seed=4), repeats)
+    elapsed, result = median_time(lambda: _fit(t, y, seed=4), repeats)
     d = result.diagnostics
     draws = result.samples["lifetime"]
     print(f"whole posterior (fit_ringdown), n = {n:.0e}: {elapsed:.2f} s (target < {target:g} "
@@ -122,8 +113,8 @@ def bench_against_brute_force(n: int) -> None:
     dll = np.max(np.abs(fast_model.log_likelihood(theta)
                         - fast_model.log_likelihood(theta, direct=True)))
     k = np.full((16, 1), np.median(fast))
-    e_fast, _ = _median_time(lambda: fast_model.log_likelihood(k), 50)
-    e_slow, _ = _median_time(lambda: slow_model.log_likelihood(k), 5)
+    e_fast, _ = median_time(lambda: fast_model.log_likelihood(k), 50)
+    e_slow, _ = median_time(lambda: slow_model.log_likelihood(k), 5)
     # a log-density perturbed by at most d changes every posterior probability by a
     # factor within exp(+-2 d)
     ess = min(fast_run.diagnostics["ess_bulk"]["lifetime"],

@@ -85,6 +85,33 @@ def widen(draws: np.ndarray, factor: float) -> np.ndarray:
     return mean + factor * (draws - mean)
 
 
+#: negative controls: every posterior spread this many times too wide or too narrow
+CONTROL_FACTORS = (2.0, 0.5)
+
+
+def control_results(truth: np.ndarray, draws: list[np.ndarray], n_draws: int,
+                    bins: int) -> dict[float, dict[str, np.ndarray]]:
+    """:func:`uniformity` of the ranks with the draws :func:`widen`-ed by each of
+    :data:`CONTROL_FACTORS` (a posterior sd off by a factor 2 either way)."""
+    return {factor: uniformity(ranks(truth, [widen(d, factor) for d in draws]), n_draws, bins)
+            for factor in CONTROL_FACTORS}
+
+
+def check_sbc(truth: np.ndarray, draws: list[np.ndarray], n_draws: int, bins: int, *,
+              controls: bool = True, label: str | None = None) -> dict[str, np.ndarray]:
+    """Assert that the ranks of ``truth`` among ``draws`` pass both uniformity tests and,
+    with ``controls``, that each negative control (:func:`control_results`) fails them;
+    return the uniformity result (printed first under ``label`` when given)."""
+    result = uniformity(ranks(truth, draws), n_draws, bins=bins)
+    if label is not None:
+        print(f"SBC {label}:", result)
+    assert calibrated(result), result
+    if controls:
+        for factor, wrong in control_results(truth, draws, n_draws, bins).items():
+            assert not calibrated(wrong), (factor, wrong)
+    return result
+
+
 def thin_to(draws: np.ndarray, n: int) -> np.ndarray:
     """``n`` draws evenly spaced through a chain (far apart: nearly independent)."""
     idx = np.linspace(0, draws.shape[0] - 1, n).round().astype(int)

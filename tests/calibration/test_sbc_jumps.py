@@ -15,6 +15,7 @@ import numpy as np
 import pytest
 from calibration_tools import (
     calibrated,
+    check_sbc,
     gamma_rate_draws,
     lifetime_and_n,
     ranks,
@@ -110,11 +111,7 @@ def test_sbc_exact_records_through_the_sampler_quick():
     # likelihood and log-uniform priors, emcee through cavchar.inference.sample_posterior;
     # 49 draws spaced through each chain; 5 bins of 10 ranks
     truth, draws = _mcmc_ranks(40, 49, seed=31, settings=_quick_settings(), use_fit=False)
-    result = uniformity(ranks(truth, draws), 49, bins=5)
-    assert calibrated(result), result
-    for factor in (2.0, 0.5):
-        wrong = uniformity(ranks(truth, [widen(d, factor) for d in draws]), 49, bins=5)
-        assert not calibrated(wrong), (factor, wrong)
+    check_sbc(truth, draws, 49, bins=5)
 
 
 @pytest.mark.slow
@@ -124,9 +121,7 @@ def test_sbc_fit_jumps_exact_full():
 
     truth, draws = _mcmc_ranks(200, 99, seed=41, settings=SamplerSettings(quiet=True),
                                use_fit=True)
-    result = uniformity(ranks(truth, draws), 99, bins=10)
-    print("SBC fit_jumps exact:", result)
-    assert calibrated(result), result
+    check_sbc(truth, draws, 99, bins=10, controls=False, label="fit_jumps exact")
 
 
 @pytest.mark.slow
@@ -136,6 +131,4 @@ def test_sbc_fit_jumps_sampled_full():
 
     truth, draws = _mcmc_ranks(100, 99, seed=51, settings=SamplerSettings(quiet=True),
                                use_fit=True, sampled=0.2e-3)
-    result = uniformity(ranks(truth, draws), 99, bins=10)
-    print("SBC fit_jumps sampled:", result)
-    assert calibrated(result), result
+    check_sbc(truth, draws, 99, bins=10, controls=False, label="fit_jumps sampled")

@@ -61,6 +61,7 @@ class Table:
 
     @property
     def n_rows(self) -> int:
+        """Number of rows (0 for a table without columns)."""
         return len(next(iter(self.columns.values()))) if self.columns else 0
 
     def __contains__(self, name: object) -> bool:

@@ -87,6 +87,9 @@ class JumpStatistics:
     n_max: int
 
     def to_dict(self) -> dict:
+        """Plain-JSON form.
+
+        Jump counts, the integrals of n and n + 1 over time (s), duration (s), segments."""
         return {
             "up_jumps": self.up,
             "down_jumps": self.down,
@@ -227,6 +230,7 @@ class SampledTransitions:
 
     @property
     def n_transitions(self) -> int:
+        """Number of observed transitions between successive samples (all pairs of levels)."""
         return int(self.count.sum())
 
 
@@ -316,6 +320,9 @@ class ExactJumpModel:
     initial: str = "conditional"
 
     def log_likelihood(self, theta: np.ndarray) -> np.ndarray:
+        """Exact-record log-likelihood of ``theta`` ``(k, 2)`` = (T_c in s, n_th) -> ``(k,)``.
+
+        See :func:`exact_log_likelihood` for the equation."""
         theta = np.asarray(theta, dtype=float)
         return exact_log_likelihood(self.stats, theta[:, 0], theta[:, 1], initial=self.initial)
 
@@ -344,11 +351,15 @@ class SampledJumpModel:
     initial: str = "conditional"
 
     def log_likelihood(self, theta: np.ndarray) -> np.ndarray:
+        """Sampled-record log-likelihood of ``theta`` ``(k, 2)`` = (T_c in s, n_th) -> ``(k,)``.
+
+        See :func:`sampled_log_likelihood` for the equation."""
         theta = np.asarray(theta, dtype=float)
         return sampled_log_likelihood(self.transitions, theta[:, 0], theta[:, 1],
                                       self.n_levels, initial=self.initial)
 
     def initial_guess(self) -> np.ndarray:
+        """The starting point ``(T_c in s, n_th)``, shape ``(2,)``."""
         return np.asarray(self.guess, dtype=float)
 
 

@@ -25,7 +25,7 @@ from scipy import optimize, special
 
 from cavchar.models.ringdown.least_squares import fit_exponentials
 from cavchar.models.ringdown.power import default_lifetime_bounds
-from cavchar.models.ringdown.series import DecaySeries, as_batch, default_spec
+from cavchar.models.ringdown.series import DecayModel, DecaySeries, as_batch, default_spec
 
 __all__ = ["DecibelDecay", "db_model"]
 
@@ -37,7 +37,7 @@ def db_model(tau: np.ndarray, lifetime, amplitude, floor) -> np.ndarray:
     return 10.0 * np.log10(amplitude * np.exp(-tau / lifetime) + floor)
 
 
-class DecibelDecay:
+class DecibelDecay(DecayModel):
     """Exponential decay with floor observed in dB (module docstring).
 
     Parameters
@@ -49,10 +49,8 @@ class DecibelDecay:
     signal = "db"
 
     def __init__(self, series: DecaySeries) -> None:
-        self.series = series
-        self.tau = np.asarray(series.tau, dtype=float)
+        self._hold(series)
         self.y = np.asarray(series.values, dtype=float)
-        self.fitted_sigma = series.sigma is None
         n = series.n
         if self.fitted_sigma:
             self._const = (special.gammaln(n / 2) + (n / 2 - 1) * math.log(2)
@@ -71,10 +69,6 @@ class DecibelDecay:
             default_spec("floor", "", "F", 1e-9 * base, 1e3 * peak, True),
         )
 
-    @property
-    def ndim(self) -> int:
-        return 3
-
     def _least_squares(self) -> np.ndarray:
         """Start: linear-power fit (relative weights), then least squares in dB."""
         power = 10 ** (self.y / 10)
@@ -90,9 +84,6 @@ class DecibelDecay:
 
         sol = optimize.least_squares(resid, x0, method="lm", xtol=1e-12, ftol=1e-12)
         return np.exp(sol.x)
-
-    def initial_guess(self) -> np.ndarray:
-        return self.start.copy()
 
     def _rss(self, theta: np.ndarray) -> np.ndarray:
         out = np.empty(theta.shape[0])

@@ -57,6 +57,7 @@ from cavchar.models.ringdown.exponential_sums import ExponentialSums
 from cavchar.models.ringdown.least_squares import fit_exponentials
 from cavchar.models.ringdown.power import default_lifetime_bounds
 from cavchar.models.ringdown.series import (
+    DecayModel,
     DecaySeries,
     amplitude_bound,
     as_batch,
@@ -68,7 +69,7 @@ __all__ = ["rice_logpdf", "MagnitudeDecay", "IQDecay"]
 _BLOCK = 2_000_000
 
 
-class MagnitudeDecay:
+class MagnitudeDecay(DecayModel):
     """Field magnitudes with Rice noise; see the module docstring.
 
     Parameters
@@ -80,11 +81,8 @@ class MagnitudeDecay:
     signal = "amplitude"
 
     def __init__(self, series: DecaySeries) -> None:
-        self.series = series
-        self.tau = np.asarray(series.tau, dtype=float)
+        self._hold(series)
         self.m = np.asarray(series.values, dtype=float)
-        self.fitted_sigma = series.sigma is None
-        self.start = self._least_squares()
         low, high = default_lifetime_bounds([series])
         top = float(self.m.max())
         params = [
@@ -94,10 +92,7 @@ class MagnitudeDecay:
         if self.fitted_sigma:
             params.append(default_spec("sigma", "", "sigma", 1e-6 * top, 1e2 * top, True))
         self.specs = tuple(params)
-
-    @property
-    def ndim(self) -> int:
-        return 3 if self.fitted_sigma else 2
+        self.start = self._least_squares()  # evaluates the likelihood: after the specs
 
     def _least_squares(self) -> np.ndarray:
         """Start from the power ``m^2``: ``E[m^2] = nu^2 + 2 sigma^2`` decays with ``T_c``."""
@@ -115,9 +110,6 @@ class MagnitudeDecay:
                                 options={"xatol": 1e-8, "fatol": 1e-8, "maxiter": 4000})
         x = sol.x if np.isfinite(sol.fun) else x0
         return np.exp(x)
-
-    def initial_guess(self) -> np.ndarray:
-        return self.start.copy()
 
     def log_likelihood(self, theta: np.ndarray) -> np.ndarray:
         """(k, ndim) -> (k,), columns lifetime, amplitude[, sigma]."""
@@ -140,9 +132,6 @@ class MagnitudeDecay:
 
     __call__ = log_likelihood
 
-    def draw_nuisance(self, draws: np.ndarray, rng: np.random.Generator) -> dict:
-        return {}
-
     def expected(self, theta: np.ndarray) -> list[np.ndarray]:
         """Mean magnitude ``E[m]`` of the Rice law at ``theta`` (Rice 1945)."""
         theta = np.asarray(theta, dtype=float)
@@ -163,7 +152,7 @@ class MagnitudeDecay:
         return [np.sqrt(np.maximum(2 * sig * sig + nu * nu - mean * mean, 1e-300))]
 
 
-class IQDecay:
+class IQDecay(DecayModel):
     """Complex IQ ring-down with detuning; amplitude and offset marginalized (module docstring).
 
     Parameters
@@ -181,10 +170,8 @@ class IQDecay:
 
     def __init__(self, series: DecaySeries, *, alpha_max: float | None = None,
                  compress: bool = True) -> None:
-        self.series = series
-        self.tau = np.asarray(series.tau, dtype=float)
+        self._hold(series)
         self.z = np.asarray(series.values, dtype=complex)
-        self.fitted_sigma = series.sigma is None
         self.alpha_max = float(alpha_max if alpha_max is not None
                                else amplitude_bound(np.abs(self.z)))
         self.weights = series.weights()
@@ -216,13 +203,6 @@ class IQDecay:
         if self.fitted_sigma:
             params.append(default_spec("sigma", "", "sigma", 1e-6 * top, 1e2 * top, True))
         self.specs = tuple(params)
-
-    @property
-    def ndim(self) -> int:
-        return 3 if self.fitted_sigma else 2
-
-    def initial_guess(self) -> np.ndarray:
-        return self.start.copy()
 
     def _needed_limit(self, lifetime: float, detuning: float) -> float:
         """Rates the posterior needs, ``1/T_c`` and ``|s|``, with headroom for ``T_c``
@@ -358,6 +338,7 @@ class IQDecay:
         return [p["alpha"][0] * phi + p["offset"][0]]
 
     def noise_scale(self, theta: np.ndarray) -> list[np.ndarray]:
+        """Per-quadrature noise sd of each point at ``theta`` (one array per trace)."""
         theta = np.asarray(theta, dtype=float)
         if self.fitted_sigma:
             return [np.full(self.tau.size, theta[2])]

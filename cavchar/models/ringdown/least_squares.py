@@ -97,6 +97,7 @@ class ExponentialFit:
 
     @property
     def n_exp(self) -> int:
+        """Number of exponentials in the fit."""
         return int(self.rates.size)
 
     @property
@@ -107,6 +108,7 @@ class ExponentialFit:
 
     @property
     def stderr(self) -> np.ndarray:
+        """Standard errors of the parameters: square roots of the covariance diagonal."""
         return np.sqrt(np.clip(np.diag(self.covariance), 0.0, None))
 
     @property
@@ -129,6 +131,7 @@ class ExponentialFit:
 
     @property
     def reduced_chi2(self) -> float:
+        """Residual sum of squares per degree of freedom (NaN without degrees of freedom)."""
         return self.rss / self.dof if self.dof > 0 else math.nan
 
 
@@ -190,6 +193,10 @@ def _design(tau: np.ndarray, rates: np.ndarray, floor: bool) -> np.ndarray:
 
 
 def validate_trace(t: ArrayLike, y: ArrayLike, sigma: ArrayLike | None, n_params: int):
+    """Check one trace; return flat ``(t, y, w)`` with weights ``w = 1/sigma^2`` (ones if None).
+
+    Refuses (InputError) unequal lengths, non-finite numbers, no more points than
+    ``n_params``, all points at one time and a sigma that is not finite and > 0."""
     t = np.asarray(t, dtype=float).ravel()
     y = np.asarray(y, dtype=float).ravel()
     if t.shape != y.shape:

@@ -53,13 +53,13 @@ from scipy import special
 from cavchar.models.ringdown.exponential_sums import ExponentialSums
 from cavchar.models.ringdown.least_squares import fit_exponentials
 from cavchar.models.ringdown.power import RATE_HEADROOM, default_lifetime_bounds
-from cavchar.models.ringdown.series import DecaySeries, as_batch, default_spec
+from cavchar.models.ringdown.series import DecayModel, DecaySeries, as_batch, default_spec
 from cavchar.models.ringdown.shared_rate import fit_shared_rate
 
 __all__ = ["MeanPhotonDecay", "PopulationDecay", "fock_populations"]
 
 
-class MeanPhotonDecay:
+class MeanPhotonDecay(DecayModel):
     """Mean photon number relaxing to ``n_th`` (module docstring); traces share T_c and n_th.
 
     Parameters
@@ -108,13 +108,6 @@ class MeanPhotonDecay:
                 c = (0.5 * math.log(2 * math.pi) * int(free)
                      - 0.5 * float(np.sum(np.log(2 * math.pi * s.sigma**2))))
             self._const.append(c)
-
-    @property
-    def ndim(self) -> int:
-        return 2
-
-    def initial_guess(self) -> np.ndarray:
-        return self.start.copy()
 
     def _pieces(self, j: int, rate: np.ndarray, n_th: np.ndarray, direct: bool = False) -> dict:
         s = self.sums[j]
@@ -178,6 +171,10 @@ class MeanPhotonDecay:
         return out
 
     def expected(self, theta: np.ndarray) -> list[np.ndarray]:
+        """Mean photon number ``n_th + a exp(-tau/T_c)`` of each trace at ``theta``.
+
+        The amplitude ``a`` is the least-squares value given ``theta`` (``n0 - n_th``
+        when ``n0`` is fixed)."""
         theta = np.asarray(theta, dtype=float)
         out = []
         for j, s in enumerate(self.series):
@@ -187,6 +184,7 @@ class MeanPhotonDecay:
         return out
 
     def noise_scale(self, theta: np.ndarray) -> list[np.ndarray]:
+        """Noise sd of each point at ``theta`` (one array per trace; stated or estimated)."""
         theta = np.asarray(theta, dtype=float)
         out = []
         for j, s in enumerate(self.series):
@@ -242,7 +240,7 @@ def fock_populations(lifetime: ArrayLike, n_th: ArrayLike, p0: ArrayLike, tau: A
     return total
 
 
-class PopulationDecay:
+class PopulationDecay(DecayModel):
     """Photon-number counts after preparing ``p0`` (module docstring).
 
     Parameters
@@ -289,13 +287,6 @@ class PopulationDecay:
             default_spec("n_thermal", "", "n_th", 1e-6, 10.0, True),
         )
 
-    @property
-    def ndim(self) -> int:
-        return 2
-
-    def initial_guess(self) -> np.ndarray:
-        return self.start.copy()
-
     def populations(self, theta: np.ndarray) -> np.ndarray:
         """Model populations (k, m, K) at parameters (k, 2)."""
         theta = as_batch(theta, 2)
@@ -326,9 +317,6 @@ class PopulationDecay:
         return out
 
     __call__ = log_likelihood
-
-    def draw_nuisance(self, draws: np.ndarray, rng: np.random.Generator) -> dict:
-        return {}
 
     def expected(self, theta: np.ndarray) -> list[np.ndarray]:
         """Expected fractions (m, K) at ``theta``."""

@@ -60,6 +60,7 @@ from scipy import special
 from cavchar.models.ringdown.exponential_sums import ExponentialSums, _real_moment_sums
 from cavchar.models.ringdown.least_squares import fit_exponentials
 from cavchar.models.ringdown.series import (
+    DecayModel,
     DecaySeries,
     amplitude_bound,
     as_batch,
@@ -122,7 +123,7 @@ def default_lifetime_bounds(series: Sequence[DecaySeries]) -> tuple[float, float
     return low, 1000.0 * span
 
 
-class PowerDecay:
+class PowerDecay(DecayModel):
     """One-exponential power decay on one or more traces sharing ``T_c``.
 
     Parameters
@@ -219,14 +220,12 @@ class PowerDecay:
 
     @property
     def rate_hat(self) -> float:
+        """Least-squares decay rate of the power in 1/s (shared rate for several traces)."""
         start = self.start
         return float(start.rates[0]) if len(self.series) == 1 else float(start.rate)
 
-    @property
-    def ndim(self) -> int:
-        return 1
-
     def initial_guess(self) -> np.ndarray:
+        """The start ``(T_c,)`` with ``T_c = 1 / rate_hat`` in s."""
         return np.array([1.0 / self.rate_hat])
 
     def _pieces(self, j: int, rate: np.ndarray, direct: bool = False) -> dict:

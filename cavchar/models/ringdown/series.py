@@ -14,8 +14,8 @@ from scipy import special
 from cavchar.parameters import ParameterSpec
 from cavchar.priors import LogUniform, Uniform
 
-__all__ = ["DecaySeries", "default_spec", "log_interval_probability", "draw_truncated",
-           "as_batch", "amplitude_bound"]
+__all__ = ["DecaySeries", "DecayModel", "default_spec", "log_interval_probability",
+           "draw_truncated", "as_batch", "amplitude_bound"]
 
 
 @dataclass(frozen=True)
@@ -56,10 +56,12 @@ class DecaySeries:
 
     @property
     def n(self) -> int:
+        """Number of points."""
         return int(self.tau.size)
 
     @property
     def span(self) -> float:
+        """Time spanned by the points (s), 0 for an empty series."""
         return float(np.ptp(self.tau)) if self.tau.size else 0.0
 
     def weights(self) -> np.ndarray:
@@ -161,3 +163,32 @@ def amplitude_bound(values: np.ndarray, factor: float = 100.0) -> float:
     span = float(np.ptp(np.abs(values))) if np.size(values) else 0.0
     top = float(np.max(np.abs(values))) if np.size(values) else 0.0
     return factor * max(span, top, math.ulp(1.0))
+
+
+class DecayModel:
+    """Shared part of the ring-down models: the parameter count follows the specs, the
+    start is the least-squares point and nothing is marginalized unless a model says so."""
+
+    specs: tuple[ParameterSpec, ...]
+    start: np.ndarray
+
+    @property
+    def ndim(self) -> int:
+        """Number of sampled parameters: one per spec, in the order of ``theta``'s columns."""
+        return len(self.specs)
+
+    def initial_guess(self) -> np.ndarray:
+        """The least-squares start, shape ``(ndim,)`` in physical units (a copy)."""
+        return self.start.copy()
+
+    def _hold(self, series: DecaySeries) -> None:
+        """Keep one trace: ``series``, its delays ``tau`` in s (float array) and whether its
+        noise sigma is unknown (then fitted)."""
+        self.series = series
+        self.tau = np.asarray(series.tau, dtype=float)
+        self.fitted_sigma = series.sigma is None
+
+    def draw_nuisance(self, draws: np.ndarray, rng: np.random.Generator) -> dict:
+        """Exact conditional draws of the analytically marginalized parameters; a model
+        that marginalizes none returns an empty dict."""
+        return {}

@@ -38,6 +38,7 @@ class SharedRateFit:
 
     @property
     def lifetime(self) -> float:
+        """Energy lifetime ``T_c = 1 / rate`` in s."""
         return 1.0 / self.rate
 
 

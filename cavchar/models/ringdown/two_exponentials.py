@@ -18,7 +18,13 @@ from scipy import special
 from cavchar.models.ringdown.exponential_sums import ExponentialSums
 from cavchar.models.ringdown.least_squares import fit_exponentials
 from cavchar.models.ringdown.power import default_lifetime_bounds
-from cavchar.models.ringdown.series import DecaySeries, amplitude_bound, as_batch, default_spec
+from cavchar.models.ringdown.series import (
+    DecayModel,
+    DecaySeries,
+    amplitude_bound,
+    as_batch,
+    default_spec,
+)
 
 __all__ = ["TwoExponentialPower", "ModelComparison", "compare_exponentials"]
 
@@ -43,7 +49,7 @@ def _floor_profiled_rss(rates1, rates2, amps1, amps2, tau, w, y
     return out
 
 
-class TwoExponentialPower:
+class TwoExponentialPower(DecayModel):
     """``A_1 e^{-tau/T_1} + A_2 e^{-tau/T_2} + F`` on one trace, ``T_1 > T_2``.
 
     Sampled: ``lifetime`` (the slower, ``T_1``), ``lifetime_fast`` (``T_2``) in s and
@@ -88,11 +94,8 @@ class TwoExponentialPower:
             self._const = (0.5 * math.log(2 * math.pi)
                            - 0.5 * float(np.sum(np.log(2 * math.pi * series.sigma**2))))
 
-    @property
-    def ndim(self) -> int:
-        return 4
-
     def initial_guess(self) -> np.ndarray:
+        """The least-squares start ``(T_1, T_2, A_1, A_2)`` (amplitudes kept positive)."""
         r = self.start.rates
         a = np.clip(self.start.amplitudes, 1e-6 * self.amplitude_max, None)
         return np.array([1 / r[0], 1 / r[1], a[0], a[1]])
@@ -149,6 +152,7 @@ class TwoExponentialPower:
         return out
 
     def expected(self, theta: np.ndarray) -> list[np.ndarray]:
+        """Power ``A_1 exp(-tau/T_1) + A_2 exp(-tau/T_2) + F`` at ``theta`` (``F``: best floor)."""
         theta = np.asarray(theta, dtype=float)
         f_hat, _ = self._floor(theta)
         t1, t2, a1, a2 = theta
@@ -156,6 +160,7 @@ class TwoExponentialPower:
         return [a1 * np.exp(-tau / t1) + a2 * np.exp(-tau / t2) + float(f_hat[0]) + self._shift]
 
     def noise_scale(self, theta: np.ndarray) -> list[np.ndarray]:
+        """Noise sd of each point: stated, or the residual rms at ``theta``."""
         if not self.fitted_sigma:
             return [self.series.sigma]
         _, rss = self._floor(np.asarray(theta, dtype=float))
@@ -187,6 +192,7 @@ class ModelComparison:
     two: object | None
 
     def describe(self) -> str:
+        """One sentence: preferred model, strength, BIC difference and evidence ratio."""
         return (f"{self.preferred} preferred ({self.strength}; BIC difference "
                 f"{abs(self.delta_bic):.1f}, approximate evidence ratio two/one "
                 f"{self.evidence_ratio:.3g})")
