@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from cavchar.cli.common import HelpFormatter
+from cavchar.cli.common import add_command
 
 EXAMPLES = """examples:
   cavchar prepare-kernels                 # every fit kind (about a minute the first time)
@@ -15,24 +15,27 @@ EXAMPLES = """examples:
 KIND_CHOICES = ("jumps", "sampled", "probes", "probes-irregular", "ringdown")
 
 
+DESCRIPTION = """
+Fit a tiny invented record of each kind, which compiles every numba kernel the fits use and
+stores the machine code in numba's on-disk cache (beside the installed package, or in
+$NUMBA_CACHE_DIR; the generated probe-record kernels in $CAVCHAR_KERNEL_DIR or
+~/.cache/cavchar/kernels).  Later processes load it in milliseconds.  Nothing else is written.
+"""
+
+
 def register(subparsers: argparse._SubParsersAction) -> None:
-    parser = subparsers.add_parser(
-        "prepare-kernels",
-        help="compile the numerical kernels once, so the first fit of each kind starts at "
-        "full speed",
-        description="Fit a tiny invented record of each kind, which compiles every numba "
-        "kernel the fits use and stores the machine code in numba's on-disk cache "
-        "(beside the installed package, or in $NUMBA_CACHE_DIR).  Later processes load "
-        "it in milliseconds.  Nothing else is written.",
-        epilog=EXAMPLES,
-        formatter_class=HelpFormatter,
-    )
+    """Add ``prepare-kernels`` (fill the compiled-kernel cache) to the sub-commands."""
+    parser = add_command(
+        subparsers, "prepare-kernels",
+        "compile the numerical kernels once, so the first fit of each kind starts at full "
+        "speed", DESCRIPTION, EXAMPLES)
     parser.add_argument("--kind", action="append", choices=KIND_CHOICES, default=None,
                         help="prepare only this kind (repeatable); unset: every kind")
     parser.set_defaults(func=handle)
 
 
 def handle(args: argparse.Namespace) -> int:
+    """Prepare the kernels of the kinds asked for (all by default), printing each."""
     from cavchar.kernel_cache import KINDS, prepare_kernels
 
     def report(kind: str, seconds: float) -> None:
