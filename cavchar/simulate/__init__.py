@@ -29,26 +29,12 @@ handling, parameter checks and truth metadata they share.
 
 from __future__ import annotations
 
+from cavchar.simulate import jumps as _jumps
+from cavchar.simulate import probes as _probes
+from cavchar.simulate import ringdown as _ringdown
 from cavchar.simulate._common import Seed as Seed  # the type of every ``seed`` argument
-from cavchar.simulate.jumps import (
-    jump_path,
-    photons_at,
-    probe_times,
-    simulate_jump_record,
-    simulate_sampled_record,
-    stationary_draw,
-)
-from cavchar.simulate.probes import probes_on_path, simulate_probe_record
-from cavchar.simulate.ringdown import simulate_ringdown
+from cavchar.simulate.jumps import *  # noqa: F403 (the names of each module's __all__)
+from cavchar.simulate.probes import *  # noqa: F403
+from cavchar.simulate.ringdown import *  # noqa: F403
 
-__all__ = [
-    "jump_path",
-    "stationary_draw",
-    "simulate_jump_record",
-    "probe_times",
-    "simulate_sampled_record",
-    "simulate_probe_record",
-    "probes_on_path",
-    "photons_at",
-    "simulate_ringdown",
-]
+__all__ = [*_jumps.__all__, *_probes.__all__, *_ringdown.__all__]

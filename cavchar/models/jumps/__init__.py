@@ -7,30 +7,7 @@ posterior predictive check of exact records.
   the fitted exponential laws.
 """
 
-from cavchar.models.jumps.likelihood import (
-    ExactJumpModel,
-    JumpStatistics,
-    SampledJumpModel,
-    SampledTransitions,
-    dwell_times,
-    exact_fisher_information,
-    exact_log_likelihood,
-    exact_log_likelihood_rates,
-    jump_statistics,
-    sampled_log_likelihood,
-    sampled_transitions,
-)
+from cavchar.models.jumps import likelihood as _likelihood
+from cavchar.models.jumps.likelihood import *  # noqa: F403 (the names of its __all__)
 
-__all__ = [
-    "JumpStatistics",
-    "jump_statistics",
-    "exact_log_likelihood",
-    "exact_log_likelihood_rates",
-    "SampledTransitions",
-    "sampled_transitions",
-    "sampled_log_likelihood",
-    "dwell_times",
-    "exact_fisher_information",
-    "ExactJumpModel",
-    "SampledJumpModel",
-]
+__all__ = list(_likelihood.__all__)
