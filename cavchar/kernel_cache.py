@@ -51,7 +51,7 @@ def _sampled() -> None:
 
 def _probes(times: np.ndarray, seed: int) -> None:
     from cavchar.fits.probes import fit_probes
-    from cavchar.models.response import FringeResponse
+    from cavchar.models.probes.response import FringeResponse
     from cavchar.simulate import simulate_probe_record
 
     response = FringeResponse(visibility=0.9, phase_per_photon=np.pi, readout_error_0=0.02,

@@ -24,7 +24,7 @@ from cavchar.errors import InputError, PriorDominatedWarning
 from cavchar.fits.probe_trajectory import viterbi_jump_record
 from cavchar.fits.probes import ProbePriors, fit_probes, fit_probes_with_trajectory
 from cavchar.inference import SamplerSettings
-from cavchar.models.response import FringeResponse, TableResponse
+from cavchar.models.probes.response import FringeResponse, TableResponse
 from cavchar.priors import LogUniform, Uniform
 from cavchar.records import JumpRecord
 from cavchar.simulate import probes_on_path, simulate_probe_record
@@ -145,7 +145,7 @@ def test_coarse_mode_agrees_with_exact_within_its_reported_bound():
     """The coarse posterior means sit within the reported bias bound of the exact-mode
     posterior means (here by quadrature of the exact likelihood on a grid), plus the Monte
     Carlo error of a sample mean: 2 sd / sqrt(ESS) with ESS > 150, i.e. 0.17 sd."""
-    from cavchar.models.probes import ProbeLikelihood
+    from cavchar.models.probes.likelihood import ProbeLikelihood
 
     lifetime, n_th = 0.05, 0.2
     resp = FringeResponse(**PARITY)

@@ -1,4 +1,4 @@
-"""Hidden-Markov kernels of cavchar.models.hmm_kernels against outside references.
+"""Hidden-Markov kernels of cavchar.models.probes.hmm_kernels against outside references.
 
 Outside sources (forward algorithm, Viterbi and forward-backward as in Rabiner,
 Proc. IEEE 77, 257 (1989), sections III.A-B):
@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 from scipy import linalg
 
-from cavchar.models import hmm_kernels as hk
+from cavchar.models.probes import hmm_kernels as hk
 
 hmm = pytest.importorskip("hmmlearn.hmm")
 
@@ -258,7 +258,7 @@ def test_bad_inputs_are_refused():
 def test_without_a_writable_kernel_folder_the_loop_kernels_run(monkeypatch, tmp_path):
     """No folder for the generated kernels (a read-only home): the loop kernels answer,
     with the same value, and no code is compiled from text in memory."""
-    from cavchar.models import _hmm_unrolled
+    from cavchar.models.probes import _unrolled as _hmm_unrolled
 
     rng = np.random.default_rng(11)
     n, t = 5, 400

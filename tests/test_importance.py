@@ -155,8 +155,8 @@ def _probe_sbc(replicates: int, seed: int, stretch: float = 1.0) -> dict[str, fl
     (Talts et al. 2018); returns the KS p-value of the ranks against uniformity per
     parameter.  ``stretch`` != 1: the fit is told probe times ``stretch`` times the real
     ones (a mis-specified model; the negative control)."""
-    from cavchar.models.probes import ProbeLikelihood
-    from cavchar.models.response import FringeResponse
+    from cavchar.models.probes.likelihood import ProbeLikelihood
+    from cavchar.models.probes.response import FringeResponse
     from cavchar.records import ProbeRecord
     from cavchar.simulate.probes import simulate_probe_record
 

@@ -17,10 +17,10 @@ from scipy import linalg, stats
 
 from cavchar.fits.probes import fit_probes
 from cavchar.inference import SamplerSettings
-from cavchar.models import hmm_kernels as hk
-from cavchar.models import probes as probes_module
-from cavchar.models.probes import ProbeLikelihood, probe_steps, route_text
-from cavchar.models.response import FringeResponse
+from cavchar.models.probes import hmm_kernels as hk
+from cavchar.models.probes import likelihood as probes_module
+from cavchar.models.probes.likelihood import ProbeLikelihood, probe_steps, route_text
+from cavchar.models.probes.response import FringeResponse
 from cavchar.records import ProbeRecord
 from cavchar.simulate import probes_on_path
 from tests.test_fit_probes import mcsolve_path  # hidden path from QuTiP's mcsolve

@@ -21,7 +21,7 @@ def test_an_unknown_kind_is_refused(run_cli):
 
 def test_the_probe_kernels_it_calls_use_the_disk_cache():
     from cavchar.kernel_cache import prepare_kernels
-    from cavchar.models import hmm_kernels
+    from cavchar.models.probes import hmm_kernels
 
     prepare_kernels(["probes"])
     used = [f for f in vars(hmm_kernels).values()

@@ -138,7 +138,7 @@ def test_study_detects_a_forecast_that_is_too_optimistic():
 def test_probe_information_lies_below_the_perfect_readout_bound():
     # source: data-processing inequality (outcomes are a noisy function of the photon
     # numbers at the probe times, so their information is at most the sampled record's)
-    from cavchar.models.response import FringeResponse
+    from cavchar.models.probes.response import FringeResponse
 
     response = FringeResponse(visibility=0.8, readout_error_0=0.03, readout_error_1=0.05)
     info = fisher.probe_information(T_C, 0.1, 0.2e-3, response, n_records=3,
@@ -153,7 +153,7 @@ def test_probe_information_lies_below_the_perfect_readout_bound():
 def test_probe_forecast_matches_the_simulated_spread_quick():
     # quick form (30 records: relative Monte Carlo error 13% of the sd, so 3 errors = 39%);
     # the 15% check with 200 records is tests/calibration/test_plan_slow.py
-    from cavchar.models.response import FringeResponse
+    from cavchar.models.probes.response import FringeResponse
 
     response = FringeResponse(visibility=0.9, readout_error_0=0.02, readout_error_1=0.04)
     table = plan_probes(1e-3, 0.1, 0.3e-3, response, target_lifetime=0.2, check_records=30,

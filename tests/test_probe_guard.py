@@ -25,7 +25,7 @@ import pytest
 
 from cavchar.fits.probes import ProbePriors, fit_probes
 from cavchar.inference import SamplerSettings
-from cavchar.models.response import DEFAULT_FIT_PRIORS, FringeResponse
+from cavchar.models.probes.response import DEFAULT_FIT_PRIORS, FringeResponse
 from cavchar.priors import Beta, LogUniform, parse_prior, prior_from_dict
 from cavchar.simulate import simulate_probe_record
 
@@ -252,7 +252,7 @@ def test_check_runs_with_a_calibrated_table_that_replicated_paths_outgrow():
     higher now and then; the check uses the last row there instead of failing, and a record
     made by the same response is not flagged."""
     from cavchar.fits.probe_check import probe_predictive_check
-    from cavchar.models.response import TableResponse
+    from cavchar.models.probes.response import TableResponse
 
     table = TableResponse(TRUE_RESPONSE.prob_one(None, 4)[0][0, 0])
     rec, _ = simulate_probe_record(LIFETIME, 0.5, 1e-3 * np.arange(3000), TRUE_RESPONSE,

@@ -1,4 +1,4 @@
-"""Probe-record likelihood (cavchar.models.probes, cavchar.models.probe_blocks).
+"""Probe-record likelihood (cavchar.models.probes.likelihood, cavchar.models.probes.blocks).
 
 Outside references:
 * a plain numpy forward recursion with one scipy.linalg.expm per probe
@@ -18,14 +18,14 @@ import pytest
 from scipy import linalg
 
 from cavchar.errors import InputError
-from cavchar.models.probe_blocks import BlockedProbeLikelihood, bias_check
-from cavchar.models.probes import (
+from cavchar.models.probes.blocks import BlockedProbeLikelihood, bias_check
+from cavchar.models.probes.likelihood import (
     TRUNCATION_VISITS,
     ProbeLikelihood,
     choose_levels,
     probe_steps,
 )
-from cavchar.models.response import FringeResponse, TableResponse
+from cavchar.models.probes.response import FringeResponse, TableResponse
 from cavchar.priors import Uniform
 from cavchar.records import JumpRecord, ProbeRecord
 from cavchar.simulate import probes_on_path, simulate_probe_record

@@ -1,4 +1,4 @@
-"""Probe response models (cavchar.models.response).
+"""Probe response models (cavchar.models.probes.response).
 
 Checks against the closed form of a Ramsey fringe (written out by hand here)
 and its textbook limits: a parity probe (phi0 = pi, V = 1) reads 1 for even and
@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 from cavchar.errors import InputError
-from cavchar.models.response import FringeResponse, TableResponse
+from cavchar.models.probes.response import FringeResponse, TableResponse
 from cavchar.priors import Uniform
 
 

@@ -211,7 +211,7 @@ def fringe(n, setting, v, phi0, phi_r, e0, e1):
 
 
 def test_probe_outcomes_follow_the_fringe():
-    import cavchar.models.response as response_mod
+    import cavchar.models.probes.response as response_mod
     params = dict(v=0.8, phi0=math.pi / 2, phi_r=0.3, e0=0.03, e1=0.05)
     response = response_mod.FringeResponse(
         visibility=params["v"], phase_per_photon=params["phi0"], phase_offset=params["phi_r"],
@@ -243,7 +243,7 @@ def test_probe_table_and_callable_responses():
         sel = truth.photons == n
         se = math.sqrt(table[n] * (1 - table[n]) / sel.sum())
         assert abs(record.outcome[sel].mean() - table[n]) < Z * se
-    import cavchar.models.response as response_mod
+    import cavchar.models.probes.response as response_mod
     same, _ = simulate_probe_record(LIFETIME, N_TH, times, response_mod.TableResponse(table),
                                     seed=2)
     assert np.array_equal(same.outcome, record.outcome)  # same draws, same probabilities

@@ -118,7 +118,7 @@ def _fringe_value(text: str, dimension: str, name: str):
 def build_response(args: argparse.Namespace):
     """The response model from the options."""
     from cavchar.errors import InputError
-    from cavchar.models.response import FringeResponse, TableResponse
+    from cavchar.models.probes.response import FringeResponse, TableResponse
 
     kind = args.response or ("table" if args.response_table else "fringe")
     if kind == "table":
@@ -142,7 +142,7 @@ def build_response(args: argparse.Namespace):
 def response_lines(description: dict) -> list[str]:
     """The probe response of a fit in words: which parameters were stated, which fitted
     (with their priors) and which left at a default value (``settings["fit"]["response"]``)."""
-    from cavchar.models.response import ROLE_TEXT
+    from cavchar.models.probes.response import ROLE_TEXT
     from cavchar.report.text import prior_text
 
     if description.get("kind") != "fringe":
@@ -199,7 +199,7 @@ def handle(args: argparse.Namespace) -> int:
     from cavchar.fits.probes import ProbePriors, fit_probes_with_trajectory
     from cavchar.io.atomic import check_can_write
     from cavchar.io.writers import write_jump_record
-    from cavchar.models.probes import route_text
+    from cavchar.models.probes.likelihood import route_text
 
     check_outputs(args)
     if args.out:

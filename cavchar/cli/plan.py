@@ -183,7 +183,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 
 def _response(args):
-    from cavchar.models.response import FringeResponse, TableResponse
+    from cavchar.models.probes.response import FringeResponse, TableResponse
 
     if args.response_table:
         return TableResponse.from_file(args.response_table)

@@ -282,7 +282,7 @@ def handle_probes(args: argparse.Namespace) -> int:
 
     Write an invented raw QND probe record and its response table."""
     from cavchar.io.writers import write_probe_record, write_sampled_record
-    from cavchar.models.response import FringeResponse, TableResponse
+    from cavchar.models.probes.response import FringeResponse, TableResponse
     from cavchar.simulate import probes_on_path, simulate_probe_record
 
     target, truth_path = _outputs(args, truth=args.truth)

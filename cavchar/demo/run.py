@@ -149,7 +149,7 @@ def _simulate(job: DemoJob, scenario: Scenario, quick: bool, folder: Path, force
     elif job.kind == "probes":
         duration = scenario.probe_duration_quick_s if quick else scenario.probe_duration_s
         times, _ = simulate.probe_times(duration, scenario.probe_interval_s)
-        from cavchar.models.response import FringeResponse
+        from cavchar.models.probes.response import FringeResponse
 
         response = FringeResponse(visibility=scenario.probe_visibility,
                                   phase_per_photon=math.pi, phase_offset=0.0,

@@ -134,7 +134,7 @@ def _statistics(y: np.ndarray, lay: _Layout) -> np.ndarray:
 
 def probe_record_statistics(record) -> dict[str, float]:
     """The check's statistics of one probe record (plain dict, names as in the check)."""
-    from cavchar.models.probes import group_settings
+    from cavchar.models.probes.likelihood import group_settings
 
     _, index = group_settings(record.setting, len(record))
     lay = _Layout(np.isnan(record.outcome), np.asarray(record.bounds), index)
@@ -205,7 +205,7 @@ def probe_predictive_check(
         ``flags`` (sentences).  A misfit also raises a
         :class:`~cavchar.errors.ModelMisfitWarning`.
     """
-    from cavchar.models.probes import group_settings
+    from cavchar.models.probes.likelihood import group_settings
     from cavchar.simulate.probes import simulate_probe_record
 
     m = len(record)

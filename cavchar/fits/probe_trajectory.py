@@ -19,7 +19,7 @@ from pathlib import Path
 import numpy as np
 from numpy.typing import ArrayLike
 
-from cavchar.models.probes import ProbeLikelihood
+from cavchar.models.probes.likelihood import ProbeLikelihood
 from cavchar.records import JumpRecord, ProbeRecord
 
 __all__ = ["ProbeTrajectory", "reconstruct_trajectory", "viterbi_jump_record",

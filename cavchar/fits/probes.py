@@ -1,7 +1,7 @@
 """Fit a raw probe record: lifetime, thermal photon number, response parameters, trajectory.
 
 ``fit_probes`` builds the hidden-Markov likelihood of the record
-(:mod:`cavchar.models.probes`), finds a starting point from a short pilot,
+(:mod:`cavchar.models.probes.likelihood`), finds a starting point from a short pilot,
 samples the posterior of ``(T_c, n_th, fitted response parameters)`` with the
 common emcee driver and returns a :class:`cavchar.result.FitResult` with the
 derived quantities, the Planck check, the truncation used and the
@@ -11,11 +11,11 @@ predictive check of the outcomes (:mod:`cavchar.fits.probe_check`, under
 ``checks["posterior_predictive"]``; a misfit warns).
 
 A visibility or readout error the response does not state is fitted with its
-default prior (:data:`cavchar.models.response.DEFAULT_FIT_PRIORS`): a perfect
+default prior (:data:`cavchar.models.probes.response.DEFAULT_FIT_PRIORS`): a perfect
 probe is never assumed unless stated.
 
 Modes: ``"exact"`` (forward algorithm over every probe), ``"coarse"`` (blocks
-of probes, :mod:`cavchar.models.probe_blocks`, with its bias measured against
+of probes, :mod:`cavchar.models.probes.blocks`, with its bias measured against
 the exact likelihood on posterior draws and reported under
 ``checks["coarse_bias"]``) and ``"auto"`` (coarse for records of more than
 300,000 probes when blocks of at least 4 probes fit in 1% of the typical
@@ -39,20 +39,20 @@ from cavchar.fits.probe_check import probe_predictive_check
 from cavchar.fits.probe_trajectory import reconstruct_trajectory
 from cavchar.inference import SamplerSettings
 from cavchar.inference.importance import sample_posterior_auto
-from cavchar.models.probe_blocks import (
+from cavchar.models.probes.blocks import (
     BIAS_LIMIT_SD,
     BlockedProbeLikelihood,
     bias_check,
     block_size,
 )
-from cavchar.models.probes import (
+from cavchar.models.probes.likelihood import (
     TRUNCATION_VISITS,
     ProbeLikelihood,
     choose_levels,
     group_settings,
     typical_dwell,
 )
-from cavchar.models.response import FringeResponse, TableResponse
+from cavchar.models.probes.response import FringeResponse, TableResponse
 from cavchar.parameters import ParameterSpec
 from cavchar.priors import LogUniform, Prior
 from cavchar.records import ProbeRecord
@@ -207,11 +207,11 @@ def fit_probes(
         (columns ``time`` [s], ``outcome`` [0/1, empty = lost], optional
         ``setting`` [rad], ``segment``; docs/probe-records.md).
     response
-        :class:`~cavchar.models.response.FringeResponse` (each parameter fixed or
-        with a prior) or :class:`~cavchar.models.response.TableResponse`, or the
+        :class:`~cavchar.models.probes.response.FringeResponse` (each parameter fixed or
+        with a prior) or :class:`~cavchar.models.probes.response.TableResponse`, or the
         path of a response table.  A visibility or readout error the fringe does
         not state is fitted with its default prior
-        (:data:`~cavchar.models.response.DEFAULT_FIT_PRIORS`); None: a parity
+        (:data:`~cavchar.models.probes.response.DEFAULT_FIT_PRIORS`); None: a parity
         fringe (``phi0 = pi``, ``phi_r = 0``) with V, e0 and e1 all fitted.  The
         role of each parameter is stored under ``settings["fit"]["response"]["roles"]``.
     freq_hz, stage_temp_k

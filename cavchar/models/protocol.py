@@ -14,7 +14,7 @@ the fit layer (:mod:`cavchar.fits`) builds a model from a record and the user's 
 Models: :class:`cavchar.models.jumps.ExactJumpModel`,
 :class:`cavchar.models.jumps.SampledJumpModel`, the ring-down models of
 :mod:`cavchar.models.ringdown` and the probe-record likelihood of
-:mod:`cavchar.models.probes`.
+:mod:`cavchar.models.probes.likelihood`.
 """
 
 from __future__ import annotations

@@ -231,7 +231,7 @@ def sampled_jump_information(lifetime: float, n_thermal: float, interval: float,
 def probe_table(response, n_levels: int, settings: ArrayLike | None = None) -> np.ndarray:
     """``P(1 | n, setting)`` of a fixed response as an array (S, N).
 
-    ``response`` is a :class:`cavchar.models.response.FringeResponse` or
+    ``response`` is a :class:`cavchar.models.probes.response.FringeResponse` or
     ``TableResponse`` with fixed values (anything with ``prob_one``), or a
     callable ``response(photons, setting) -> P(1)`` such as
     a plain function of the photon numbers and settings.
@@ -257,8 +257,8 @@ def probe_table(response, n_levels: int, settings: ArrayLike | None = None) -> n
 def _probe_loglik(outcome, setting_index, n_settings, table, interval, n_levels):
     """Batched forward log-likelihood of one probe record over (T_c, n_th) sets."""
     from cavchar.dynamics import transition_matrices_batch
-    from cavchar.models.hmm_kernels import ProbeSequence, Transitions, emission_table
-    from cavchar.models.hmm_kernels import forward_loglik as forward
+    from cavchar.models.probes.hmm_kernels import ProbeSequence, Transitions, emission_table
+    from cavchar.models.probes.hmm_kernels import forward_loglik as forward
 
     sequence = ProbeSequence.from_outcomes(outcome, setting_index, n_settings)
     emission = emission_table(table[None])[0]

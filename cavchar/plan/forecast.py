@@ -339,7 +339,7 @@ def plan_probes(
         Time between probes in s.
     response
         Calibrated probe response (fixed values): a
-        :class:`cavchar.models.response.FringeResponse` / ``TableResponse`` or a
+        :class:`cavchar.models.probes.response.FringeResponse` / ``TableResponse`` or a
         callable ``(photons, setting) -> P(1)``; default: an ideal parity probe.
     settings, loss
         Interleaved probe settings (rad) and the probability that a probe is lost.
@@ -357,7 +357,7 @@ def plan_probes(
         As :func:`plan_jumps`, amounts in probes; ``perfect_readout_relative_sd``
         is the bound of a readout that reveals the photon number.
     """
-    from cavchar.models.response import FringeResponse
+    from cavchar.models.probes.response import FringeResponse
 
     response = FringeResponse() if response is None else response
     targets = _targets(lifetime=target_lifetime, n_thermal=target_n_thermal,

@@ -4,7 +4,7 @@ At the planned amount of data, ``n_records`` independent records are
 simulated with :mod:`cavchar.simulate` at the assumed true values and fitted
 by maximum likelihood with the same likelihood the fits use
 (:mod:`cavchar.models.jumps`, the hidden-Markov forward algorithm of
-:mod:`cavchar.models.hmm_kernels`, the ring-down noise models).  The study
+:mod:`cavchar.models.probes.hmm_kernels`, the ring-down noise models).  The study
 reports, per parameter,
 
 * the spread (sample sd) of the estimates over the records, with its Monte

@@ -13,7 +13,7 @@ Bose–Einstein law ``P_n = n_th^n / (1 + n_th)^(n+1)``.
 * :func:`simulate_sampled_record` — the exact path read at given probe times.
 * :func:`simulate_probe_record` — 0/1 probe outcomes drawn from a response
   ``P(1 | n, setting)`` (the Ramsey-fringe and table models of
-  :mod:`cavchar.models.response`, or any callable), optionally with lost probes.
+  :mod:`cavchar.models.probes.response`, or any callable), optionally with lost probes.
 * :func:`probes_on_path` — the same on a given path (an exact jump record).
 * :func:`simulate_ringdown` — power, dB, amplitude, IQ, mean photon number and
   Fock-population ring-down traces with their noise models.

@@ -5,7 +5,7 @@
 * :func:`probes_on_path` — the same on a given path (an exact jump record).
 
 Outcome ``k`` is 1 with probability ``P(1 | n_k, setting_k)`` (the Ramsey-fringe
-and table models of :mod:`cavchar.models.response`, or any callable); each probe
+and table models of :mod:`cavchar.models.probes.response`, or any callable); each probe
 may be lost (outcome NaN).
 """
 
@@ -59,8 +59,8 @@ def simulate_probe_record(
     times : array (m,)
         Probe times in s.
     response : response model or callable
-        A :class:`cavchar.models.response.FringeResponse` or
-        :class:`~cavchar.models.response.TableResponse` with fixed parameters
+        A :class:`cavchar.models.probes.response.FringeResponse` or
+        :class:`~cavchar.models.probes.response.TableResponse` with fixed parameters
         (anything with their ``prob_one(None, n_levels, settings)``), or a
         callable ``response(photons (m,), settings (m,)) -> P(1) (m,)``.
     settings : float or array, optional

@@ -32,7 +32,7 @@ RESPONSE = dict(visibility=0.9, phase_per_photon=math.pi, readout_error_0=0.02,
 
 
 def make_record(n_probes: int, seed: int = 1):
-    from cavchar.models.response import FringeResponse
+    from cavchar.models.probes.response import FringeResponse
     from cavchar.simulate import simulate_probe_record
 
     resp = FringeResponse(**RESPONSE)
@@ -45,7 +45,7 @@ def hmmlearn_score_time(rec, n_levels: int, repeats: int = 3) -> float:
     from hmmlearn.hmm import CategoricalHMM
 
     from cavchar.dynamics import stationary_distribution, transition_matrices_batch
-    from cavchar.models.response import FringeResponse
+    from cavchar.models.probes.response import FringeResponse
 
     p1 = FringeResponse(**RESPONSE).prob_one(None, n_levels)[0][0, 0]
     ref = CategoricalHMM(n_components=n_levels, n_features=2, init_params="",
@@ -63,7 +63,7 @@ def run_fit(n_probes: int, mode: str, walkers: int) -> dict:
 
     from cavchar.fits.probes import fit_probes
     from cavchar.inference import SamplerSettings
-    from cavchar.models import probes as probes_model
+    from cavchar.models.probes import likelihood as probes_model
 
     rec, resp = make_record(n_probes)
     calls = {"sets": 0}

@@ -23,7 +23,7 @@ from timing import median_seconds, peak_rss_mb
 
 def make_case(n_probes: int, n_levels: int, k: int, seed: int = 1):
     from cavchar.dynamics import stationary_distribution, transition_matrices_batch
-    from cavchar.models import hmm_kernels as hk
+    from cavchar.models.probes import hmm_kernels as hk
 
     rng = np.random.default_rng(seed)
     dt = 1e-4
@@ -39,7 +39,7 @@ def make_case(n_probes: int, n_levels: int, k: int, seed: int = 1):
 
 def memory_child(n_probes: int, n_levels: int) -> None:
     """Run in a fresh process: likelihood (32 sets), marginals and Viterbi; print peak RSS."""
-    import cavchar.models.hmm_kernels  # noqa: F401  (libraries loaded before the baseline)
+    import cavchar.models.probes.hmm_kernels  # noqa: F401  (libraries loaded before the baseline)
 
     base_mb = peak_rss_mb()
     c = make_case(n_probes, n_levels, 32)

@@ -55,7 +55,7 @@ def load() -> str:
 
 def records(n_probes: int, seed: int = 1):
     """A Poisson-timed record and a regular one with the same mean spacing."""
-    from cavchar.models.response import FringeResponse
+    from cavchar.models.probes.response import FringeResponse
     from cavchar.simulate import simulate_probe_record
 
     resp = FringeResponse(**RESPONSE)
@@ -68,7 +68,7 @@ def records(n_probes: int, seed: int = 1):
 
 
 def per_probe(n_probes: int, k: int, repeats: int) -> None:
-    from cavchar.models import probes as pm
+    from cavchar.models.probes import likelihood as pm
 
     rec_p, rec_r, resp = records(n_probes)
     theta = np.column_stack([LIFETIME * np.linspace(0.9, 1.1, k), N_TH * np.linspace(0.9, 1.1, k)])
@@ -128,8 +128,8 @@ def kernel_options(n_probes: int, k: int, repeats: int, n_levels: int = 8) -> No
     import sys
     from pathlib import Path
 
-    from cavchar.models import hmm_kernels as hk
-    from cavchar.models import probes as pm
+    from cavchar.models.probes import hmm_kernels as hk
+    from cavchar.models.probes import likelihood as pm
 
     sys.path.insert(0, str(Path(__file__).parent))
     import grid_variants as gv

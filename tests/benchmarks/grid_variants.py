@@ -2,8 +2,8 @@
 (``bench_irregular_probes.py --options``); not used by cavchar itself.
 
 Each variant computes the same log-likelihood as
-:func:`cavchar.models.hmm_kernels.forward_loglik` on the grid route (checked by
-the benchmark) with N written out as in :mod:`cavchar.models._hmm_unrolled`:
+:func:`cavchar.models.probes.hmm_kernels.forward_loglik` on the grid route (checked by
+the benchmark) with N written out as in :mod:`cavchar.models.probes._unrolled`:
 
 * ``lanes``: L parameter sets per loop body (the per-probe loads of the code,
   the table index and the remainder shared; L independent chains for the
@@ -22,7 +22,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
-from cavchar.models.hmm_kernels import uniformization_terms
+from cavchar.models.probes.hmm_kernels import uniformization_terms
 
 TERMS_WRITTEN = 6
 

@@ -10,7 +10,7 @@ def test_probe_forecast_matches_the_simulated_spread_full():
     # source: Cramér–Rao bound reached by maximum likelihood (Casella & Berger ch. 10);
     # 200 simulated probe records: relative Monte Carlo error of the spread 5%, and of the
     # information estimate (8 records of 100000 probes) about 1%, so 15% is ~3 errors
-    from cavchar.models.response import FringeResponse
+    from cavchar.models.probes.response import FringeResponse
     from cavchar.plan.forecast import plan_probes
 
     response = FringeResponse(visibility=0.9, readout_error_0=0.02, readout_error_1=0.04)

@@ -65,7 +65,7 @@ def test_sbc_power_ringdown_full():
 
 def _probe_ranks(n_sims: int, n_draws: int, seed: int, settings):
     from cavchar.fits.probes import ProbePriors, fit_probes
-    from cavchar.models.response import FringeResponse
+    from cavchar.models.probes.response import FringeResponse
     from cavchar.priors import LogUniform
     from cavchar.simulate import simulate_probe_record
 

@@ -5,19 +5,19 @@ Hidden state: the photon number ``n`` of the mode at each probe, truncated to
 damped-mode birth-death process (:mod:`cavchar.dynamics`): with
 ``kappa = 1/T_c`` the transition matrix over an interval ``dt`` is
 ``P(dt) = expm(Q dt)``.  Emission: the probe response ``P(y | n, setting)``
-(:mod:`cavchar.models.response`); a lost probe emits nothing, its interval
+(:mod:`cavchar.models.probes.response`); a lost probe emits nothing, its interval
 still counts.  Each segment starts from the stationary (Bose-Einstein) law,
 or from a given Fock state.
 
     log L(T_c, n_th, response) = log sum over paths of
         p0(n_0) e_0(n_0) prod_t P(dt_t)[n_{t-1}, n_t] e_t(n_t)
 
-evaluated by the scaled forward algorithm (:mod:`cavchar.models.hmm_kernels`)
+evaluated by the scaled forward algorithm (:mod:`cavchar.models.probes.hmm_kernels`)
 for a batch of parameter sets at once.  The probe intervals are examined once:
 one distinct interval (equal spacing, up to a relative 1e-9) -> one matrix per
 parameter set; up to 32 distinct intervals -> one matrix per interval;
 otherwise (irregular spacing: Poisson times, gaps) the grid route of
-:mod:`cavchar.models.hmm_kernels`: ``dt = j h + r`` with ``h`` an eighth of
+:mod:`cavchar.models.probes.hmm_kernels`: ``dt = j h + r`` with ``h`` an eighth of
 the mean interval, ``P(dt) = P(j h) exp(Q r)``, a table of ``P(j h)`` for the
 intervals up to their 99.9% quantile and a uniformization series for the
 remainder truncated below the rounding of one step, or (few levels, short
@@ -38,8 +38,8 @@ from numpy.typing import ArrayLike
 
 from cavchar.dynamics import transition_matrices_batch
 from cavchar.errors import InputError
-from cavchar.models import hmm_kernels as hk
-from cavchar.models.response import SETTING_TOLERANCE, FringeResponse, TableResponse
+from cavchar.models.probes import hmm_kernels as hk
+from cavchar.models.probes.response import SETTING_TOLERANCE, FringeResponse, TableResponse
 from cavchar.records import ProbeRecord
 
 __all__ = [
@@ -144,11 +144,11 @@ def probe_steps(time: ArrayLike, starts: ArrayLike, rtol: float = STEP_RTOL,
 
 def eigen_grid_allowed(eigenvalues: np.ndarray, grid_step: float, n_levels: int) -> bool:
     """Whether the grid route may apply its remainder in the eigen basis: unrolled
-    kernels (N <= :data:`~cavchar.models._hmm_unrolled.MAX_UNROLLED_LEVELS`),
+    kernels (N <= :data:`~cavchar.models.probes._unrolled.MAX_UNROLLED_LEVELS`),
     ``EIGEN_GRID`` set and ``max |lambda| h`` within
-    :data:`~cavchar.models.hmm_kernels.EIGEN_GRID_LIMIT` (eigenvalues in 1/s, h in s).
+    :data:`~cavchar.models.probes.hmm_kernels.EIGEN_GRID_LIMIT` (eigenvalues in 1/s, h in s).
     The caller also requires a well-conditioned eigen basis."""
-    from cavchar.models._hmm_unrolled import MAX_UNROLLED_LEVELS
+    from cavchar.models.probes._unrolled import MAX_UNROLLED_LEVELS
 
     return bool(EIGEN_GRID and n_levels <= MAX_UNROLLED_LEVELS
                 and np.max(-np.asarray(eigenvalues), initial=0.0) * grid_step

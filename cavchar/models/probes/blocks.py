@@ -39,8 +39,8 @@ from typing import Any
 import numpy as np
 from numpy.typing import ArrayLike
 
-from cavchar.models import hmm_kernels as hk
-from cavchar.models.probes import ProbeLikelihood, probe_steps
+from cavchar.models.probes import hmm_kernels as hk
+from cavchar.models.probes.likelihood import ProbeLikelihood, probe_steps
 
 __all__ = ["BlockedProbeLikelihood", "bias_check", "block_size", "BIAS_LIMIT_SD"]
 

@@ -55,7 +55,7 @@ emission in the coarse mode.
 
 All forward kernels are vectorized over k parameter sets (numba ``prange``:
 the sets are shared among threads).  For N <= 12 fully unrolled kernels are
-generated (:mod:`cavchar.models._hmm_unrolled`); the loop kernels below are
+generated (:mod:`cavchar.models.probes._unrolled`); the loop kernels below are
 the reference implementation and serve larger N.
 """
 
@@ -67,7 +67,7 @@ import numpy as np
 from numba import njit, prange
 from numpy.typing import ArrayLike
 
-from cavchar.models import _hmm_unrolled
+from cavchar.models.probes import _unrolled as _hmm_unrolled
 
 __all__ = [
     "ProbeSequence",
