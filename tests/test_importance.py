@@ -7,6 +7,9 @@ Outside references:
   case used in Vehtari et al., JMLR 25 (2024), sect. 3);
 * closed form: with a log-uniform prior on an exponential rate lambda and n waiting
   times summing to T the posterior is Gamma(n, T) (mean n/T, variance n/T^2);
+* closed form: a uniform prior on [0, 1/2] and a likelihood exp(-x/s) give a truncated
+  exponential posterior, P(x <= q) = (1 - e^(-q/s)) / (1 - e^(-1/(2s))), piled against
+  the bound 0 (as a fitted readout error with no error in the data);
 * simulation-based calibration (Talts et al. 2018, arXiv:1804.06788) of the probe fit, with
   a negative control (a fit told the wrong probe interval) that must fail.
 """
@@ -133,6 +136,58 @@ def test_poor_approximation_falls_back_to_the_ensemble():
     info = run.diagnostics["importance"]
     assert info["used"] is False and info["k_hat"] > 0.7
     assert "k-hat" in info["reason"]
+
+
+def _piled_at_zero(scale: float):
+    """x ~ exponential of mean ``scale`` truncated to [0, 1/2] (uniform prior) next to a
+    Gaussian y ~ N(1, 0.1^2): a posterior on its prior bound, the other coordinate not."""
+    def loglike(theta):
+        return -theta[:, 0] / scale - 0.5 * ((theta[:, 1] - 1.0) / 0.1) ** 2
+
+    specs = [ParameterSpec("x", "", "x", Uniform(0.0, 0.5)),
+             ParameterSpec("y", "", "y", Uniform(-10.0, 10.0))]
+    return loglike, specs
+
+
+def test_posterior_on_a_prior_bound_is_sampled_in_unbounded_coordinates():
+    scale = 0.01
+    loglike, specs = _piled_at_zero(scale)
+    run = sample_importance(loglike, specs, [0.05, 0.5], SamplerSettings(seed=4, quiet=True))
+    info = run.diagnostics["importance"]
+    assert run.diagnostics["sampler"] == "importance"
+    assert info["unbounded_coordinates"] == {"x": "logit"}
+    assert info["k_hat"] < info["k_hat_limit"] and info["ess_weights"] >= 1000
+    x, y = run.draws[:, 0], run.draws[:, 1]
+    assert x.min() >= 0.0 and x.max() <= 0.5
+    norm = 1 - math.exp(-0.5 / scale)
+    ess = info["ess_weights"]
+    for p in (0.05, 0.5, 0.95):  # closed-form quantiles, 4 binomial errors at the ESS
+        q = -scale * math.log(1 - p * norm)
+        assert abs(np.mean(x <= q) - p) < 4 * math.sqrt(p * (1 - p) / ess)
+    assert abs(y.mean() - 1.0) < 4 * 0.1 / math.sqrt(ess)
+
+
+def test_posterior_on_a_bound_in_sampler_coordinates_wastes_half_the_draws():
+    # control: the same posterior with the proposal left in u (the bound ignored, as
+    # before): a Laplace proposal centred on the bound puts about half its draws outside
+    # the support, so the weights' effective sample size per draw is about halved
+    from cavchar.inference import importance
+
+    loglike, specs = _piled_at_zero(0.01)
+    ess_per_draw = {}
+    saved = importance.NEAR_BOUND_SD
+    try:
+        for near in (saved, -math.inf):  # -inf: never "near a bound"
+            importance.NEAR_BOUND_SD = near
+            run = sample_importance(loglike, specs, [0.05, 0.5],
+                                    SamplerSettings(seed=4, quiet=True, allow_unconverged=True),
+                                    ImportanceSettings(fallback=False, max_draws=4000))
+            info = run.diagnostics["importance"]
+            ess_per_draw[near] = info["ess_weights"] / info["n_proposal_draws"]
+            assert bool(info["unbounded_coordinates"]) == (near == saved)
+    finally:
+        importance.NEAR_BOUND_SD = saved
+    assert ess_per_draw[-math.inf] < 0.6 < ess_per_draw[saved]
 
 
 def test_one_mode_unseen_is_a_known_limit():

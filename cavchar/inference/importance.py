@@ -5,6 +5,18 @@ Steps of :func:`sample_importance`:
 1. The MAP and the local covariance ``Sigma = (-H)^-1`` in sampler coordinates
    ``u`` (``ln x`` for log-scale parameters), exactly as the ensemble sampler
    starts (:mod:`cavchar.inference.start`).
+1a. A parameter whose MAP lies within :data:`NEAR_BOUND_SD` local standard
+   deviations of a bound of its prior (a readout error at 0, a lifetime against
+   its upper bound) is not Gaussian there, and a Laplace proposal in ``u``
+   wastes draws outside the support and misses the shape (k-hat above the
+   limit).  Such coordinates are mapped to an unbounded ``z``: ``z =
+   logit((u - a)/(b - a))`` for a support ``[a, b]``, ``z = ln(u - a)`` or
+   ``ln(b - u)`` for a one-sided one; the target in ``z`` carries the Jacobian
+   ``|du/dz|``, the MAP and local covariance are found again in ``z`` and the
+   proposal of step 2 lives there (the usual change of variables of bounded
+   parameters, e.g. Gelman et al., *Bayesian Data Analysis*, 3rd ed., sect.
+   13.3 and Stan Reference Manual, "Constraint transforms").  Draws are mapped
+   back, so the weights and every output are those of the posterior in ``u``.
 2. Proposal ``q(u)``: a multivariate Student-t with ``df`` degrees of freedom
    (or a Gaussian, ``df = inf``), centre the MAP, scale matrix ``Sigma``
    (the Laplace approximation with heavier tails).
@@ -55,7 +67,7 @@ from cavchar.inference.sampler import (
     refuse_point_posterior,
     sample_posterior,
 )
-from cavchar.inference.start import find_map, local_covariance
+from cavchar.inference.start import find_map, local_covariance, prior_quantiles_68
 from cavchar.parameters import ParameterSpace, ParameterSpec
 
 __all__ = ["ImportanceSettings", "psis_smooth", "fit_generalized_pareto", "khat_limit",
@@ -63,6 +75,11 @@ __all__ = ["ImportanceSettings", "psis_smooth", "fit_generalized_pareto", "khat_
 
 #: sampler choices of :func:`sample_posterior_auto`
 SAMPLERS = ("importance", "ensemble")
+
+#: a MAP within this many local standard deviations of a prior bound moves that
+#: coordinate to the unbounded scale (module docstring, step 1a); a Gaussian cut
+#: 3 sd from its centre loses 0.13% of its mass, which a proposal in ``u`` tolerates
+NEAR_BOUND_SD = 3.0
 
 
 @dataclass(frozen=True)
@@ -269,6 +286,126 @@ def _systematic_resample(w: np.ndarray, n: int, rng: np.random.Generator) -> np.
     return rng.permutation(index)
 
 
+# ------------------------------------------------------------------ bounded axes
+class _UnboundedAxes:
+    """Map chosen sampler coordinates ``u`` with a bounded support to unbounded ``z``.
+
+    ``lo``, ``hi``: support per coordinate in ``u`` (``±inf`` where open);
+    ``axes``: boolean mask of the coordinates mapped (module docstring, step 1a):
+    both bounds finite ``u = lo + (hi - lo) sigma(z)``; only ``lo`` ``u = lo + e^z``;
+    only ``hi`` ``u = hi - e^z``.  Other coordinates pass unchanged.
+    """
+
+    def __init__(self, lo: np.ndarray, hi: np.ndarray, axes: np.ndarray) -> None:
+        self.axes = np.asarray(axes, dtype=bool)
+        self.lo, self.hi = np.asarray(lo, dtype=float), np.asarray(hi, dtype=float)
+        finite_lo, finite_hi = np.isfinite(self.lo), np.isfinite(self.hi)
+        self.both = self.axes & finite_lo & finite_hi
+        self.lower = self.axes & finite_lo & ~finite_hi
+        self.upper = self.axes & ~finite_lo & finite_hi
+
+    def kinds(self, names: Sequence[str]) -> dict[str, str]:
+        """``{name: "logit" | "log above lower bound" | "log below upper bound"}``."""
+        out = {}
+        for i, name in enumerate(names):
+            if self.both[i]:
+                out[name] = "logit"
+            elif self.lower[i]:
+                out[name] = "log above lower bound"
+            elif self.upper[i]:
+                out[name] = "log below upper bound"
+        return out
+
+    def to_z(self, u: np.ndarray) -> np.ndarray:
+        """``u (..., ndim) -> z``; ``±inf`` on a bound."""
+        u = np.asarray(u, dtype=float)
+        z = u.copy()
+        lo, hi = self.lo, self.hi
+        with np.errstate(divide="ignore", invalid="ignore"):
+            b, a, c = self.both, self.lower, self.upper
+            z[..., b] = np.log(u[..., b] - lo[b]) - np.log(hi[b] - u[..., b])
+            z[..., a] = np.log(u[..., a] - lo[a])
+            z[..., c] = np.log(hi[c] - u[..., c])
+        return z
+
+    def to_u(self, z: np.ndarray) -> np.ndarray:
+        """``z (..., ndim) -> u``."""
+        z = np.asarray(z, dtype=float)
+        u = z.copy()
+        lo, hi = self.lo, self.hi
+        b, a, c = self.both, self.lower, self.upper
+        with np.errstate(over="ignore"):
+            u[..., b] = lo[b] + (hi[b] - lo[b]) * (0.5 * (1.0 + np.tanh(0.5 * z[..., b])))
+            u[..., a] = lo[a] + np.exp(z[..., a])
+            u[..., c] = hi[c] - np.exp(z[..., c])
+        return u
+
+    def log_jacobian(self, z: np.ndarray) -> np.ndarray:
+        """``sum_i ln |du_i/dz_i|``, shape ``(...,)``.
+
+        Logit axes: ``ln(hi - lo) - ln(1 + e^-z) - ln(1 + e^z)``; log axes: ``z``.
+        """
+        z = np.asarray(z, dtype=float)
+        b, one_sided = self.both, self.lower | self.upper
+        zb = z[..., b]
+        total = np.sum(np.log(self.hi[b] - self.lo[b]) - np.logaddexp(0.0, -zb)
+                       - np.logaddexp(0.0, zb), axis=-1)
+        return total + np.sum(z[..., one_sided], axis=-1)
+
+
+def _near_bound(space: ParameterSpace, u_map: np.ndarray, sd: np.ndarray
+                ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Support ``(lo, hi)`` in sampler coordinates and the mask of MAPs near a bound."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        support = np.array([spec.to_sampler(np.array(spec.prior.support, dtype=float))
+                            for spec in space.specs], dtype=float)
+    lo = np.where(np.isnan(support[:, 0]), -np.inf, support[:, 0])
+    hi = np.where(np.isnan(support[:, 1]), np.inf, support[:, 1])
+    distance = np.minimum(u_map - lo, hi - u_map)
+    near = np.isfinite(distance) & ~(distance > NEAR_BOUND_SD * sd)
+    return lo, hi, near
+
+
+class _PosteriorIn:
+    """Log posterior in the proposal's coordinates ``z``: ``ln p(u(z)) + ln |du/dz|``."""
+
+    def __init__(self, logpost: _Posterior, axes: _UnboundedAxes) -> None:
+        self.logpost, self.axes = logpost, axes
+
+    def __call__(self, z: np.ndarray) -> np.ndarray:
+        z = np.atleast_2d(z)
+        with np.errstate(invalid="ignore"):
+            out = self.logpost(self.axes.to_u(z)) + self.axes.log_jacobian(z)
+        return np.where(np.isnan(out), -np.inf, out)
+
+
+def _unbounded_start(logpost: _Posterior, space: ParameterSpace, u_map: np.ndarray,
+                     cov: np.ndarray, rng: np.random.Generator):
+    """MAP and local covariance in unbounded coordinates for MAPs near a prior bound.
+
+    Returns ``(axes, z_map, lpz_map, cov_z, method)``, or ``None`` when no MAP is
+    near a bound (or the unbounded coordinates give no finite start).
+    """
+    sd = np.sqrt(np.diag(cov))
+    lo, hi, near = _near_bound(space, u_map, sd)
+    if not near.any():
+        return None
+    axes = _UnboundedAxes(lo, hi, near)
+    # start just inside the support: half a local sd (at most a tenth of the range)
+    inset = np.minimum(0.5 * sd, 0.1 * np.where(np.isfinite(hi - lo), hi - lo, np.inf))
+    u_start = np.clip(u_map, lo + inset, hi - inset)
+    z0 = axes.to_z(u_start)
+    target = _PosteriorIn(logpost, axes)
+    if not (np.isfinite(z0).all() and np.isfinite(target(z0[None])[0])):
+        return None
+    q16, q84 = axes.to_z(prior_quantiles_68(space))
+    with np.errstate(invalid="ignore"):
+        widths = q84 - q16
+    z_map, lpz_map, _info = find_map(target, z0, space, rng, widths=widths)
+    cov_z, method = local_covariance(target, z_map, lpz_map, space, widths=widths)
+    return axes, z_map, lpz_map, cov_z, method
+
+
 # ------------------------------------------------------------------ sampler
 def sample_importance(
     log_likelihood: LogLikelihood,
@@ -312,22 +449,36 @@ def sample_importance(
     refuse_point_posterior(specs, ~(np.sqrt(np.diag(cov)) > resolution))
     rng = np.random.default_rng(seeds[1])
 
-    proposal = _Proposal(u_map, cov, imp.df)
+    # the proposal's coordinates z: u itself, or unbounded ones for MAPs on a bound
+    unbounded = _unbounded_start(logpost, space, u_map, cov, np.random.default_rng(seeds[0]))
+    if unbounded is None:
+        axes, target, z_centre, cov_z, z_method = None, logpost, u_map, cov, scale_method
+    else:
+        axes, z_centre, _lpz, cov_z, z_method = unbounded
+        target = _PosteriorIn(logpost, axes)
+
+    def to_u(z: np.ndarray) -> np.ndarray:
+        return z if axes is None else axes.to_u(z)
+
+    def u_space_lp(z: np.ndarray, lpz: np.ndarray) -> np.ndarray:
+        return lpz if axes is None else lpz - axes.log_jacobian(z)
+
+    proposal = _Proposal(z_centre, cov_z, imp.df)
     rounds: list[dict[str, Any]] = []
-    u = lp = logq = None
+    z = lp = logq = None
     for round_ in range(imp.adapt + 1):
-        u = proposal.sample(rng, imp.n_draws)
-        lp = _evaluate(logpost, u, imp.batch)
-        logq = proposal.logpdf(u)
+        z = proposal.sample(rng, imp.n_draws)
+        lp = _evaluate(target, z, imp.batch)
+        logq = proposal.logpdf(z)
         log_w, k_hat = psis_smooth(lp - logq)
         w = np.exp(log_w)
-        rounds.append({"draws": int(u.shape[0]), "k_hat": _finite_or_none(k_hat),
+        rounds.append({"draws": int(z.shape[0]), "k_hat": _finite_or_none(k_hat),
                        "ess": _kish_ess(w)})
-        if k_hat < khat_limit(u.shape[0], imp.khat_max) or round_ == imp.adapt:
+        if k_hat < khat_limit(z.shape[0], imp.khat_max) or round_ == imp.adapt:
             break
         # move the proposal to the weighted moments (if they are usable) and draw again
-        mean = np.sum(w[:, None] * u, axis=0)
-        dev = u - mean
+        mean = np.sum(w[:, None] * z, axis=0)
+        dev = z - mean
         wcov = (w[:, None] * dev).T @ dev
         try:
             proposal = _Proposal(mean, wcov, imp.df)
@@ -338,16 +489,18 @@ def sample_importance(
         log_w, k_hat = psis_smooth(lp - logq)
         w = np.exp(log_w)
         ess = _kish_ess(w)
-        good_k = k_hat < khat_limit(u.shape[0], imp.khat_max)
-        if not good_k or ess >= imp.target_ess or u.shape[0] >= imp.max_draws:
+        good_k = k_hat < khat_limit(z.shape[0], imp.khat_max)
+        if not good_k or ess >= imp.target_ess or z.shape[0] >= imp.max_draws:
             break
-        need = int(math.ceil(u.shape[0] * (imp.target_ess / max(ess, 1.0) - 1.0) * 1.1))
-        extra = min(max(need, imp.n_draws // 4), imp.max_draws - u.shape[0])
-        u_new = proposal.sample(rng, extra)
-        u = np.vstack([u, u_new])
-        lp = np.concatenate([lp, _evaluate(logpost, u_new, imp.batch)])
-        logq = np.concatenate([logq, proposal.logpdf(u_new)])
-        rounds.append({"draws": int(u.shape[0]), "k_hat": _finite_or_none(k_hat), "ess": ess})
+        need = int(math.ceil(z.shape[0] * (imp.target_ess / max(ess, 1.0) - 1.0) * 1.1))
+        extra = min(max(need, imp.n_draws // 4), imp.max_draws - z.shape[0])
+        z_new = proposal.sample(rng, extra)
+        z = np.vstack([z, z_new])
+        lp = np.concatenate([lp, _evaluate(target, z_new, imp.batch)])
+        logq = np.concatenate([logq, proposal.logpdf(z_new)])
+        rounds.append({"draws": int(z.shape[0]), "k_hat": _finite_or_none(k_hat), "ess": ess})
+    u = to_u(z)
+    lp = u_space_lp(z, lp)
 
     limit = khat_limit(u.shape[0], imp.khat_max)
     failed = []
@@ -361,6 +514,8 @@ def sample_importance(
               "n_proposal_draws": int(u.shape[0]),
               "proposal": "gaussian" if math.isinf(imp.df) else f"student-t (df {imp.df:g})",
               "rounds": rounds, "settings": imp.to_dict(),
+              "unbounded_coordinates": {} if axes is None else axes.kinds(names),
+              "proposal_scale_method": z_method,
               "reference": "Vehtari, Simpson, Gelman, Yao, Gabry, JMLR 25(72) (2024)"}
     map_diag = {**map_info, "log_posterior": float(lp_map),
                 "sampler_coordinates": dict(zip(names, u_map.tolist(), strict=True)),

@@ -22,25 +22,34 @@ __all__ = ["find_map", "local_covariance", "initial_ball"]
 _BIG = 1e300  # objective value the optimizers see outside the support
 
 
-def _prior_widths(space: ParameterSpace) -> np.ndarray:
-    """Width of the central 68% of each prior in sampler coordinates (NaN if unbounded)."""
-    widths = []
-    for spec in space.specs:
-        lo, hi = spec.prior.ppf(np.array(QUANTILES_68))
-        with np.errstate(divide="ignore", invalid="ignore"):
-            w = float(spec.to_sampler(hi) - spec.to_sampler(lo))
-        widths.append(w if math.isfinite(w) and w > 0 else math.nan)
-    return np.array(widths)
+def prior_quantiles_68(space: ParameterSpace) -> np.ndarray:
+    """The 16% and 84% prior quantiles in sampler coordinates, shape ``(2, ndim)``."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.array([spec.to_sampler(spec.prior.ppf(np.array(QUANTILES_68)))
+                         for spec in space.specs], dtype=float).T
+
+
+def _widths(space: ParameterSpace, widths: np.ndarray | None) -> np.ndarray:
+    """Width of the central 68% of each prior (NaN where not finite and positive)."""
+    if widths is None:
+        lo, hi = prior_quantiles_68(space)
+        with np.errstate(invalid="ignore"):
+            widths = hi - lo
+    widths = np.asarray(widths, dtype=float)
+    return np.where(np.isfinite(widths) & (widths > 0), widths, math.nan)
 
 
 def find_map(logpost: Callable[[np.ndarray], np.ndarray], u0: np.ndarray,
-             space: ParameterSpace, rng: np.random.Generator
+             space: ParameterSpace, rng: np.random.Generator, *,
+             widths: np.ndarray | None = None
              ) -> tuple[np.ndarray, float, dict[str, Any]]:
     """Maximum of the log posterior in sampler coordinates.
 
     Nelder-Mead from ``u0``, then L-BFGS-B and Powell from the best point so
     far; the best value is kept.  If ``u0`` has no finite posterior, the best of
-    ``64 * ndim`` prior draws is the start.
+    ``64 * ndim`` prior draws is the start.  ``widths`` (the prior's central 68%
+    width per coordinate, which sets the first simplex) defaults to the space's
+    own; a caller working in other coordinates passes them in those.
 
     Returns
     -------
@@ -66,7 +75,7 @@ def find_map(logpost: Callable[[np.ndarray], np.ndarray], u0: np.ndarray,
         v = float(logpost(u[None])[0])
         return -v if np.isfinite(v) else _BIG
 
-    widths = _prior_widths(space)
+    widths = _widths(space, widths)
     steps = np.maximum(0.05 * np.abs(u0), np.where(np.isfinite(widths), 1e-2 * widths, 0.0))
     steps = np.where(steps > 0, steps, 2.5e-4)
     simplex = np.vstack([u0, u0 + np.diag(steps)])
@@ -91,7 +100,8 @@ def find_map(logpost: Callable[[np.ndarray], np.ndarray], u0: np.ndarray,
 
 
 def local_covariance(logpost: Callable[[np.ndarray], np.ndarray], u_map: np.ndarray,
-                     lp_map: float, space: ParameterSpace) -> tuple[np.ndarray, str]:
+                     lp_map: float, space: ParameterSpace, *,
+                     widths: np.ndarray | None = None) -> tuple[np.ndarray, str]:
     """Approximate posterior covariance at the MAP (sampler coordinates), ``(ndim, ndim)``.
 
     Per axis a step ``h_i`` is found at which the log posterior drops by
@@ -99,9 +109,10 @@ def local_covariance(logpost: Callable[[np.ndarray], np.ndarray], u_map: np.ndar
     the Hessian from central differences with those steps (one batched
     call) gives ``cov = (-H)^-1`` if ``-H`` is positive definite ("hessian"),
     else the diagonal curvatures ("diagonal"), else ``h_i^2`` ("steps").
+    ``widths`` as in :func:`find_map`.
     """
     ndim = space.ndim
-    widths = _prior_widths(space)
+    widths = _widths(space, widths)
     h = np.empty(ndim)
     for i in range(ndim):
         hi = 0.1 * widths[i] if np.isfinite(widths[i]) else 0.1 * max(abs(u_map[i]), 1.0)
