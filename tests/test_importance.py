@@ -131,7 +131,7 @@ def test_poor_approximation_falls_back_to_the_ensemble():
     run = sample_importance(loglike, specs, [0.0],
                             SamplerSettings(seed=3, quiet=True, max_steps=2000, chunk=200,
                                             allow_unconverged=True),
-                            ImportanceSettings(n_draws=4000, adapt=0))
+                            ImportanceSettings(n_draws=4000, df=5.0, adapt=0))
     assert run.diagnostics["sampler"].startswith("ensemble (fallback")
     info = run.diagnostics["importance"]
     assert info["used"] is False and info["k_hat"] > 0.7

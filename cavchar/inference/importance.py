@@ -67,7 +67,12 @@ from cavchar.inference.sampler import (
     refuse_point_posterior,
     sample_posterior,
 )
-from cavchar.inference.start import find_map, local_covariance, prior_quantiles_68
+from cavchar.inference.start import (
+    find_map,
+    local_covariance,
+    prior_quantiles_68,
+    support_in_sampler,
+)
 from cavchar.parameters import ParameterSpace, ParameterSpec
 
 __all__ = ["ImportanceSettings", "psis_smooth", "fit_generalized_pareto", "khat_limit",
@@ -95,6 +100,12 @@ class ImportanceSettings:
         size is below ``target_ess``).
     df
         Degrees of freedom of the Student-t proposal (``math.inf``: Gaussian).
+        10 by measurement: on the benchmark probe record (10^4 probes, four
+        parameters, two of them on a prior bound) df 10 gave an effective sample
+        size of 0.53 per draw (k-hat 0.41), df 5 only 0.11 (k-hat 0.51): heavier
+        tails spend most draws where the posterior is negligible, and there the
+        probe likelihood is dearest (many photon-number levels at large n_th).
+
     target_ess
         Smallest effective sample size of the smoothed weights (Kish,
         ``(sum w)^2 / sum w^2``) accepted.
@@ -112,7 +123,7 @@ class ImportanceSettings:
 
     n_draws: int = 4000
     max_draws: int = 16000
-    df: float = 5.0
+    df: float = 10.0
     target_ess: float = 1000.0
     khat_max: float = 0.7
     adapt: int = 1
@@ -356,11 +367,7 @@ class _UnboundedAxes:
 def _near_bound(space: ParameterSpace, u_map: np.ndarray, sd: np.ndarray
                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Support ``(lo, hi)`` in sampler coordinates and the mask of MAPs near a bound."""
-    with np.errstate(divide="ignore", invalid="ignore"):
-        support = np.array([spec.to_sampler(np.array(spec.prior.support, dtype=float))
-                            for spec in space.specs], dtype=float)
-    lo = np.where(np.isnan(support[:, 0]), -np.inf, support[:, 0])
-    hi = np.where(np.isnan(support[:, 1]), np.inf, support[:, 1])
+    lo, hi = support_in_sampler(space)
     distance = np.minimum(u_map - lo, hi - u_map)
     near = np.isfinite(distance) & ~(distance > NEAR_BOUND_SD * sd)
     return lo, hi, near
@@ -401,7 +408,11 @@ def _unbounded_start(logpost: _Posterior, space: ParameterSpace, u_map: np.ndarr
     q16, q84 = axes.to_z(prior_quantiles_68(space))
     with np.errstate(invalid="ignore"):
         widths = q84 - q16
-    z_map, lpz_map, _info = find_map(target, z0, space, rng, widths=widths)
+    lo_z, hi_z = axes.to_z(lo), axes.to_z(hi)  # unchanged axes keep their support
+    lo_z = np.where(near, -np.inf, lo_z)
+    hi_z = np.where(near, np.inf, hi_z)
+    z_map, lpz_map, _info = find_map(target, z0, space, rng, widths=widths,
+                                     support=(lo_z, hi_z))
     cov_z, method = local_covariance(target, z_map, lpz_map, space, widths=widths)
     return axes, z_map, lpz_map, cov_z, method
 
