@@ -26,11 +26,13 @@ import math
 import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
 
+from cavchar.decay import RingdownCurve
 from cavchar.errors import CavcharWarning, InputError
 from cavchar.plan import fisher, study
 from cavchar.plan.fisher import Information
@@ -395,15 +397,7 @@ def plan_ringdown(
     times: ArrayLike | None = None,
     span: float | None = None,
     points: int = 1000,
-    amplitude: float = 1.0,
-    floor: float = 0.0,
-    t0: float = 0.0,
-    n_thermal: float = 0.0,
-    initial: float | ArrayLike = 1,
     shots: int = 1000,
-    detuning: float = 0.0,
-    phase: float = 0.0,
-    offset: complex = 0.0,
     fixed: Sequence[str] = (),
     target_lifetime: float | None = None,
     target_n_thermal: float | None = None,
@@ -413,6 +407,7 @@ def plan_ringdown(
     check: bool = True,
     check_records: int = 40,
     seed: int | None = 0,
+    **assumed: Any,
 ) -> pd.DataFrame:
     """Number of ring-down traces for target precisions, or the precision of N traces.
 
@@ -428,8 +423,11 @@ def plan_ringdown(
     times, span, points
         Sample times in s, or ``points`` equally spaced times over ``span`` s
         from ``t0`` (default span: 5 lifetimes).
-    amplitude, floor, t0, n_thermal, initial, shots, detuning, phase, offset, fixed
-        As :func:`cavchar.plan.fisher.ringdown_information`.
+    shots, fixed, **assumed
+        As :func:`cavchar.plan.fisher.ringdown_information`: shots per delay, the
+        nuisances held fixed, and the assumed curve (``amplitude``, ``floor``,
+        ``t0``, ``n_thermal``, ``initial``, ``detuning``, ``phase``, ``offset``: the
+        fields of :class:`cavchar.decay.RingdownCurve`).
     target_lifetime, target_n_thermal, target_temperature, n_traces, freq_hz
         As for :func:`plan_jumps`; ``n_traces`` is the amount to forecast
         (traces averaged or fitted together).
@@ -440,10 +438,8 @@ def plan_ringdown(
         span = 5.0 * lifetime if span is None else span
         if not (math.isfinite(span) and span > 0) or int(points) < 2:
             raise InputError("the ring-down needs a span > 0 and at least 2 points")
-        times = t0 + np.linspace(0.0, span, int(points))
-    kw = dict(noise=noise, amplitude=amplitude, floor=floor, t0=t0, n_thermal=n_thermal,
-              initial=initial, shots=shots, detuning=detuning, phase=phase, offset=offset,
-              fixed=tuple(fixed))
+        times = RingdownCurve(lifetime, **assumed).t0 + np.linspace(0.0, span, int(points))
+    kw = dict(noise=noise, shots=shots, fixed=tuple(fixed), **assumed)
     info = fisher.ringdown_information(signal, times, lifetime, **kw)
     kind = f"ringdown-{signal.lower().replace('-', '_')}"
     if "n_thermal" not in info.names and (target_n_thermal or target_temperature):
