@@ -18,6 +18,7 @@ quadrature follows the Rice law (Rice, *Bell Syst. Tech. J.* 24, 46 (1945)):
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -25,8 +26,8 @@ from scipy import special
 
 from cavchar.errors import InputError
 
-__all__ = ["RINGDOWN_NUISANCES", "ringdown_signal", "ringdown_mean", "rice_logpdf",
-           "initial_distribution"]
+__all__ = ["RINGDOWN_NUISANCES", "RingdownCurve", "ringdown_signal", "ringdown_mean",
+           "rice_logpdf", "initial_distribution"]
 
 #: nuisance parameters of :func:`ringdown_mean`, after the parameters of interest
 RINGDOWN_NUISANCES = {
@@ -102,6 +103,81 @@ def ringdown_mean(signal: str, times: ArrayLike, theta: ArrayLike, t0: float = 0
         n, n0 = theta[1], theta[2]
         return n + (n0 - n) * u, np.column_stack([(n0 - n) * du, 1 - u, u])
     raise InputError("populations have no Gaussian mean model; see cavchar.dynamics.populations")
+
+
+@dataclass(frozen=True)
+class RingdownCurve:
+    """The assumed noise-free ring-down of every signal kind (module docstring), in SI units.
+
+    One set of values that the simulator draws traces around and the planner
+    computes the information of.
+
+    Attributes
+    ----------
+    lifetime
+        Energy lifetime ``T_c`` in s.
+    amplitude
+        ``A``: power units for power/db, field units for amplitude/iq.
+    floor
+        Power floor ``F`` (power/db).
+    t0
+        Start of the decay in s.
+    n_thermal
+        Thermal photon number ``n_th`` (mean_n, populations).
+    initial
+        The prepared state (mean_n, populations): a Fock number, or the
+        probabilities of ``0, 1, ...``; for mean_n a single number is the
+        initial mean photon number ``n0``.
+    detuning
+        IQ detuning ``Delta`` in Hz.
+    phase
+        Phase of the field at ``t0`` in rad (amplitude/iq): ``c = A e^{i phase}``.
+    offset
+        Constant complex IQ offset ``o``.
+    """
+
+    lifetime: float
+    amplitude: float = 1.0
+    floor: float = 0.0
+    t0: float = 0.0
+    n_thermal: float = 0.0
+    initial: int | float | ArrayLike = 1
+    detuning: float = 0.0
+    phase: float = 0.0
+    offset: complex = 0.0
+
+    @property
+    def initial_mean(self) -> float:
+        """Initial mean photon number ``n0``: ``initial`` itself when it is one number,
+        else ``sum_n n p_n`` of the distribution."""
+        p0 = np.atleast_1d(np.asarray(self.initial, dtype=float))
+        return float(p0[0]) if p0.size == 1 else float(np.dot(np.arange(p0.size), p0))
+
+    def parameters(self, signal: str, noise: float = 0.0) -> dict[str, float]:
+        """Every parameter of the ``signal`` model by name, in :func:`ringdown_mean` order.
+
+        ``lifetime`` (s), ``n_thermal`` for mean_n and populations, then the
+        nuisances of :data:`RINGDOWN_NUISANCES` (``noise``: the noise sd per
+        quadrature of an amplitude signal, in field units).
+        """
+        signal = ringdown_signal(signal)
+        field = self.amplitude * np.exp(1j * self.phase)
+        offset = complex(self.offset)
+        known = {"amplitude": self.amplitude, "floor": self.floor, "noise": noise,
+                 "initial_mean": self.initial_mean, "amplitude_re": float(field.real),
+                 "amplitude_im": float(field.imag), "detuning": self.detuning,
+                 "offset_re": offset.real, "offset_im": offset.imag}
+        values = {"lifetime": self.lifetime}
+        if signal in ("mean_n", "populations"):
+            values["n_thermal"] = self.n_thermal
+        return values | {name: known[name] for name in RINGDOWN_NUISANCES[signal]}
+
+    def mean(self, signal: str, times: ArrayLike, noise: float = 0.0,
+             ) -> tuple[np.ndarray, np.ndarray]:
+        """:func:`ringdown_mean` of this curve at ``times`` (s): model (m,) and Jacobian
+        (m, p) with respect to :meth:`parameters`."""
+        theta = list(self.parameters(signal, noise).values())
+        return ringdown_mean(signal, times, theta, self.t0)
 
 
 def rice_logpdf(m: ArrayLike, nu: ArrayLike, sigma: ArrayLike) -> np.ndarray:

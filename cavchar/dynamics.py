@@ -44,6 +44,7 @@ from scipy import linalg
 __all__ = [
     "up_rate",
     "down_rate",
+    "mean_jump_rate",
     "truncation_levels",
     "MAX_LEVELS",
     "check_levels",
@@ -76,6 +77,16 @@ def up_rate(kappa: ArrayLike, n_th: ArrayLike, n: ArrayLike) -> np.ndarray:
 def down_rate(kappa: ArrayLike, n_th: ArrayLike, n: ArrayLike) -> np.ndarray:
     """Rate of n -> n-1 in 1/s: ``kappa (1 + n_th) n``."""
     return np.asarray(kappa) * (1 + np.asarray(n_th)) * np.asarray(n)
+
+
+def mean_jump_rate(kappa: ArrayLike, n_th: ArrayLike) -> np.ndarray:
+    """Mean number of jumps per second in equilibrium, in 1/s: ``2 kappa n_th (1 + n_th)``.
+
+    The up plus down rates averaged over the Bose–Einstein law (mean ``<n> = n_th``):
+    ``kappa [n_th (<n> + 1) + (1 + n_th) <n>]``.
+    """
+    n_th = np.asarray(n_th)
+    return 2 * np.asarray(kappa) * n_th * (1 + n_th)
 
 
 def bose_einstein(n_th: ArrayLike, n: ArrayLike) -> np.ndarray:

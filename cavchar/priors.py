@@ -73,6 +73,16 @@ def _finite(value: float, what: str, prior: str) -> float:
     return value
 
 
+def _interval(low: float, high: float, prior: str) -> tuple[float, float]:
+    """Finite bounds ``low < high`` of a ``prior`` family as floats; InputError otherwise."""
+    low = _finite(low, "lower bound", prior)
+    high = _finite(high, "upper bound", prior)
+    if not low < high:
+        raise InputError(f"{prior} prior needs low < high, got low={low:g}, high={high:g}",
+                         hint="give the smaller bound first")
+    return low, high
+
+
 class Prior:
     """Base class of the prior families (see the module docstring)."""
 
@@ -154,11 +164,7 @@ class Uniform(Prior):
     family = "uniform"
 
     def __post_init__(self) -> None:
-        low = _finite(self.low, "lower bound", "uniform")
-        high = _finite(self.high, "upper bound", "uniform")
-        if not low < high:
-            raise InputError(f"uniform prior needs low < high, got low={low:g}, high={high:g}",
-                             hint="give the smaller bound first")
+        low, high = _interval(self.low, self.high, "uniform")
         self._store(low=low, high=high, _log_norm=math.log(high - low))
 
     def logpdf(self, x: ArrayLike) -> np.ndarray:
@@ -307,13 +313,9 @@ class Beta(Prior):
     def __post_init__(self) -> None:
         a = _finite(self.a, "shape a", "beta")
         b = _finite(self.b, "shape b", "beta")
-        low = _finite(self.low, "lower bound", "beta")
-        high = _finite(self.high, "upper bound", "beta")
         if a <= 0 or b <= 0:
             raise InputError(f"beta prior needs shapes a > 0 and b > 0, got a={a:g}, b={b:g}")
-        if not low < high:
-            raise InputError(f"beta prior needs low < high, got low={low:g}, high={high:g}",
-                             hint="give the smaller bound first")
+        low, high = _interval(self.low, self.high, "beta")
         self._store(a=a, b=b, low=low, high=high,
                     _log_norm=float(special.betaln(a, b)) + math.log(high - low))
 

@@ -86,3 +86,38 @@ def test_bose_einstein_batched_matches_scipy_geometric():
         ref = stats.geom.pmf(n + 1, 1 / (1 + value)) if value > 0 else (n == 0).astype(float)
         np.testing.assert_allclose(row, ref, rtol=1e-12, atol=1e-300)
         np.testing.assert_allclose(bose_einstein(float(value), n), row)
+
+
+@pytest.mark.parametrize("signal", ["power", "db", "amplitude", "iq", "mean_n", "populations"])
+def test_ringdown_curve_against_the_closed_forms(signal):
+    # source: the closed forms of the module docstring written out by hand here, with
+    # c = A e^{i phase} = A (cos phase + i sin phase); exact up to rounding (rel 1e-12)
+    from cavchar.decay import RingdownCurve
+
+    curve = RingdownCurve(1.2e-3, amplitude=0.8, floor=0.05, t0=2e-4, n_thermal=0.3,
+                          initial=[0.0, 0.25, 0.75], detuning=350.0, phase=0.7,
+                          offset=0.05 - 0.02j)
+    tau = TIMES - 2e-4
+    u = np.exp(-tau / 1.2e-3)
+    c = 0.8 * (np.cos(0.7) + 1j * np.sin(0.7))
+    expected = {
+        "power": 0.8 * u + 0.05,
+        "db": 10 * np.log10(0.8 * u + 0.05),
+        "amplitude": 0.8 * np.sqrt(u),
+        "iq": c * np.sqrt(u) * np.exp(-2j * np.pi * 350.0 * tau) + 0.05 - 0.02j,
+        "mean_n": 0.3 + (1.75 - 0.3) * u,  # n0 = 0 * 0 + 1 * 0.25 + 2 * 0.75
+    }
+    names = {"power": ["lifetime", "amplitude", "floor"],
+             "amplitude": ["lifetime", "amplitude", "noise"],
+             "iq": ["lifetime", "amplitude_re", "amplitude_im", "detuning", "offset_re",
+                    "offset_im"],
+             "mean_n": ["lifetime", "n_thermal", "initial_mean"],
+             "populations": ["lifetime", "n_thermal"]}
+    assert list(curve.parameters(signal)) == names.get(signal, names["power"])
+    if signal == "populations":
+        with pytest.raises(InputError, match="populations"):
+            curve.mean(signal, TIMES)
+        return
+    model, jacobian = curve.mean(signal, TIMES, noise=0.1)
+    np.testing.assert_allclose(model, expected[signal], rtol=1e-12)
+    assert jacobian.shape == (TIMES.size, len(curve.parameters(signal)))

@@ -120,3 +120,15 @@ def test_transition_matrices_against_expm(n_th):
 def test_eigen_route_used_when_accurate():
     assert DampedModePropagator(1e3, 0.05, 13, n_max=3).method == "eigen"
     assert DampedModePropagator(1e3, 0.0, 5).method == "expm"
+
+
+@pytest.mark.parametrize("kappa, n_th", [(1.0e3, 0.05), (250.0, 1.7)])
+def test_mean_jump_rate_is_the_equilibrium_mean_of_the_rates(kappa, n_th):
+    # source: the definition, sum_n P_n (up_n + down_n) over the Bose–Einstein law P_n,
+    # summed to n = 399 (neglected tail below (1.7 / 2.7)^400 ~ 1e-80); rel 1e-12: rounding
+    from cavchar.dynamics import down_rate, mean_jump_rate, up_rate
+
+    n = np.arange(400)
+    p = bose_einstein(n_th, n)
+    expected = np.sum(p * (up_rate(kappa, n_th, n) + down_rate(kappa, n_th, n)))
+    assert float(mean_jump_rate(kappa, n_th)) == pytest.approx(expected, rel=1e-12)

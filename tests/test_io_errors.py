@@ -279,3 +279,17 @@ def test_cli_response_table_errors(tmp_path, run_cli):
     table.write_text("photons,p_one\n0,0.1\n")  # too short for the photon numbers visited
     code, out, err = run_cli(*argv, "--n-thermal", "2")
     assert code == 2 and "Traceback" not in err and "photon" in err
+
+
+def test_settings_toml_errors_name_file_and_line():
+    # source: the position tomllib (Python standard library) reports for the bad line
+    from cavchar.io.toml import loads_toml
+
+    assert loads_toml("a = 1\n[b]\nc = 'x'\n", path="batch.toml", what="the batch file") == \
+        {"a": 1, "b": {"c": "x"}}
+    with pytest.raises(InputError) as info:
+        loads_toml("a = 1\n[b\n", path="batch.toml", what="the batch file", hint="see docs")
+    assert info.value.line == 2 and info.value.path == "batch.toml"
+    assert info.value.message.startswith("the batch file is not valid TOML")
+    with pytest.raises(InputError, match="nested too deeply"):
+        loads_toml("a = " + "[" * 5000 + "]" * 5000, path=None, what="the spec file")

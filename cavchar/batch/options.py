@@ -178,10 +178,8 @@ def command_text(kind: str, argv: list[str], seed: int) -> str:
     return shlex.join(command_argv(kind, argv, seed))
 
 
-def _settings(args: argparse.Namespace, kind: str, check_every: int | None):
-    from cavchar.cli.common import settings_from_args
-
-    settings = settings_from_args(args, KINDS[kind][0])
+def _settings(settings, check_every: int | None):
+    """An entry's sampler settings: quiet, checked every ``check_every`` steps if given."""
     if check_every is not None:
         settings = dataclasses.replace(settings, chunk=int(check_every))
     return dataclasses.replace(settings, quiet=True)
@@ -200,16 +198,16 @@ def fit_arguments(kind: str, argv: list[str], seed: int, check_every: int | None
     Building them parses every prior and reads a response table, so a malformed
     option fails here, before any fit starts.
     """
-    from cavchar.cli.common import laid_out, rate_priors_from_args
+    from cavchar.cli.common import fit_options_from_args, laid_out, rate_priors_from_args
 
     args = parse_argv(kind, [*argv, "--seed", str(seed)])
     extra = _unhandled(kind, args)
     if extra:
         raise InputError("this cavchar's fit command has options the batch does not pass on "
                          f"yet: {', '.join(extra)}", hint="fit this record on its own")
-    settings = _settings(args, kind, check_every)
-    common = {"freq_hz": args.freq, "stage_temp_k": args.stage_temp, "settings": settings,
-              "sampler": args.sampler, "command_line": command_argv(kind, argv, seed)}
+    common = fit_options_from_args(args, KINDS[kind][0])
+    common.update(settings=_settings(common["settings"], check_every),
+                  command_line=command_argv(kind, argv, seed))
     base = KINDS[kind][0]
     if base == "jumps":
         from cavchar.fits.jumps import JumpPriors

@@ -28,7 +28,6 @@ import glob
 import hashlib
 import os
 import re
-import tomllib
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -36,6 +35,7 @@ from typing import Any
 
 from cavchar.batch.options import ENTRY_FIELDS, KINDS, build_argv, fit_arguments
 from cavchar.errors import InputError
+from cavchar.io.toml import loads_toml
 
 __all__ = ["BatchEntry", "BatchPlan", "BatchFileError", "read_batch_file", "plan_entries",
            "entry_seed", "DEFAULT_BATCH_SEED"]
@@ -170,16 +170,8 @@ def read_batch_file(path: str | os.PathLike, *, seed: int | None = None) -> Batc
     except OSError as exc:
         raise InputError(f"cannot read the batch file: {exc.strerror or exc}", path=file) \
             from None
-    try:
-        data = tomllib.loads(text)
-    except RecursionError:
-        raise InputError("the batch file is nested too deeply to read", path=file,
-                         hint="see docs/batch.md for the format") from None
-    except tomllib.TOMLDecodeError as exc:
-        match = re.search(r"line (\d+)", str(exc))
-        raise InputError(f"not a valid TOML file: {exc}", path=file,
-                         line=int(match.group(1)) if match else None,
-                         hint="see docs/batch.md for the format") from None
+    data = loads_toml(text, path=file, what="the batch file",
+                      hint="see docs/batch.md for the format")
     lines = _line_index(text)
     problems: list[InputError] = []
     for key in data:

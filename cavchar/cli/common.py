@@ -12,9 +12,10 @@ if TYPE_CHECKING:
     from cavchar.result import FitResult
 
 __all__ = ["quantity", "add_output_options", "add_sampler_options", "add_fit_context_options",
-           "settings_from_args", "rate_priors_from_args", "check_input_files", "check_outputs",
-           "finish_fit_command", "HelpFormatter", "add_layout_options", "laid_out", "for_option",
-           "add_prior_option", "priors_from_args", "add_command", "add_fit_options"]
+           "settings_from_args", "fit_options_from_args", "rate_priors_from_args",
+           "check_input_files", "check_outputs", "finish_fit_command", "HelpFormatter",
+           "add_layout_options", "laid_out", "for_option", "add_prior_option",
+           "priors_from_args", "add_command", "add_fit_options"]
 
 
 class HelpFormatter(argparse.ArgumentDefaultsHelpFormatter, argparse.RawDescriptionHelpFormatter):
@@ -231,6 +232,16 @@ def settings_from_args(args: argparse.Namespace, kind: str | None = None):
     return SamplerSettings.for_fit(kind, seed=args.seed, allow_unconverged=args.allow_unconverged,
                                    quiet=args.quiet,
                                    **{k: v for k, v in given.items() if v is not None})
+
+
+def fit_options_from_args(args: argparse.Namespace, kind: str | None = None) -> dict:
+    """Keyword arguments that the shared options of :func:`add_fit_options` give every
+    fit function: ``freq_hz`` (Hz) and ``stage_temp_k`` (K) of the fit context,
+    ``settings`` (:func:`settings_from_args` of fit ``kind``), ``sampler`` and the
+    ``command_line`` the command line interface stores (None from Python)."""
+    return {"freq_hz": args.freq, "stage_temp_k": args.stage_temp,
+            "settings": settings_from_args(args, kind), "sampler": args.sampler,
+            "command_line": getattr(args, "command_line", None)}
 
 
 #: dimension of each parameter a ``--prior`` may name (others are dimensionless)

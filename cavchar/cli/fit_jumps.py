@@ -11,10 +11,10 @@ from cavchar.cli.common import (
     check_input_files,
     check_outputs,
     finish_fit_command,
+    fit_options_from_args,
     laid_out,
     quantity,
     rate_priors_from_args,
-    settings_from_args,
 )
 
 EXAMPLES = """examples:
@@ -65,14 +65,10 @@ def handle(args: argparse.Namespace) -> int:
     priors = rate_priors_from_args(args, JumpPriors)
     result = fit_jumps(
         laid_out(args.record, args),
-        freq_hz=args.freq,
-        stage_temp_k=args.stage_temp,
         sampled=args.sampled,
         end_time=args.end_time,
         priors=priors,
         stationary_start=args.stationary_start,
-        settings=settings_from_args(args),
-        sampler=args.sampler,
-        command_line=getattr(args, "command_line", None),
+        **fit_options_from_args(args),
     )
     return finish_fit_command(result, args)

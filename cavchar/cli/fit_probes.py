@@ -12,10 +12,10 @@ from cavchar.cli.common import (
     check_input_files,
     check_outputs,
     finish_fit_command,
+    fit_options_from_args,
     for_option,
     laid_out,
     rate_priors_from_args,
-    settings_from_args,
     whole,
 )
 
@@ -214,15 +214,11 @@ def handle(args: argparse.Namespace) -> int:
     result, trajectory = fit_probes_with_trajectory(
         laid_out(args.record, args),
         response=response,
-        freq_hz=args.freq,
-        stage_temp_k=args.stage_temp,
         priors=priors,
-        settings=settings_from_args(args),
         mode=args.mode,
         block_probes=args.block_probes,
         initial="stationary" if args.initial_photons is None else args.initial_photons,
-        command_line=getattr(args, "command_line", None),
-        sampler=args.sampler,
+        **fit_options_from_args(args),
     )
     route = result.settings["fit"].get("intervals")
     if route:

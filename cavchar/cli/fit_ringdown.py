@@ -11,12 +11,12 @@ from cavchar.cli.common import (
     check_input_files,
     check_outputs,
     finish_fit_command,
+    fit_options_from_args,
     for_option,
     laid_out,
     priors_from_args,
     quantity,
     real,
-    settings_from_args,
 )
 
 #: largest initial mean photon number accepted by --n0 (a cavity state, not a drive)
@@ -116,22 +116,18 @@ def handle(args: argparse.Namespace) -> int:
 
     check_outputs(args)
     for_option("--time-unit", time_factor, args.time_unit)
-    settings = settings_from_args(args, "ringdown")
+    options = fit_options_from_args(args, "ringdown")
     result = fit_ringdown(
         [laid_out(path, args) for path in args.traces],
         signal=args.signal,
-        freq_hz=args.freq,
-        stage_temp_k=args.stage_temp,
         start_time=args.start_time,
         time_unit=args.time_unit,
         priors=priors_from_args(args),
-        settings=settings,
         initial=_initial(args.initial),
         n0=args.n0,
         allow_negative_power=args.allow_negative,
         compare=not args.no_compare,
-        sampler=args.sampler,
-        command_line=getattr(args, "command_line", None),
+        **options,
     )
     code = finish_fit_command(result, args)
     comparison = result.checks.get("two_exponentials")

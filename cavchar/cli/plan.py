@@ -7,6 +7,7 @@ import math
 from pathlib import Path
 
 from cavchar.cli.common import add_command, add_output_options, quantity, real, whole
+from cavchar.cli.response import add_response_options, response_from_args
 from cavchar.errors import InputError
 from cavchar.units import format_quantity
 
@@ -135,20 +136,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                         help="time between probes, e.g. 20us")
     probes.add_argument("--probes", type=count, default=None,
                         help="forecast the precision of this number of probes, e.g. 1e6")
-    probes.add_argument("--visibility", type=real(0.0, 1.0), default=1.0,
-                        help="fringe visibility V")
-    probes.add_argument("--phase-per-photon", type=quantity("phase", minimum=None),
-                        default=math.pi,
-                        help="fringe phase per photon (pi: parity probe), e.g. 3.1416rad")
-    probes.add_argument("--phase-offset", type=quantity("phase", minimum=None), default=0.0,
-                        help="fringe phase offset, e.g. 0.2rad")
-    probes.add_argument("--readout-error-0", type=real(0.0, 1.0), default=0.0,
-                        help="P(read 1 | ideal 0)")
-    probes.add_argument("--readout-error-1", type=real(0.0, 1.0), default=0.0,
-                        help="P(read 0 | ideal 1)")
-    probes.add_argument("--response-table", default=None, metavar="FILE",
-                        help="calibrated response table (photons, p_one[, setting]) instead of "
-                        "the fringe")
+    add_response_options(probes)
     probes.add_argument("--settings", default=None,
                         help="interleaved probe settings, comma separated, e.g. 0,1.57rad")
     probes.add_argument("--loss", type=real(0.0, 0.99), default=0.0,
@@ -182,16 +170,6 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.set_defaults(func=lambda args: (parser.print_help(), 2)[1])
 
 
-def _response(args):
-    from cavchar.models.probes.response import FringeResponse, TableResponse
-
-    if args.response_table:
-        return TableResponse.from_file(args.response_table)
-    return FringeResponse(visibility=args.visibility, phase_per_photon=args.phase_per_photon,
-                          phase_offset=args.phase_offset, readout_error_0=args.readout_error_0,
-                          readout_error_1=args.readout_error_1)
-
-
 def _settings(text: str | None):
     from cavchar.units import parse_quantity
 
@@ -214,9 +192,9 @@ def _run(args):
     if args.plan_kind == "probes":
         if not 0 <= args.loss < 1:
             raise InputError(f"--loss must lie in [0, 1), not {args.loss}")
-        return plan_probes(args.lifetime, args.n_thermal, args.probe_interval, _response(args),
-                           settings=_settings(args.settings), loss=args.loss,
-                           n_probes=args.probes, **common)
+        return plan_probes(args.lifetime, args.n_thermal, args.probe_interval,
+                           response_from_args(args), settings=_settings(args.settings),
+                           loss=args.loss, n_probes=args.probes, **common)
     return plan_ringdown(args.signal, args.lifetime, noise=args.noise, span=args.span,
                          points=args.points, amplitude=args.amplitude, floor=args.floor,
                          n_thermal=args.n_thermal, initial=args.initial, shots=args.shots,

@@ -3,10 +3,10 @@
 from __future__ import annotations
 
 import argparse
-import math
 from pathlib import Path
 
 from cavchar.cli.common import add_command, add_output_options, quantity, real, whole
+from cavchar.cli.response import add_response_options, response_from_args
 from cavchar.errors import InputError
 from cavchar.units import format_quantity, parse_quantity
 
@@ -123,20 +123,7 @@ def _record_options(sub: argparse.ArgumentParser, shape: str) -> None:
 
 def _probe_options(sub: argparse.ArgumentParser) -> None:
     group = sub.add_argument_group("probe response (Ramsey fringe unless --response-table)")
-    group.add_argument("--visibility", type=real(0.0, 1.0), default=1.0,
-                       help="fringe visibility V in [0, 1]")
-    group.add_argument("--phase-per-photon", type=quantity("phase", minimum=None),
-                       default=math.pi,
-                       help="fringe phase per photon phi0 (rad, or e.g. 180deg = parity probe)")
-    group.add_argument("--phase-offset", type=quantity("phase", minimum=None), default=0.0,
-                       help="fringe phase offset phi_r (rad or deg)")
-    group.add_argument("--readout-error-0", dest="error0", type=real(0.0, 1.0), default=0.0,
-                       help="readout error e0 = P(read 1 | ideal 0)")
-    group.add_argument("--readout-error-1", dest="error1", type=real(0.0, 1.0), default=0.0,
-                       help="readout error e1 = P(read 0 | ideal 1)")
-    group.add_argument("--response-table", default=None, metavar="FILE",
-                       help="calibrated table with columns photons, p_one[, setting] instead "
-                       "of the fringe")
+    add_response_options(group)
     group.add_argument("--setting", type=quantity("phase", minimum=None), action="append",
                        default=None,
                        help="probe phase setting (repeat to interleave settings cyclically)")
@@ -282,17 +269,10 @@ def handle_probes(args: argparse.Namespace) -> int:
 
     Write an invented raw QND probe record and its response table."""
     from cavchar.io.writers import write_probe_record, write_sampled_record
-    from cavchar.models.probes.response import FringeResponse, TableResponse
     from cavchar.simulate import probes_on_path, simulate_probe_record
 
     target, truth_path = _outputs(args, truth=args.truth)
-    if args.response_table:
-        response = TableResponse.from_file(args.response_table)
-    else:
-        response = FringeResponse(visibility=args.visibility,
-                                  phase_per_photon=args.phase_per_photon,
-                                  phase_offset=args.phase_offset, readout_error_0=args.error0,
-                                  readout_error_1=args.error1)
+    response = response_from_args(args)
     path = _path(args)
     times, segment = _times(args, path)
     options = dict(settings=args.setting, segment=segment, loss=args.loss, seed=args.seed,

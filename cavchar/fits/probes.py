@@ -230,15 +230,8 @@ def fit_probes(
         state (photon number) the segments start in.
     n_levels
         Fixed truncation (default: automatic, checked against the posterior).
-    command_line
-        The command as argv strings, stored in the provenance (the command-line
-        interface passes its own ``argv``); None, the default for Python callers,
-        records no command line.
-    sampler
-        ``"importance"`` (Pareto-smoothed importance sampling from a Laplace
-        proposal, falling back to the ensemble when its k-hat diagnostic says the
-        approximation is poor; :mod:`cavchar.inference.importance`) or ``"ensemble"``
-        (emcee throughout).
+    command_line, sampler
+        As for :func:`cavchar.fits.jumps.fit_jumps`.
 
     Returns
     -------

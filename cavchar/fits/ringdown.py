@@ -221,14 +221,8 @@ def fit_ringdown(
         Accept negative values of a linear power trace (background-subtracted data).
     compare
         For a single power trace, compare with two exponentials (BIC) and store it.
-    command_line
-        The command as argv strings, stored in the provenance (the command-line
-        interface passes its own ``argv``); None, the default for Python callers,
-        records no command line.
-    sampler
-        ``"importance"`` (Pareto-smoothed importance sampling from the Laplace
-        approximation, falling back to the ensemble sampler when its k-hat says the
-        approximation is poor; :mod:`cavchar.inference.importance`) or ``"ensemble"``.
+    command_line, sampler
+        As for :func:`cavchar.fits.jumps.fit_jumps`.
 
     Returns
     -------

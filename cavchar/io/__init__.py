@@ -8,41 +8,12 @@
 * :mod:`cavchar.io.atomic` — atomic output that never overwrites without ``force``.
 """
 
+from cavchar.io import readers as _readers
+from cavchar.io import writers as _writers
 from cavchar.io.atomic import check_can_write, write_bytes_atomic, write_text_atomic
-from cavchar.io.readers import (
-    ResponseTable,
-    read_jump_record,
-    read_probe_record,
-    read_response_table,
-    read_ringdown,
-    read_sampled_record,
-)
+from cavchar.io.readers import *  # noqa: F403 (the names of each module's __all__)
 from cavchar.io.tables import Table, read_table
-from cavchar.io.writers import (
-    write_jump_record,
-    write_probe_record,
-    write_record,
-    write_ringdown,
-    write_sampled_record,
-    write_table,
-)
+from cavchar.io.writers import *  # noqa: F403
 
-__all__ = [
-    "check_can_write",
-    "write_bytes_atomic",
-    "write_text_atomic",
-    "Table",
-    "read_table",
-    "write_table",
-    "read_jump_record",
-    "read_sampled_record",
-    "read_probe_record",
-    "read_ringdown",
-    "read_response_table",
-    "ResponseTable",
-    "write_jump_record",
-    "write_sampled_record",
-    "write_probe_record",
-    "write_ringdown",
-    "write_record",
-]
+__all__ = ["check_can_write", "write_bytes_atomic", "write_text_atomic", "Table", "read_table",
+           *_readers.__all__, *_writers.__all__]

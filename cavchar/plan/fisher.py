@@ -36,6 +36,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 from numpy.typing import ArrayLike
@@ -43,8 +44,8 @@ from scipy import special
 
 from cavchar.decay import (
     RINGDOWN_NUISANCES,
+    RingdownCurve,
     initial_distribution,
-    ringdown_mean,
     ringdown_signal,
 )
 from cavchar.dynamics import stationary_distribution, truncation_levels
@@ -430,16 +431,9 @@ def ringdown_information(
     lifetime: float,
     *,
     noise: float = 0.0,
-    amplitude: float = 1.0,
-    floor: float = 0.0,
-    t0: float = 0.0,
-    n_thermal: float = 0.0,
-    initial: float | ArrayLike = 1,
     shots: int = 1000,
-    detuning: float = 0.0,
-    phase: float = 0.0,
-    offset: complex = 0.0,
     fixed: tuple[str, ...] = (),
+    **assumed: Any,
 ) -> Information:
     """Information per ring-down trace for the lifetime (and n_th where it enters).
 
@@ -455,13 +449,17 @@ def ringdown_information(
     noise
         Noise standard deviation per point (value units; dB for db; per
         quadrature for iq and amplitude).  Not used for populations.
-    amplitude, floor, t0, n_thermal, initial, shots, detuning, phase, offset
-        Assumed values, as in :func:`cavchar.simulate.simulate_ringdown`
-        (``initial``: the prepared Fock number or distribution; its mean is the
-        initial mean photon number of mean_n).
+    shots
+        Shots per delay (populations).
     fixed
         Nuisance names (:data:`RINGDOWN_NUISANCES`) that the fit holds fixed;
         the others are profiled out.
+    **assumed
+        The assumed curve: ``amplitude``, ``floor``, ``t0``, ``n_thermal``,
+        ``initial``, ``detuning``, ``phase``, ``offset``, the fields (units and
+        defaults) of :class:`cavchar.decay.RingdownCurve`.  ``initial`` is the
+        prepared Fock number or distribution; its mean is the initial mean photon
+        number of mean_n.
 
     Returns
     -------
@@ -470,7 +468,8 @@ def ringdown_information(
     """
     signal = _signal(signal)
     times = np.asarray(times, dtype=float)
-    _check(lifetime, n_thermal, need_n=signal == "populations")
+    curve = RingdownCurve(lifetime, **assumed)
+    _check(lifetime, curve.n_thermal, need_n=signal == "populations")
     if times.ndim != 1 or times.size < 2:
         raise InputError("a ring-down needs at least two sample times")
     interest = _INTEREST[signal]
@@ -479,25 +478,19 @@ def ringdown_information(
         raise InputError(f"{signal} ring-downs have no nuisance {sorted(unknown)}",
                          hint=f"nuisances: {', '.join(RINGDOWN_NUISANCES[signal]) or 'none'}")
     if signal == "populations":
-        matrix = _population_information(times, lifetime, n_thermal, initial, shots, t0)
-        return Information(interest, np.array([lifetime, n_thermal]), matrix, "trace",
+        matrix = _population_information(times, lifetime, curve.n_thermal, curve.initial, shots,
+                                         curve.t0)
+        return Information(interest, np.array([lifetime, curve.n_thermal]), matrix, "trace",
                            np.zeros(2), extra={"method": "multinomial information",
                                                "shots": int(shots),
                                                "full_names": list(interest), "full_sd":
                                                np.sqrt(np.diag(np.linalg.inv(matrix))).tolist()})
     if not noise > 0:
         raise InputError("planning a ring-down needs the noise level (> 0) per point")
-    p0 = np.atleast_1d(np.asarray(initial, dtype=float))
-    initial_mean = float(p0[0]) if p0.size == 1 else float(np.dot(np.arange(p0.size), p0))
-    nuisance_values = {
-        "amplitude": amplitude, "floor": floor, "noise": noise, "initial_mean": initial_mean,
-        "amplitude_re": amplitude * math.cos(phase), "amplitude_im": amplitude * math.sin(phase),
-        "detuning": detuning, "offset_re": complex(offset).real,
-        "offset_im": complex(offset).imag}
-    names = interest + RINGDOWN_NUISANCES[signal]
-    theta = np.array([lifetime, n_thermal][:len(interest)]
-                     + [nuisance_values[n] for n in RINGDOWN_NUISANCES[signal]])
-    mean, jac = ringdown_mean(signal, times, theta, t0)
+    values = curve.parameters(signal, noise)
+    names = tuple(values)
+    theta = np.array(list(values.values()))
+    mean, jac = curve.mean(signal, times, noise)
     if signal == "amplitude":
         rice = rice_information(mean, noise)  # (m, 2, 2) in (nu, sigma)
         full_jac = np.zeros((times.size, 2, len(names)))

@@ -24,13 +24,16 @@ from __future__ import annotations
 
 import math
 import warnings
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
 
+from cavchar.decay import RingdownCurve
+from cavchar.dynamics import mean_jump_rate
 from cavchar.errors import CavcharWarning, InputError
 from cavchar.plan import fisher, study
 from cavchar.plan.fisher import Information
@@ -220,11 +223,17 @@ def _merge_study(table: pd.DataFrame, result: study.StudyResult, freq_hz: float 
     return table
 
 
-def _few_jumps(expected_jumps: float) -> None:
+def _expected_jumps(table: pd.DataFrame, lifetime: float, n_thermal: float,
+                    seconds: float) -> float:
+    """Jumps expected in ``seconds`` of record (:func:`cavchar.dynamics.mean_jump_rate`),
+    stored in ``table.attrs``; a warning when they are few."""
+    expected_jumps = float(mean_jump_rate(1.0 / lifetime, n_thermal)) * seconds
     if expected_jumps < 30:
         warnings.warn(f"the planned record holds only about {expected_jumps:.0f} jumps: the "
                       "Cramér–Rao forecast is optimistic for so few; see the simulation study",
                       CavcharWarning, stacklevel=3)
+    table.attrs["expected_jumps"] = expected_jumps
+    return expected_jumps
 
 
 def _records(check_records: int, cost_per_record: float) -> int:
@@ -233,13 +242,24 @@ def _records(check_records: int, cost_per_record: float) -> int:
     if affordable < 5:
         warnings.warn("the simulation study is skipped: the planned records are too long to "
                       "simulate and fit quickly (pass fewer targets or check by hand)",
-                      CavcharWarning, stacklevel=3)
+                      CavcharWarning, stacklevel=4)
         return 0
     if affordable < check_records:
         warnings.warn(f"the simulation study uses {affordable} records instead of "
                       f"{check_records} (long records); its Monte Carlo error is larger",
-                      CavcharWarning, stacklevel=3)
+                      CavcharWarning, stacklevel=4)
     return min(int(check_records), affordable)
+
+
+def _with_study(table: pd.DataFrame, check: bool, check_records: int, cost_per_record: float,
+                freq_hz: float | None, run: Callable[[int], study.StudyResult]) -> pd.DataFrame:
+    """``table`` with the simulate-and-fit study ``run(n_records)`` merged in, when
+    ``check`` asks for it and :func:`_records` finds it affordable."""
+    if check:
+        records = _records(check_records, cost_per_record)
+        if records:
+            table = _merge_study(table, run(records), freq_hz)
+    return table
 
 
 # --------------------------------------------------------------------------- public API
@@ -295,19 +315,15 @@ def plan_jumps(
                             False, freq_hz, 1.0)
     table = _table(forecast, targets, record_length)
     length = table.attrs["planned_amount"]
-    jumps = 2 * n_thermal * (1 + n_thermal) / lifetime * length
-    _few_jumps(jumps)
-    table.attrs["expected_jumps"] = jumps
-    if check:
-        records = _records(check_records, jumps + (length / sample_interval if sample_interval
-                                                   else 0.0))
-        if records:
-            sd = info.sd(length * forecast.units_per_amount)
-            result = study.study_jumps(lifetime, n_thermal, length, sd,
-                                       sample_interval=sample_interval, n_records=records,
-                                       seed=seed)
-            table = _merge_study(table, result, freq_hz)
-    return table
+    jumps = _expected_jumps(table, lifetime, n_thermal, length)
+
+    def run(records: int) -> study.StudyResult:
+        return study.study_jumps(lifetime, n_thermal, length,
+                                 info.sd(length * forecast.units_per_amount),
+                                 sample_interval=sample_interval, n_records=records, seed=seed)
+
+    cost = jumps + (length / sample_interval if sample_interval else 0.0)
+    return _with_study(table, check, check_records, cost, freq_hz, run)
 
 
 def plan_probes(
@@ -373,18 +389,15 @@ def plan_probes(
                         probe_interval)
     table = _table(forecast, targets, None if n_probes is None else float(n_probes))
     count = int(round(table.attrs["planned_amount"]))
-    jumps = 2 * n_thermal * (1 + n_thermal) / lifetime * count * probe_interval
-    _few_jumps(jumps)
-    table.attrs["expected_jumps"] = jumps
+    _expected_jumps(table, lifetime, n_thermal, count * probe_interval)
     table.attrs["probe_interval_s"] = probe_interval
-    if check:
-        records = _records(check_records, count)
-        if records:
-            result = study.study_probes(lifetime, n_thermal, probe_interval, response, count,
-                                        info.sd(count), settings=settings, loss=loss,
-                                        n_records=records, seed=rng)
-            table = _merge_study(table, result, freq_hz)
-    return table
+
+    def run(records: int) -> study.StudyResult:
+        return study.study_probes(lifetime, n_thermal, probe_interval, response, count,
+                                  info.sd(count), settings=settings, loss=loss,
+                                  n_records=records, seed=rng)
+
+    return _with_study(table, check, check_records, count, freq_hz, run)
 
 
 def plan_ringdown(
@@ -395,15 +408,7 @@ def plan_ringdown(
     times: ArrayLike | None = None,
     span: float | None = None,
     points: int = 1000,
-    amplitude: float = 1.0,
-    floor: float = 0.0,
-    t0: float = 0.0,
-    n_thermal: float = 0.0,
-    initial: float | ArrayLike = 1,
     shots: int = 1000,
-    detuning: float = 0.0,
-    phase: float = 0.0,
-    offset: complex = 0.0,
     fixed: Sequence[str] = (),
     target_lifetime: float | None = None,
     target_n_thermal: float | None = None,
@@ -413,6 +418,7 @@ def plan_ringdown(
     check: bool = True,
     check_records: int = 40,
     seed: int | None = 0,
+    **assumed: Any,
 ) -> pd.DataFrame:
     """Number of ring-down traces for target precisions, or the precision of N traces.
 
@@ -428,8 +434,11 @@ def plan_ringdown(
     times, span, points
         Sample times in s, or ``points`` equally spaced times over ``span`` s
         from ``t0`` (default span: 5 lifetimes).
-    amplitude, floor, t0, n_thermal, initial, shots, detuning, phase, offset, fixed
-        As :func:`cavchar.plan.fisher.ringdown_information`.
+    shots, fixed, **assumed
+        As :func:`cavchar.plan.fisher.ringdown_information`: shots per delay, the
+        nuisances held fixed, and the assumed curve (``amplitude``, ``floor``,
+        ``t0``, ``n_thermal``, ``initial``, ``detuning``, ``phase``, ``offset``: the
+        fields of :class:`cavchar.decay.RingdownCurve`).
     target_lifetime, target_n_thermal, target_temperature, n_traces, freq_hz
         As for :func:`plan_jumps`; ``n_traces`` is the amount to forecast
         (traces averaged or fitted together).
@@ -440,10 +449,8 @@ def plan_ringdown(
         span = 5.0 * lifetime if span is None else span
         if not (math.isfinite(span) and span > 0) or int(points) < 2:
             raise InputError("the ring-down needs a span > 0 and at least 2 points")
-        times = t0 + np.linspace(0.0, span, int(points))
-    kw = dict(noise=noise, amplitude=amplitude, floor=floor, t0=t0, n_thermal=n_thermal,
-              initial=initial, shots=shots, detuning=detuning, phase=phase, offset=offset,
-              fixed=tuple(fixed))
+        times = RingdownCurve(lifetime, **assumed).t0 + np.linspace(0.0, span, int(points))
+    kw = dict(noise=noise, shots=shots, fixed=tuple(fixed), **assumed)
     info = fisher.ringdown_information(signal, times, lifetime, **kw)
     kind = f"ringdown-{signal.lower().replace('-', '_')}"
     if "n_thermal" not in info.names and (target_n_thermal or target_temperature):
@@ -454,13 +461,13 @@ def plan_ringdown(
                        effective_temperature=target_temperature)
     table = _table(forecast, targets, None if n_traces is None else float(n_traces))
     count = int(round(table.attrs["planned_amount"]))
-    if check:
-        records = _records(check_records, count * np.size(times) / 100.0)
-        if records:
-            result = study.study_ringdown(signal, times, lifetime, count, None,
-                                          n_records=records, seed=seed, **kw)
-            table = _merge_study(table, result, freq_hz)
-    return table
+
+    def run(records: int) -> study.StudyResult:
+        return study.study_ringdown(signal, times, lifetime, count, None, n_records=records,
+                                    seed=seed, **kw)
+
+    return _with_study(table, check, check_records, count * np.size(times) / 100.0, freq_hz,
+                       run)
 
 
 def precision_curve(table: pd.DataFrame, amounts: ArrayLike | None = None,

@@ -35,12 +35,13 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
 
-from cavchar.decay import RINGDOWN_NUISANCES, rice_logpdf, ringdown_mean
+from cavchar.decay import RingdownCurve, rice_logpdf, ringdown_mean
 from cavchar.dynamics import truncation_levels
 from cavchar.errors import InputError
 from cavchar.inference.derivatives import numerical_hessian
@@ -216,43 +217,35 @@ def study_probes(lifetime: float, n_thermal: float, probe_interval: float, respo
 
 
 def study_ringdown(signal: str, times: ArrayLike, lifetime: float, n_traces: int,
-                   scale: ArrayLike | None = None, *, noise: float = 0.0, amplitude: float = 1.0,
-                   floor: float = 0.0, t0: float = 0.0, n_thermal: float = 0.0,
-                   initial: float | ArrayLike = 1, shots: int = 1000, detuning: float = 0.0,
-                   phase: float = 0.0, offset: complex = 0.0, fixed: tuple[str, ...] = (),
-                   n_records: int = 40, seed: int | np.random.Generator | None = 0,
-                   ) -> StudyResult:
+                   scale: ArrayLike | None = None, *, noise: float = 0.0, shots: int = 1000,
+                   fixed: tuple[str, ...] = (), n_records: int = 40,
+                   seed: int | np.random.Generator | None = 0, **assumed: Any) -> StudyResult:
     """Study of ``n_traces`` ring-down traces per record (arguments as
-    :func:`cavchar.plan.fisher.ringdown_information`); ``scale``: the forecast sds
-    of every fitted parameter (default: computed from the Fisher information)."""
+    :func:`cavchar.plan.fisher.ringdown_information`; ``assumed``: the fields of
+    :class:`cavchar.decay.RingdownCurve`); ``scale``: the forecast sds of every fitted
+    parameter (default: computed from the Fisher information)."""
     from cavchar.dynamics import transition_matrices_batch
     from cavchar.simulate import simulate_ringdown
 
     signal = signal.lower().replace("-", "_")
     times = np.asarray(times, dtype=float)
     m = times.size
-    kw = dict(amplitude=amplitude, floor=floor, t0=t0, noise=noise, detuning=detuning,
-              phase=phase, offset=offset, n_th=n_thermal, initial=initial, shots=shots,
-              traces=int(n_traces))
-    nuis = RINGDOWN_NUISANCES[signal]
-    interest = ("lifetime", "n_thermal") if signal in ("mean_n", "populations") else ("lifetime",)
-    p0 = np.atleast_1d(np.asarray(initial, dtype=float))
-    init_mean = float(p0[0]) if p0.size == 1 else float(np.dot(np.arange(p0.size), p0))
-    values = {"amplitude": amplitude, "floor": floor, "noise": noise, "initial_mean": init_mean,
-              "amplitude_re": amplitude * math.cos(phase),
-              "amplitude_im": amplitude * math.sin(phase), "detuning": detuning,
-              "offset_re": complex(offset).real, "offset_im": complex(offset).imag}
-    free = [n for n in nuis if n not in fixed]
-    names = interest + tuple(free)
-    truth = np.array([lifetime, n_thermal][:len(interest)] + [values[n] for n in free])
-    full_names = interest + nuis
-    full_truth = np.array([lifetime, n_thermal][:len(interest)] + [values[n] for n in nuis])
+    curve = RingdownCurve(lifetime, **assumed)
+    t0 = curve.t0
+    kw = dict(amplitude=curve.amplitude, floor=curve.floor, t0=t0, noise=noise,
+              detuning=curve.detuning, phase=curve.phase, offset=curve.offset,
+              n_th=curve.n_thermal, initial=curve.initial, shots=shots, traces=int(n_traces))
+    p0 = np.atleast_1d(np.asarray(curve.initial, dtype=float))
+    values = curve.parameters(signal, noise)
+    full_names = tuple(values)
+    interest = full_names[:2] if "n_thermal" in values else full_names[:1]  # never fixed
+    names = interest + tuple(n for n in full_names[len(interest):] if n not in fixed)
+    truth = np.array([values[n] for n in names])
+    full_truth = np.array(list(values.values()))
     free_idx = [full_names.index(n) for n in names]
     if scale is None or np.size(scale) != len(names):  # forecast sds of every fitted parameter
-        info = ringdown_information(signal, times, lifetime, noise=noise, amplitude=amplitude,
-                                    floor=floor, t0=t0, n_thermal=n_thermal, initial=initial,
-                                    shots=shots, detuning=detuning, phase=phase, offset=offset,
-                                    fixed=fixed)
+        info = ringdown_information(signal, times, lifetime, noise=noise, shots=shots,
+                                    fixed=fixed, **assumed)
         scale = np.asarray(info.extra["full_sd"]) / math.sqrt(int(n_traces))
 
     def full(theta):

@@ -8,6 +8,7 @@ otherwise.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from types import MappingProxyType
 
@@ -33,7 +34,24 @@ def readonly_array(array: np.ndarray, given: object = None) -> np.ndarray:
 
 @dataclass(frozen=True, eq=False, repr=False)
 class RecordBase:
-    """Shared metadata, source tracking and validation helpers."""
+    """Shared metadata, source tracking and validation helpers.
+
+    Fields common to every record: ``time`` (array (m,), s; the first positional
+    field, validated by each record) and the keyword-only
+
+    metadata : mapping, optional
+        Free ``key -> value`` strings (e.g. ``frequency: 6.8 GHz``).
+    source, lines, line_kind : optional
+        File, 1-based line (``line_kind="line"``, text files) or row
+        (``line_kind="row"``, binary files) of each record row in that file,
+        used in error messages.
+    """
+
+    time: np.ndarray
+    metadata: Mapping[str, str] = field(default_factory=dict, kw_only=True)
+    source: str | None = field(default=None, kw_only=True)
+    lines: np.ndarray | None = field(default=None, kw_only=True)
+    line_kind: str = field(default="line", kw_only=True)
 
     def _init_common(self) -> None:
         meta = MappingProxyType({str(k): str(v) for k, v in dict(self.metadata or {}).items()})
@@ -194,7 +212,14 @@ class RecordBase:
 class SegmentedRecord(RecordBase):
     """A record whose rows fall into segments: ``segment_ids`` (ids in file order) and
     ``bounds`` (row where each segment starts, then the row count), both set by the
-    record's validation."""
+    record's validation.
+
+    segment : array (m,), optional
+        Integer segment id of each row (default: one segment, id 0); the rows of a
+        segment stand together.
+    metadata, source, lines, line_kind : optional, keyword-only
+        As for every record (:class:`RecordBase`).
+    """
 
     segment_ids: np.ndarray = field(init=False)
     bounds: np.ndarray = field(init=False)

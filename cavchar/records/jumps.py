@@ -3,8 +3,7 @@ number observed at probe times (:class:`SampledRecord`).  Times in s."""
 
 from __future__ import annotations
 
-from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import NamedTuple
 
 import numpy as np
@@ -106,24 +105,13 @@ class JumpRecord(SegmentedRecord):
     end_time : float or array (k,)
         End of each segment in s (after its last row), in order of appearance;
         a scalar serves a single segment.
-    segment : array (m,), optional
-        Integer segment id of each row (default: one segment, id 0).
-    metadata : mapping, optional
-        Free ``key -> value`` strings (e.g. ``frequency: 6.8 GHz``).
-    source, lines, line_kind : optional
-        File, 1-based line (``line_kind="line"``, text files) or row
-        (``line_kind="row"``, binary files) of each record row in that file,
-        used in error messages.
+    segment, metadata, source, lines, line_kind : optional
+        As for every segmented record (:class:`~cavchar.records.base.SegmentedRecord`).
     """
 
-    time: np.ndarray
     photons: np.ndarray
     end_time: np.ndarray
     segment: np.ndarray | None = None
-    metadata: Mapping[str, str] = field(default_factory=dict)
-    source: str | None = None
-    lines: np.ndarray | None = None
-    line_kind: str = "line"
 
     def __post_init__(self) -> None:
         self._init_common()
@@ -215,19 +203,12 @@ class SampledRecord(SegmentedRecord):
         Probe times in s, strictly increasing within each segment.
     photons : array (m,)
         Photon number observed at each time (whole numbers >= 0).
-    segment : array (m,), optional
-        Integer segment id of each row (default one segment, id 0).
-    metadata, source, lines, line_kind : optional
-        As for :class:`JumpRecord`.
+    segment, metadata, source, lines, line_kind : optional
+        As for every segmented record (:class:`~cavchar.records.base.SegmentedRecord`).
     """
 
-    time: np.ndarray
     photons: np.ndarray
     segment: np.ndarray | None = None
-    metadata: Mapping[str, str] = field(default_factory=dict)
-    source: str | None = None
-    lines: np.ndarray | None = None
-    line_kind: str = "line"
 
     def __post_init__(self) -> None:
         self._init_common()

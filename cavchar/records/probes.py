@@ -3,8 +3,7 @@ probe settings (rad) and segments.  Times in s."""
 
 from __future__ import annotations
 
-from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import NamedTuple
 
 import numpy as np
@@ -35,20 +34,13 @@ class ProbeRecord(SegmentedRecord):
         0.0 or 1.0; NaN for a lost probe (its time still advances the record).
     setting : array (m,), optional
         Probe phase setting in rad of each probe (when settings are interleaved).
-    segment : array (m,), optional
-        Integer segment id of each row (default one segment, id 0).
-    metadata, source, lines, line_kind : optional
-        As for :class:`JumpRecord`.
+    segment, metadata, source, lines, line_kind : optional
+        As for every segmented record (:class:`~cavchar.records.base.SegmentedRecord`).
     """
 
-    time: np.ndarray
     outcome: np.ndarray
     setting: np.ndarray | None = None
     segment: np.ndarray | None = None
-    metadata: Mapping[str, str] = field(default_factory=dict)
-    source: str | None = None
-    lines: np.ndarray | None = None
-    line_kind: str = "line"
 
     def __post_init__(self) -> None:
         self._init_common()

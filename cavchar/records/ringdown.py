@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import NamedTuple
 
@@ -47,19 +46,14 @@ class RingdownTrace(RecordBase):
         ``iq``: of each quadrature).  Not used for ``populations``.
     trace : array (m,), optional
         Integer trace id of each row (default one trace, id 0).
-    metadata, source, lines, line_kind : optional
-        As for :class:`JumpRecord`.
+    metadata, source, lines, line_kind : optional, keyword-only
+        As for every record (:class:`~cavchar.records.base.RecordBase`).
     """
 
-    time: np.ndarray
     value: np.ndarray
     signal: str
     sigma: np.ndarray | None = None
     trace: np.ndarray | None = None
-    metadata: Mapping[str, str] = field(default_factory=dict)
-    source: str | None = None
-    lines: np.ndarray | None = None
-    line_kind: str = "line"
     trace_ids: np.ndarray = field(init=False)
     bounds: np.ndarray = field(init=False)
 

@@ -272,7 +272,40 @@ def render_report(
     figures: bool | Sequence[bool] = True,
     reread_inputs: bool = False,
 ) -> str:
-    """The report as one HTML string (see :func:`write_report` for the arguments)."""
+    """The report of fit results as one self-contained HTML string.
+
+    Parameters
+    ----------
+    results
+        FitResult objects and/or paths of result JSON files.
+    title
+        Page title (default: "Cavity fit report").
+    labels
+        One short name per result (default: kind and input file name).
+    truths
+        Per result, known true values in SI units by column name (simulated
+        data): shown in the summary table and the corner plot.
+    records
+        Per result, the fitted record, for data figures beyond what the result's
+        own excerpts allow (default: none; figures are drawn from the result).
+    extra_sections
+        Further sections: :class:`Section` objects, or the objects returned by
+        :func:`cavchar.tracking.cooldown_trend`, :func:`cavchar.tracking.qualify`
+        and :func:`cavchar.tracking.thermal_budget`.
+    intro
+        A paragraph of plain text under the title.
+    figures
+        Draw the figures of every result (True), of none, or per result.
+    reread_inputs
+        Read each result's input file again for its data figures (default: never).
+        Only a file whose SHA-256 matches the one recorded in the provenance is
+        read; a result without a recorded hash is not.
+
+    Returns
+    -------
+    str
+        The page (see :func:`write_report` to write it to a file).
+    """
     from cavchar import __version__
 
     loaded, sources = load_results(results)
@@ -325,14 +358,7 @@ def write_report(
     out_path: str | os.PathLike,
     *,
     force: bool = False,
-    title: str | None = None,
-    labels: Sequence[str] | None = None,
-    truths: Sequence[Mapping[str, float] | None] | None = None,
-    records: Sequence[Any] | None = None,
-    extra_sections: Sequence[Any] = (),
-    intro: str | None = None,
-    figures: bool | Sequence[bool] = True,
-    reread_inputs: bool = False,
+    **options: Any,
 ) -> Path:
     """Write one self-contained HTML report of fit results.
 
@@ -345,28 +371,9 @@ def write_report(
     force
         Replace an existing file; without it an existing file is an
         :class:`~cavchar.errors.InputError` raised before any work is done.
-    title
-        Page title (default: "Cavity fit report").
-    labels
-        One short name per result (default: kind and input file name).
-    truths
-        Per result, known true values in SI units by column name (simulated
-        data): shown in the summary table and the corner plot.
-    records
-        Per result, the fitted record, for data figures beyond what the result's
-        own excerpts allow (default: none; figures are drawn from the result).
-    extra_sections
-        Further sections: :class:`Section` objects, or the objects returned by
-        :func:`cavchar.tracking.cooldown_trend`, :func:`cavchar.tracking.qualify`
-        and :func:`cavchar.tracking.thermal_budget`.
-    intro
-        A paragraph of plain text under the title.
-    figures
-        Draw the figures of every result (True), of none, or per result.
-    reread_inputs
-        Read each result's input file again for its data figures (default: never).
-        Only a file whose SHA-256 matches the one recorded in the provenance is
-        read; a result without a recorded hash is not.
+    **options
+        ``title``, ``labels``, ``truths``, ``records``, ``extra_sections``,
+        ``intro``, ``figures``, ``reread_inputs``: as for :func:`render_report`.
 
     Returns
     -------
@@ -376,7 +383,5 @@ def write_report(
     from cavchar.io.atomic import check_can_write, write_text_atomic
 
     target = check_can_write(out_path, force)
-    text = render_report(results, title=title, labels=labels, truths=truths, records=records,
-                         extra_sections=extra_sections, intro=intro, figures=figures,
-                         reread_inputs=reread_inputs)
+    text = render_report(results, **options)
     return write_text_atomic(target, text, force=force)

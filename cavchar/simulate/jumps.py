@@ -20,6 +20,7 @@ from collections.abc import Mapping
 import numpy as np
 from numpy.typing import ArrayLike
 
+from cavchar.dynamics import mean_jump_rate
 from cavchar.errors import InputError
 from cavchar.records import JumpRecord, SampledRecord
 from cavchar.simulate._common import (
@@ -190,7 +191,7 @@ def simulate_jump_record(
     kappa = check_physics(lifetime, n_th)
     if not (math.isfinite(duration) and duration > 0) or segments < 1 or gap < 0:
         raise InputError("duration must be > 0, segments >= 1 and gap >= 0")
-    check_size(segments * duration * 2.0 * kappa * n_th * (1.0 + n_th), "photon-number jumps",
+    check_size(segments * duration * float(mean_jump_rate(kappa, n_th)), "photon-number jumps",
                MAX_JUMPS, _JUMPS_HINT)
     rng = rng_from(seed)
     times, photons, ids, ends = [], [], [], []

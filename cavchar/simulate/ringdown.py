@@ -8,11 +8,12 @@ Power, dB, amplitude (Rice), IQ, mean photon number and Fock-population counts
 from __future__ import annotations
 
 from collections.abc import Mapping
+from dataclasses import replace
 
 import numpy as np
 from numpy.typing import ArrayLike
 
-from cavchar.decay import initial_distribution, ringdown_mean
+from cavchar.decay import RingdownCurve, initial_distribution
 from cavchar.errors import InputError
 from cavchar.records import RingdownTrace
 from cavchar.simulate._common import (
@@ -108,16 +109,16 @@ def simulate_ringdown(
     m = times.size
     shape = (int(traces), m)
     extra: dict[str, object] = {"signal": signal, "true_t0": f"{t0!r} s"}
+    curve = RingdownCurve(lifetime, amplitude=amplitude, floor=floor, t0=t0, n_thermal=n_th,
+                          initial=initial, detuning=detuning, phase=phase, offset=offset)
     if signal in ("power", "db"):
-        clean, _ = ringdown_mean(signal, times, [lifetime, amplitude, floor], t0)
+        clean, _ = curve.mean(signal, times)
         extra.update(true_amplitude=repr(amplitude), true_floor=repr(floor))
         value = clean + noise * rng.standard_normal(shape)
     elif signal in ("amplitude", "iq"):
-        c = amplitude * np.exp(1j * phase)
-        drift = detuning if signal == "iq" else 0.0
-        off = complex(offset) if signal == "iq" else 0j
-        field, _ = ringdown_mean("iq", times, [lifetime, c.real, c.imag, drift, off.real,
-                                               off.imag], t0)
+        # a magnitude trace has no detuning or offset: the field is A e^{i phase} u^(1/2)
+        field, _ = (curve if signal == "iq" else replace(curve, detuning=0.0, offset=0.0)
+                    ).mean("iq", times)
         extra.update(true_amplitude=repr(amplitude), true_phase=f"{phase!r} rad")
         if signal == "iq":
             extra.update(true_detuning=f"{detuning!r} Hz", true_offset=repr(complex(offset)))
@@ -127,8 +128,7 @@ def simulate_ringdown(
     elif signal in ("mean_n", "populations"):
         p0 = initial_distribution(initial)
         if signal == "mean_n":
-            n0 = float(np.dot(np.arange(p0.size), p0))
-            clean, _ = ringdown_mean("mean_n", times, [lifetime, n_th, n0], t0)
+            clean, _ = curve.mean("mean_n", times)
             value = clean + noise * rng.standard_normal(shape)
             known_sigma = True if known_sigma is None else known_sigma
         else:

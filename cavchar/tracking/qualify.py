@@ -34,13 +34,13 @@ from __future__ import annotations
 import math
 import os
 import re
-import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
 from cavchar.errors import InputError
+from cavchar.io.toml import loads_toml
 from cavchar.quantities import COLUMN_INFO, DESCRIPTIONS
 
 __all__ = ["QUANTITIES", "Requirement", "Spec", "Evidence", "Verdict", "Qualification",
@@ -121,15 +121,8 @@ def parse_spec(text: str, path: str | os.PathLike | None = None) -> Spec:
     from cavchar.units import parse_quantity
 
     where = None if path is None else str(path)
-    try:
-        data = tomllib.loads(text)
-    except RecursionError:
-        raise InputError("the spec file is nested too deeply to read", path=where,
-                         hint="a spec holds one table per quantity with plain values") from None
-    except tomllib.TOMLDecodeError as exc:
-        match = re.search(r"line (\d+)", str(exc))
-        raise InputError(f"not valid TOML ({exc})", path=where,
-                         line=int(match.group(1)) if match else None) from None
+    data = loads_toml(text, path=path, what="the spec file",
+                      hint="a spec holds one table per quantity with plain values")
     requirements = []
     for key, value in data.items():
         if key in _TOP_KEYS:

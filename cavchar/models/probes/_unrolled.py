@@ -95,6 +95,24 @@ def _seg_end(n: int, ind: str) -> list[str]:
             f"{ind}else:", f"{ind}    total += ll + np.log({s})"]
 
 
+def _vec_mat(n: int, vec: str, entry: str) -> str:
+    """Source of one element of a row vector times a matrix, unrolled:
+    ``vec0 * M0 + vec1 * M1 + ...``, ``entry`` the text of ``M_i`` with ``{i}`` for the row."""
+    return " + ".join(f"{vec}{i} * {entry.format(i=i)}" for i in range(n))
+
+
+def _eigen_fallback(n: int, ind: str, rate: str) -> list[str]:
+    """The ``else`` branch of the table routes: an interval beyond the table
+    (``sidx < 0``) takes the eigen route with its whole length ``d``:
+    ``h_m = (a R)_m e^{lambda_m d}``, ``rate`` the text of ``lambda_m`` with ``{m}``."""
+    i2 = ind + "    "
+    lines = [f"{ind}else:", f"{i2}d = dts[t]"]
+    for m in range(n):
+        product = _vec_mat(n, "a", f"right[c, {{i}}, {m}]")
+        lines.append(f"{i2}h{m} = ({product}) * np.exp({rate.format(m=m)} * d)")
+    return lines
+
+
 def _grid_step(n: int, ind: str) -> list[str]:
     """One probe of the grid route: ``b = ((a P(j h)) S_K(r)) * e`` (see hmm_kernels).
 
@@ -106,8 +124,7 @@ def _grid_step(n: int, ind: str) -> list[str]:
     L = [f"{ind}m = sidx[t]", f"{ind}if m >= 0:"]
     i2 = ind + "    "
     for j in range(n):
-        terms = " + ".join(f"a{i} * trans[c, m, {i}, {j}]" for i in range(n))
-        L.append(f"{i2}y{j} = {terms}")
+        L.append(f"{i2}y{j} = {_vec_mat(n, 'a', f'trans[c, m, {{i}}, {j}]')}")
     L += [f"{i2}x{j} = y{j}" for j in range(n)]
     L += [f"{i2}z = qc * rem[t]", f"{i2}ll -= z", f"{i2}w = 1.0"]
 
@@ -132,13 +149,8 @@ def _grid_step(n: int, ind: str) -> list[str]:
         L += term(i3, f"z * {1.0 / kk!r}")
     L.append(f"{i3}for kk in range({UNROLLED_TERMS + 1}, kc + 1):")
     L += term(i3 + "    ", "z / kk")
-    L += [f"{ind}else:", f"{i2}d = dts[t]"]
-    for m in range(n):
-        terms = " + ".join(f"a{i} * right[c, {i}, {m}]" for i in range(n))
-        L.append(f"{i2}h{m} = ({terms}) * np.exp(lam[c, {m}] * d)")
-    for j in range(n):
-        terms = " + ".join(f"h{m} * left[c, {m}, {j}]" for m in range(n))
-        L.append(f"{i2}x{j} = max({terms}, 0.0)")
+    L += _eigen_fallback(n, ind, "lam[c, {m}]")
+    L += [f"{i2}x{j} = max({_vec_mat(n, 'h', f'left[c, {{i}}, {j}]')}, 0.0)" for j in range(n)]
     L += [f"{ind}b{j} = x{j} * E[code, {j}]" for j in range(n)]
     return L
 
@@ -154,15 +166,11 @@ def _eigen_grid_step(n: int, ind: str) -> list[str]:
         poly = "1.0"
         for d in range(EXP_DEGREE, 0, -1):
             poly = f"(1.0 + e{mm} * {poly})" if d == 1 else f"(1.0 + e{mm} * {1.0 / d!r} * {poly})"
-        terms = " + ".join(f"a{i} * prt[c, m, {i}, {mm}]" for i in range(n))
+        terms = _vec_mat(n, "a", f"prt[c, m, {{i}}, {mm}]")
         L += [f"{i2}e{mm} = w{mm} * r", f"{i2}h{mm} = ({terms}) * {poly}"]
-    L += [f"{ind}else:", f"{i2}d = dts[t]"]
-    for mm in range(n):
-        terms = " + ".join(f"a{i} * right[c, {i}, {mm}]" for i in range(n))
-        L.append(f"{i2}h{mm} = ({terms}) * np.exp(w{mm} * d)")
-    for j in range(n):
-        terms = " + ".join(f"h{mm} * l{mm}_{j}" for mm in range(n))
-        L.append(f"{ind}b{j} = max({terms}, 0.0) * E[code, {j}]")
+    L += _eigen_fallback(n, ind, "w{m}")
+    L += [f"{ind}b{j} = max({_vec_mat(n, 'h', f'l{{i}}_{j}')}, 0.0) * E[code, {j}]"
+          for j in range(n)]
     return L
 
 
@@ -205,26 +213,22 @@ def _kernel(n: int, kind: str, parallel: bool = True) -> str:
     ind3 = ind2 + "        "
     L += [f"{ind3}code = codes[t]"]
     if kind == "regular":
-        for j in range(n):
-            terms = " + ".join(f"a{i} * p{i}_{j}" for i in range(n))
-            L.append(f"{ind3}b{j} = ({terms}) * E[code, {j}]")
+        L += [f"{ind3}b{j} = ({_vec_mat(n, 'a', f'p{{i}}_{j}')}) * E[code, {j}]"
+              for j in range(n)]
     elif kind == "indexed":
         L.append(f"{ind3}m = sidx[t]")
-        for j in range(n):
-            terms = " + ".join(f"a{i} * trans[c, m, {i}, {j}]" for i in range(n))
-            L.append(f"{ind3}b{j} = ({terms}) * E[code, {j}]")
+        L += [f"{ind3}b{j} = ({_vec_mat(n, 'a', f'trans[c, m, {{i}}, {j}]')}) * E[code, {j}]"
+              for j in range(n)]
     elif kind == "grid":
         L += _grid_step(n, ind3)
     elif kind == "eigengrid":
         L += _eigen_grid_step(n, ind3)
     else:
         L.append(f"{ind3}d = dts[t]")
-        for m in range(n):
-            terms = " + ".join(f"a{i} * r{i}_{m}" for i in range(n))
-            L.append(f"{ind3}x{m} = ({terms}) * np.exp(w{m} * d)")
-        for j in range(n):
-            terms = " + ".join(f"x{m} * l{m}_{j}" for m in range(n))
-            L.append(f"{ind3}b{j} = max({terms}, 0.0) * E[code, {j}]")
+        L += [f"{ind3}x{m} = ({_vec_mat(n, 'a', f'r{{i}}_{m}')}) * np.exp(w{m} * d)"
+              for m in range(n)]
+        L += [f"{ind3}b{j} = max({_vec_mat(n, 'x', f'l{{i}}_{j}')}, 0.0) * E[code, {j}]"
+              for j in range(n)]
     L += [f"{ind3}ll += O[code]"]
     L += _rescale(n, ind3, in_loop=True, both=kind == "grid")
     L += _seg_end(n, ind2)

@@ -107,10 +107,12 @@ class BlockedProbeLikelihood:
 
     @property
     def n_blocks(self) -> int:
+        """Number of blocks of ``block_probes`` probes (a segment's last may be shorter)."""
         return self.sequence.n_probes
 
     @property
     def ndim(self) -> int:
+        """Number of parameters: those of the exact model (lifetime, n_thermal, free response)."""
         return self.exact.ndim
 
     def _pattern_emission(self, p1: np.ndarray):

@@ -163,6 +163,7 @@ class ProbeSequence:
 
     @property
     def n_probes(self) -> int:
+        """Number T of entries of ``codes`` (probes, or blocks in the coarse mode), all segments."""
         return int(self.codes.size)
 
 
@@ -265,10 +266,12 @@ class Transitions:
 
     @property
     def n_sets(self) -> int:
+        """Number k of parameter sets the transitions are built for."""
         return int(self.matrices.shape[0] if self.kind != "eigen" else self.right.shape[0])
 
     @property
     def n_levels(self) -> int:
+        """Number N of photon-number levels (size of each N x N transition matrix)."""
         return int(self.matrices.shape[-1])
 
     def select(self, i: int) -> Transitions:

@@ -288,6 +288,7 @@ class ProbeLikelihood:
 
     @property
     def ndim(self) -> int:
+        """Number of parameters: lifetime (s), n_thermal, then the free response parameters."""
         return len(self.names)
 
     @property
