@@ -8,7 +8,8 @@ warm-up run first):
 * ``cavchar --help`` [< 0.5 s] and a fit of a missing file [< 0.5 s];
 * ``cavchar fit jumps`` on an exact record of about 10^3 change points, and
   ``cavchar fit ringdown`` on a power trace of 10^3 samples: without output
-  files, with ``-o DIR --no-figures`` [< 1.5 s] and with the figures [< 4 s].
+  files, with ``-o DIR --no-figures`` [< 1.5 s] and with the figures [< 4 s];
+* ``cavchar demo --quick`` [< 30 s on a quiet machine].
 
 The 1-minute load average is printed beside each median: on a shared machine a
 load above the number of cores makes every wall time longer, so the CPU time of
@@ -97,6 +98,9 @@ def main() -> None:
                 cases[f"fit {kind}, -o DIR --no-figures"] = [*words, "-o", "out", "--force",
                                                               *no_figures]
             cases[f"fit {kind}, -o DIR with figures"] = [*words, "-o", "out", "--force"]
+        # the quick demo [< 30 s]: simulations, every fit kind through the batch path,
+        # log, report and figures; fewer repeats are enough for a half-minute command
+        cases["cavchar demo --quick"] = ["demo", "--quick", "-o", "demo", "--force"]
         for words in fits.values():  # warm-up: compiled-kernel cache, file cache
             _cavchar(words, folder)
         print(f"{'command':<40}{'wall median [s]':>16}{'min [s]':>9}{'CPU median [s]':>16}"
