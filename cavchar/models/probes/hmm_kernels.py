@@ -145,7 +145,8 @@ class ProbeSequence:
         cls, codes: ArrayLike, n_codes: int, segment_starts: ArrayLike | None = None
     ) -> ProbeSequence:
         """Wrap ready-made codes in ``0..n_codes-1`` (e.g. block patterns of the coarse mode)."""
-        codes = np.ascontiguousarray(codes, dtype=np.int32)
+        # writeable arrays: numba compiles (and caches) a separate kernel for read-only ones
+        codes = np.require(codes, np.int32, ["C", "W"])
         if codes.ndim != 1 or codes.size == 0:
             raise ValueError("codes must be a non-empty 1-d array")
         if codes.min() < 0 or codes.max() >= n_codes:
@@ -159,7 +160,7 @@ class ProbeSequence:
             starts = np.append(starts, codes.size) if starts[-1] != codes.size else starts
             if np.any(np.diff(starts) <= 0):
                 raise ValueError("segment starts must increase and lie inside the record")
-        return cls(codes, int(n_codes), np.ascontiguousarray(starts))
+        return cls(codes, int(n_codes), np.require(starts, np.int64, ["C", "W"]))
 
     @property
     def n_probes(self) -> int:
@@ -191,7 +192,7 @@ class Transitions:
     @classmethod
     def regular(cls, matrices: ArrayLike) -> Transitions:
         """One matrix per set, ``matrices`` of shape (k, N, N)."""
-        m = np.ascontiguousarray(matrices, dtype=float)
+        m = np.require(matrices, float, ["C", "W"])
         if m.ndim != 3 or m.shape[1] != m.shape[2]:
             raise ValueError("regular transitions need shape (k, N, N)")
         return cls("regular", m[:, None], *_dummies(m.shape[2]))
@@ -199,8 +200,8 @@ class Transitions:
     @classmethod
     def indexed(cls, matrices: ArrayLike, step_index: ArrayLike, check: bool = True) -> Transitions:
         """Matrices (k, M, N, N) and, per probe, the index (0..M-1) of its interval."""
-        m = np.ascontiguousarray(matrices, dtype=float)
-        idx = np.ascontiguousarray(step_index, dtype=np.int32)
+        m = np.require(matrices, float, ["C", "W"])
+        idx = np.require(step_index, np.int32, ["C", "W"])
         if m.ndim != 4 or m.shape[2] != m.shape[3]:
             raise ValueError("indexed transitions need matrices of shape (k, M, N, N)")
         if check and (idx.ndim != 1 or idx.min() < 0 or idx.max() >= m.shape[1]):
@@ -214,10 +215,10 @@ class Transitions:
         check: bool = True,
     ) -> Transitions:
         """``P(dt) = right diag(exp(eigenvalues dt)) left`` per set; ``dts`` (T,) in seconds."""
-        r = np.ascontiguousarray(right, dtype=float)
-        lam = np.ascontiguousarray(eigenvalues, dtype=float)
-        lt = np.ascontiguousarray(left, dtype=float)
-        dts = np.ascontiguousarray(dts, dtype=float)
+        r = np.require(right, float, ["C", "W"])
+        lam = np.require(eigenvalues, float, ["C", "W"])
+        lt = np.require(left, float, ["C", "W"])
+        dts = np.require(dts, float, ["C", "W"])
         if r.ndim != 3 or lt.shape != r.shape or lam.shape != r.shape[:2]:
             raise ValueError("eigen transitions need right, left (k, N, N), eigenvalues (k, N)")
         if check and (dts.ndim != 1 or not np.all(dts >= 0)):
@@ -242,18 +243,18 @@ class Transitions:
         optional: ``P(j h) R`` for the eigen-basis form of the remainder (module
         docstring), used by the unrolled kernels; the caller guarantees
         ``max |lambda| h <= EIGEN_GRID_LIMIT`` and a well-conditioned eigen basis."""
-        m = np.ascontiguousarray(matrices, dtype=float)
-        idx = np.ascontiguousarray(step_index, dtype=np.int32)
-        rem = np.ascontiguousarray(remainder, dtype=float)
-        uni = np.ascontiguousarray(uniform, dtype=float)
-        q = np.ascontiguousarray(rates, dtype=float)
-        kk = np.ascontiguousarray(terms, dtype=np.int64)
+        m = np.require(matrices, float, ["C", "W"])
+        idx = np.require(step_index, np.int32, ["C", "W"])
+        rem = np.require(remainder, float, ["C", "W"])
+        uni = np.require(uniform, float, ["C", "W"])
+        q = np.require(rates, float, ["C", "W"])
+        kk = np.require(terms, np.int64, ["C", "W"])
         k, n = m.shape[0], m.shape[-1]
         if m.ndim != 4 or m.shape[2] != n or uni.shape != (k, 3, n) or q.shape != (k,) \
                 or kk.shape != (k,) or idx.shape != rem.shape or idx.max() >= m.shape[1]:
             raise ValueError("grid transitions: inconsistent shapes")
         e = cls.eigen(right, eigenvalues, left, dts, check=False)
-        et = None if eigen_table is None else np.ascontiguousarray(eigen_table, dtype=float)
+        et = None if eigen_table is None else np.require(eigen_table, float, ["C", "W"])
         if et is not None and et.shape != m.shape:
             raise ValueError("grid transitions: the eigen table must have the table's shape")
         return cls("grid", m, idx, e.right, e.eigenvalues, e.left, e.dts, rem, uni, q, kk, et)
@@ -671,7 +672,8 @@ def _batch(arr: ArrayLike, k: int, ndim: int, what: str) -> np.ndarray:
         a = a[None]
     if a.ndim != ndim or a.shape[0] not in (1, k):
         raise ValueError(f"{what} has shape {a.shape}; expected {ndim} dims with k = {k} or 1")
-    return np.ascontiguousarray(np.broadcast_to(a, (k,) + a.shape[1:]))
+    # a writeable copy of a broadcast (read-only) view: one compiled signature per kernel
+    return np.require(np.broadcast_to(a, (k,) + a.shape[1:]), requirements=["C", "W"])
 
 
 def forward_loglik(
@@ -746,8 +748,8 @@ def _single(transitions: Transitions, initial, emission, sequence):
         raise ValueError("pass the transitions of one parameter set (Transitions.select(i))")
     transitions = transitions.as_eigen()  # forward-backward and Viterbi: interval by interval
     n = transitions.n_levels
-    p0 = np.ascontiguousarray(initial, dtype=float)
-    emis = np.ascontiguousarray(emission, dtype=float)
+    p0 = np.require(initial, float, ["C", "W"])
+    emis = np.require(emission, float, ["C", "W"])
     if emis.ndim == 3:
         emis = emis[0]
     if p0.shape != (n,) or emis.ndim != 2 or emis.shape[1] != n:
