@@ -133,3 +133,28 @@ def test_fit_of_poisson_timed_probes_takes_the_quantized_route():
     summary = result.summary()
     for name, truth in (("lifetime", lifetime), ("n_thermal", n_th)):
         assert summary.loc[name, "lo95"] <= truth <= summary.loc[name, "hi95"], name
+
+
+def test_fit_refines_then_falls_back_to_the_exact_route(monkeypatch):
+    """Starting from 2 bins (negative control above) with one doubling allowed: the bias
+    check fails twice (2 and 4 bins, probes at a quarter of the lifetime), so the fit
+    samples the exact likelihood and says so."""
+    import cavchar.fits.probes as fp
+
+    monkeypatch.setattr(fp, "QUANTIZE_BINS", 2)
+    monkeypatch.setattr(fp, "QUANTIZE_REFINES", 1)
+    resp = FringeResponse(**PARITY)
+    rng = np.random.default_rng(21)
+    rec, _ = simulate_probe_record(0.02, 0.3, np.cumsum(rng.exponential(5e-3, 4000)), resp,
+                                   seed=22)
+    result = fit_probes(rec, response=resp, seed=4,
+                        settings=SamplerSettings(n_walkers=12, quiet=True))
+    refits = result.checks["quantize_refits"]
+    assert [r["bins"] for r in refits] == [2, 4]
+    assert all(r["bias_bound_sd"] >= QUANTIZE_BIAS_LIMIT_SD for r in refits)
+    assert str(result.kind) == "probes-exact"
+    route = result.settings["fit"]["intervals"]
+    assert route["route"] == "exact grid" and "exact likelihood" in route["quantized_fallback"]
+    summary = result.summary()
+    for name, truth in (("lifetime", 0.02), ("n_thermal", 0.3)):
+        assert summary.loc[name, "lo95"] <= truth <= summary.loc[name, "hi95"], name

@@ -506,7 +506,7 @@ def route_text(route: dict) -> str:
                if route["quantization_exact"] else
                f"{route['bins_used']} representative intervals (bin means, edge ratio "
                f"{route['largest_bin_ratio']:.3f})")
-        return (f"probe intervals: irregular, quantized route ({how}); bias bound "
+        return (f"probe intervals: irregular, quantized route, {how}; bias bound "
                 f"{route['bias_bound_sd']:.3f} posterior sd (checked against the exact "
                 f"likelihood on {route['draws_checked']} draws, accepted below "
                 f"{route['bias_limit_sd']:g})")
