@@ -158,3 +158,29 @@ def test_fit_refines_then_falls_back_to_the_exact_route(monkeypatch):
     summary = result.summary()
     for name, truth in (("lifetime", 0.02), ("n_thermal", 0.3)):
         assert summary.loc[name, "lo95"] <= truth <= summary.loc[name, "hi95"], name
+
+
+def test_cli_says_which_route_and_the_bound(tmp_path, run_cli):
+    """The command prints the route and the bound and stores them; --exact keeps the
+    exact grid route (the bound is read back from result.json, written by the json module)."""
+    import json
+
+    from cavchar.io.writers import write_probe_record
+
+    rng = np.random.default_rng(31)
+    rec, _ = simulate_probe_record(0.05, 0.2, np.cumsum(rng.exponential(1e-3, 5000)),
+                                   FringeResponse(**PARITY), seed=32)
+    src = write_probe_record(rec, tmp_path / "probes.csv")
+    options = ("--visibility", "0.9", "--readout-error-0", "0.02", "--readout-error-1", "0.03",
+               "--walkers", "16", "--quiet")
+    code, stdout, stderr = run_cli("fit", "probes", src, *options, "-o", tmp_path / "q")
+    assert code == 0, stderr
+    stored = json.loads((tmp_path / "q" / "result.json").read_text())
+    route = stored["settings"]["fit"]["intervals"]
+    assert stored["settings"]["fit"]["mode"] == "quantized"
+    assert route["route"] == "quantized intervals"
+    assert f"bias bound {route['bias_bound_sd']:.3f} posterior sd" in stdout
+    assert "probe intervals: irregular, quantized route" in stdout
+    code, stdout, stderr = run_cli("fit", "probes", src, *options, "--exact")
+    assert code == 0, stderr
+    assert "exact grid route" in stdout and "quantized" not in stdout
