@@ -17,6 +17,7 @@ import pytest
 
 from cavchar.fits.probes import QUANTIZE_BIAS_LIMIT_SD, fit_probes
 from cavchar.inference import SamplerSettings
+from cavchar.models.probes import quantized as quantized_module
 from cavchar.models.probes.blocks import bias_check
 from cavchar.models.probes.likelihood import ProbeLikelihood, route_text
 from cavchar.models.probes.quantized import QuantizedProbeLikelihood, quantize_intervals
@@ -43,7 +44,7 @@ def few_valued_record(n_probes: int, n_values: int, seed: int) -> ProbeRecord:
     return ProbeRecord(time, outcome, setting, segment)
 
 
-def test_quantization_is_exact_when_the_intervals_take_at_most_k_values():
+def test_quantization_is_exact_when_the_intervals_take_at_most_k_values(monkeypatch):
     rec = few_valued_record(300, 40, seed=1)
     resp = FringeResponse(**PARITY)
     exact = ProbeLikelihood(rec, resp, n_levels=8)
@@ -57,6 +58,9 @@ def test_quantization_is_exact_when_the_intervals_take_at_most_k_values():
                                       row[0], row[1], 8, PARITY)
         assert value == pytest.approx(expected, rel=1e-10, abs=1e-9)
     np.testing.assert_allclose(got, exact(THETA), rtol=1e-11)
+    # parameter sets evaluated one at a time (memory cap on the tables): the same values
+    monkeypatch.setattr(quantized_module, "TABLE_BYTES", 1)
+    np.testing.assert_allclose(quant(THETA), got, rtol=1e-13)
 
 
 def test_quantized_likelihood_is_the_expm_product_over_bin_means():

@@ -39,6 +39,9 @@ __all__ = ["QuantizedProbeLikelihood", "quantize_intervals", "QUANTIZE_BINS"]
 
 #: representative intervals of the quantized route (doubled when the bias check fails)
 QUANTIZE_BINS = 128
+#: largest memory (bytes) of the matrix tables of one call: parameter sets beyond it are
+#: evaluated in chunks (the table and its temporaries take about 3 K N^2 doubles per set)
+TABLE_BYTES = 256 * 2**20
 
 
 def quantize_intervals(time: ArrayLike, starts: ArrayLike, bins: int,
@@ -147,9 +150,18 @@ class QuantizedProbeLikelihood:
         from cavchar.models.probes import hmm_kernels as hk
 
         ex = self.exact
-        tr = ex._transitions(kappa, n_th, levels, self.steps)
-        emis = hk.emission_table(ex.prob_one(free, int(levels.max()), kappa.size))
-        return hk.forward_loglik(tr, ex.initial_law(n_th, levels), emis, ex.sequence)
+        n = int(levels.max())
+        per_set = 3 * 8 * self.steps.steps.size * n * n
+        chunk = max(1, TABLE_BYTES // per_set)
+        out = np.empty(kappa.size)
+        for i in range(0, kappa.size, chunk):
+            sl = slice(i, i + chunk)
+            tr = ex._transitions(kappa[sl], n_th[sl], levels[sl], self.steps)
+            f = None if free is None else free[sl]
+            emis = hk.emission_table(ex.prob_one(f, n, tr.n_sets))
+            out[sl] = hk.forward_loglik(tr, ex.initial_law(n_th[sl], levels[sl]), emis,
+                                        ex.sequence)
+        return out
 
 
 def bins_text(info: dict) -> str:
