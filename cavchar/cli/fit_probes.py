@@ -84,8 +84,13 @@ def register_fit(kinds: argparse._SubParsersAction) -> None:
     mode.add_argument("--exact", action="store_const", dest="mode", const="exact",
                       help="forward algorithm over every probe")
     mode.add_argument("--coarse", action="store_const", dest="mode", const="coarse",
-                      help="blocks of probes (bias measured and reported); neither flag: "
-                      "coarse only for records of more than 300,000 probes")
+                      help="blocks of probes (bias measured and reported); no mode flag: "
+                      "coarse only for records of more than 300,000 probes that the exact "
+                      "route cannot fit in time")
+    mode.add_argument("--quantized", action="store_const", dest="mode", const="quantized",
+                      help="irregular probe times: intervals mapped to 128 representatives "
+                      "(bias measured and reported, refined or exact when not below 0.1 "
+                      "posterior sd); no mode flag: used for irregular probe times")
     parser.set_defaults(mode="auto")
     parser.add_argument("--block-probes", type=whole(1), default=None, metavar="B",
                         help="probes per block in the coarse mode; unset: 1%% of the "
@@ -223,6 +228,8 @@ def handle(args: argparse.Namespace) -> int:
     route = result.settings["fit"].get("intervals")
     if route:
         print(route_text(route))
+    if result.checks.get("quantize_fallback"):
+        print(f"quantized route not used: {result.checks['quantize_fallback']}")
     bias = result.checks.get("coarse_bias")
     if bias:
         print(f"coarse mode: blocks of {bias['block_probes']} probes; bias bound "

@@ -17,9 +17,16 @@ probe is never assumed unless stated.
 Modes: ``"exact"`` (forward algorithm over every probe), ``"coarse"`` (blocks
 of probes, :mod:`cavchar.models.probes.blocks`, with its bias measured against
 the exact likelihood on posterior draws and reported under
-``checks["coarse_bias"]``) and ``"auto"`` (coarse for records of more than
+``checks["coarse_bias"]``), ``"quantized"`` (irregular probe times only: each
+interval mapped to one of ``QUANTIZE_BINS`` representatives,
+:mod:`cavchar.models.probes.quantized`, with the same bias check reported under
+``checks["quantize_bias"]``; while the bound is not below
+``QUANTIZE_BIAS_LIMIT_SD`` posterior sd the representatives are doubled and the
+posterior sampled again, at most ``QUANTIZE_REFINES`` times, then the exact
+likelihood is sampled instead) and ``"auto"`` (coarse for records of more than
 300,000 probes when blocks of at least 4 probes fit in 1% of the typical
-dwell time, else exact).
+dwell time and the exact likelihood would exceed its time budget; otherwise
+quantized for irregular probe times and exact for the rest).
 """
 
 from __future__ import annotations
@@ -50,15 +57,17 @@ from cavchar.models.probes.likelihood import (
     ProbeLikelihood,
     choose_levels,
     group_settings,
+    probe_steps,
     typical_dwell,
 )
+from cavchar.models.probes.quantized import QUANTIZE_BINS, QuantizedProbeLikelihood
 from cavchar.models.probes.response import FringeResponse, TableResponse
 from cavchar.parameters import ParameterSpec
 from cavchar.priors import LogUniform, Prior
 from cavchar.records import ProbeRecord
 
 __all__ = ["fit_probes", "fit_probes_with_trajectory", "ProbePriors", "AUTO_COARSE_PROBES",
-           "BLOCK_FRACTION"]
+           "BLOCK_FRACTION", "QUANTIZE_BIAS_LIMIT_SD", "QUANTIZE_REFINES"]
 
 #: records longer than this use the coarse mode under ``mode="auto"``
 AUTO_COARSE_PROBES = 300_000
@@ -66,6 +75,10 @@ AUTO_COARSE_PROBES = 300_000
 #: bias bound exceeds BIAS_LIMIT_SD the blocks are halved and the posterior sampled again
 #: (at most twice)
 BLOCK_FRACTION = 0.01
+#: quantized mode: largest accepted bias bound (posterior sd) of the interval quantization
+QUANTIZE_BIAS_LIMIT_SD = 0.1
+#: quantized mode: doublings of the representatives before falling back to the exact route
+QUANTIZE_REFINES = 2
 #: probes used by the pilot that finds the starting point
 PILOT_PROBES = 50_000
 #: draws whose marginals are averaged into the posterior mean trajectory
@@ -221,7 +234,7 @@ def fit_probes(
     settings, seed
         Sampler settings; ``seed`` overrides ``settings.seed``.
     mode
-        ``"exact"``, ``"coarse"`` or ``"auto"`` (module docstring).
+        ``"exact"``, ``"coarse"``, ``"quantized"`` or ``"auto"`` (module docstring).
     block_probes
         Probes per block in the coarse mode (default from the pilot estimate: 1% of
         the typical dwell time).
@@ -236,7 +249,7 @@ def fit_probes(
     Returns
     -------
     FitResult
-        Kind ``"probes-exact"`` or ``"probes-coarse"``.
+        Kind ``"probes-exact"``, ``"probes-coarse"`` or ``"probes-quantized"``.
     """
     return fit_probes_with_trajectory(
         record, response=response, freq_hz=freq_hz, stage_temp_k=stage_temp_k, priors=priors,
@@ -257,8 +270,8 @@ def _fit(record, *, response=None, freq_hz=None, stage_temp_k=None, priors=None,
     record = _read(record)
     response = _response(response)
     priors = priors or ProbePriors()
-    if mode not in ("auto", "exact", "coarse"):
-        raise InputError(f"unknown mode {mode!r}", hint="use auto, exact or coarse")
+    if mode not in ("auto", "exact", "coarse", "quantized"):
+        raise InputError(f"unknown mode {mode!r}", hint="use auto, exact, coarse or quantized")
     settings = sampler_settings(settings, seed)
     specs = (ParameterSpec("lifetime", "s", "T_c", priors.lifetime, log_scale=True),
              ParameterSpec("n_thermal", "", "n_th", priors.n_thermal, log_scale=True),
@@ -287,9 +300,17 @@ def _fit(record, *, response=None, freq_hz=None, stage_temp_k=None, priors=None,
         budget = exact_cost(ProbeLikelihood(record, response, n_levels, initial=initial,
                                             max_levels=cap), guess, sampler)
         use_coarse = not budget["affordable"]
+    irregular = probe_steps(record.time, record.bounds).kind == "irregular"
+    use_quant = irregular and not use_coarse and mode in ("auto", "quantized")
+    bins = QUANTIZE_BINS
     for _attempt in range(2):
         exact = ProbeLikelihood(record, response, n_levels, initial=initial, max_levels=cap)
-        model = BlockedProbeLikelihood(exact, max(1, blocks)) if use_coarse else exact
+        if use_coarse:
+            model = BlockedProbeLikelihood(exact, max(1, blocks))
+        elif use_quant:
+            model = QuantizedProbeLikelihood(exact, bins)
+        else:
+            model = exact
         run = sample_posterior_auto(model, specs, guess, settings, sampler)
         needed = exact.levels_for(run.draws[:, 0], run.draws[:, 1], cap=False)
         top = int(np.quantile(needed, 0.999, method="higher"))
@@ -322,6 +343,26 @@ def _fit(record, *, response=None, freq_hz=None, stage_temp_k=None, priors=None,
         model = BlockedProbeLikelihood(exact, blocks)
         run = sample_posterior_auto(model, specs, np.median(run.draws, axis=0), settings,
                                       sampler)
+    while use_quant:
+        check = bias_check(model, run.draws, limit_sd=QUANTIZE_BIAS_LIMIT_SD)
+        checks["quantize_bias"] = check
+        if check["bias_bound_sd"] < QUANTIZE_BIAS_LIMIT_SD:
+            break
+        refits = checks.setdefault("quantize_refits", [])
+        refits.append({"bins": int(bins), "bias_bound_sd": check["bias_bound_sd"]})
+        median = np.median(run.draws, axis=0)
+        if len(refits) > QUANTIZE_REFINES or check["quantization_exact"]:
+            checks["quantize_fallback"] = (
+                f"bias bound {check['bias_bound_sd']:.3g} sd not below "
+                f"{QUANTIZE_BIAS_LIMIT_SD} with {bins} representative intervals: the exact "
+                "likelihood was sampled instead")
+            use_quant = False
+            model = exact
+            run = sample_posterior_auto(exact, specs, median, settings, sampler)
+            break
+        bins *= 2
+        model = QuantizedProbeLikelihood(exact, bins)
+        run = sample_posterior_auto(model, specs, median, settings, sampler)
     if use_coarse:
         if not check["bias_bound_sd"] < BIAS_LIMIT_SD:
             warnings.warn(f"coarse mode: the bias bound {check['bias_bound_sd']:.2f} posterior "
@@ -348,12 +389,27 @@ def _fit(record, *, response=None, freq_hz=None, stage_temp_k=None, priors=None,
                         "fraction_of_ones": float(np.nanmean(record.outcome)),
                         "spacing": exact.steps.kind}
     extras["pilot_guess"] = dict(zip(exact.names, guess.tolist(), strict=True))
-    model_settings = {"mode": "coarse" if use_coarse else "exact",
+    median = np.median(run.draws, axis=0)
+    intervals = exact.interval_route(median)
+    if use_quant:
+        check = checks["quantize_bias"]
+        intervals = {**model.describe(), "exact_route": intervals,
+                     "bias_bound_sd": check["bias_bound_sd"],
+                     "bias_limit_sd": QUANTIZE_BIAS_LIMIT_SD,
+                     "draws_checked": check["n_checked"],
+                     "bound": f"bias bound {check['bias_bound_sd']:.3g} posterior sd on every "
+                              f"posterior mean (importance check on {check['n_checked']} "
+                              f"draws; accepted below {QUANTIZE_BIAS_LIMIT_SD})"}
+    elif "quantize_fallback" in checks:
+        intervals["quantized_fallback"] = checks["quantize_fallback"]
+    mode_used = "coarse" if use_coarse else "quantized" if use_quant else "exact"
+    model_settings = {"mode": mode_used,
                       "block_probes": int(blocks) if use_coarse else 1,
                       "levels_99.9%": top, "initial_state": initial, "sampler": sampler,
-                      "response": response.describe(),
-                      "intervals": exact.interval_route(np.median(run.draws, axis=0))}
-    kind = "probes-coarse" if use_coarse else "probes-exact"
+                      "response": response.describe(), "intervals": intervals}
+    if use_quant:
+        model_settings["quantized_bins"] = int(bins)
+    kind = f"probes-{mode_used}"
     result = finish_fit(kind, run, context, checks=checks, extras=extras,
                         model_settings=model_settings)
     return result, traj

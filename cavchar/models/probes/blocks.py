@@ -115,6 +115,12 @@ class BlockedProbeLikelihood:
         """Number of parameters: those of the exact model (lifetime, n_thermal, free response)."""
         return self.exact.ndim
 
+    def describe(self) -> dict:
+        """What the bias check records about the approximation: block size (probes), number
+        of blocks and the longest block (s)."""
+        return {"block_probes": self.block_probes, "n_blocks": self.n_blocks,
+                "block_span_s": self.block_span}
+
     def _pattern_emission(self, p1: np.ndarray):
         """Scaled block emissions (k, U, N) and their log scales (k, U)."""
         table = hk.emission_table(p1)[:, self._keep, :]  # (k, C_seen, N)
@@ -141,26 +147,33 @@ class BlockedProbeLikelihood:
         return hk.forward_loglik(tr, ex.initial_law(n_th, levels), emis, self.sequence, offs)
 
 
-def bias_check(coarse: BlockedProbeLikelihood, draws: np.ndarray, *, max_draws: int = 256,
-               batch: int = 32) -> dict[str, Any]:
-    """Importance-weight check of a coarse posterior against the exact likelihood.
+def bias_check(coarse, draws: np.ndarray, *, max_draws: int = 256, batch: int = 32,
+               limit_sd: float = BIAS_LIMIT_SD) -> dict[str, Any]:
+    """Importance-weight check of an approximate posterior against the exact likelihood.
 
     Parameters
     ----------
-    coarse : BlockedProbeLikelihood
+    coarse : BlockedProbeLikelihood or QuantizedProbeLikelihood
+        The approximate likelihood; its ``exact`` attribute is the exact one, and its
+        ``describe()`` says what the approximation was (added to the returned dict).
     draws : array (n, ndim)
-        Draws from the coarse posterior (physical units).
+        Draws from the approximate posterior (physical units).
     max_draws : int
         Draws checked (evenly spaced through ``draws``); each costs one exact pass.
+    batch : int
+        Parameter sets per likelihood call.
+    limit_sd : float
+        Bound accepted by the caller (posterior sd), recorded as ``limit_sd``.
 
     Returns
     -------
     dict
         ``n_checked``; ``loglik_difference`` (mean, sd, min, max of
-        ``log L_exact - log L_coarse``); ``bias_bound_sd`` (coefficient of
+        ``log L_exact - log L_approximate``); ``bias_bound_sd`` (coefficient of
         variation of the weights: bound on every posterior-mean shift in sd);
         ``shift_sd`` per parameter (importance-weighted minus plain mean, in sd);
-        ``weight_ess``; ``corrected_mean`` per parameter.
+        ``weight_ess``; ``corrected_mean`` per parameter; ``limit_sd``; and the entries
+        of ``coarse.describe()``.
     """
     draws = np.asarray(draws, dtype=float)
     pick = np.unique(np.linspace(0, draws.shape[0] - 1, min(max_draws, draws.shape[0]))
@@ -184,16 +197,15 @@ def bias_check(coarse: BlockedProbeLikelihood, draws: np.ndarray, *, max_draws: 
     names = list(coarse.names)
     return {
         "n_checked": int(n),
-        "block_probes": coarse.block_probes,
-        "n_blocks": coarse.n_blocks,
-        "block_span_s": coarse.block_span,
+        **coarse.describe(),
         "loglik_difference": {"mean": float(delta.mean()), "sd": float(delta.std()),
                               "min": float(delta.min()), "max": float(delta.max())},
         "bias_bound_sd": cv,
         "shift_sd": {k: float(v) for k, v in zip(names, shift, strict=True)},
         "weight_ess": float(1.0 / np.sum(w * w)),
         "corrected_mean": {k: float(v) for k, v in zip(names, wmean, strict=True)},
-        "limit_sd": BIAS_LIMIT_SD,
-        "method": "importance weights exp(log L_exact - log L_coarse) on coarse posterior "
-                  "draws; |mean shift| / sd <= sd(w) / mean(w) (Cauchy-Schwarz)",
+        "limit_sd": float(limit_sd),
+        "method": "importance weights exp(log L_exact - log L_approximate) on posterior "
+                  "draws of the approximate likelihood; |mean shift| / sd <= sd(w) / mean(w) "
+                  "(Cauchy-Schwarz)",
     }

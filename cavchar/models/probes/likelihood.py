@@ -501,6 +501,15 @@ def route_text(route: dict) -> str:
     from cavchar.units import format_quantity
 
     kind = route["route"]
+    if kind == "quantized intervals":
+        how = (f"{route['bins_used']} distinct intervals, each its own representative"
+               if route["quantization_exact"] else
+               f"{route['bins_used']} representative intervals (bin means, edge ratio "
+               f"{route['largest_bin_ratio']:.3f})")
+        return (f"probe intervals: irregular, quantized route, {how}; bias bound "
+                f"{route['bias_bound_sd']:.3f} posterior sd (checked against the exact "
+                f"likelihood on {route['draws_checked']} draws, accepted below "
+                f"{route['bias_limit_sd']:g})")
     if kind == "regular clock":
         return (f"probe intervals: regular clock, "
                 f"{format_quantity(route['interval_s'], 'time')} (exact)")
