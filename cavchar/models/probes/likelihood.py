@@ -105,18 +105,25 @@ class ProbeSteps:
     grid_step: float = 0.0
 
 
-def probe_steps(time: ArrayLike, starts: ArrayLike, rtol: float = STEP_RTOL,
-                max_distinct: int = MAX_DISTINCT_STEPS) -> ProbeSteps:
-    """Classify the probe intervals of a record (``starts``: first probe of each segment)."""
+def probe_intervals(time: ArrayLike, starts: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
+    """Interval before each probe (s), 0 at the first probe of each segment, shape (T,);
+    and the mask of the probes inside a segment (not its first), shape (T,)."""
     time = np.asarray(time, dtype=float)
     dts = np.zeros(time.size)
     dts[1:] = np.diff(time)
     first = np.zeros(time.size, bool)
     first[np.asarray(starts, dtype=np.int64)[:-1]] = True
     dts[first] = 0.0
-    inner = dts[~first]
+    return dts, ~first
+
+
+def probe_steps(time: ArrayLike, starts: ArrayLike, rtol: float = STEP_RTOL,
+                max_distinct: int = MAX_DISTINCT_STEPS) -> ProbeSteps:
+    """Classify the probe intervals of a record (``starts``: first probe of each segment)."""
+    dts, inside = probe_intervals(time, starts)
+    inner = dts[inside]
     if inner.size == 0:
-        return ProbeSteps("regular", np.array([0.0]), np.zeros(time.size, np.int32), dts)
+        return ProbeSteps("regular", np.array([0.0]), np.zeros(dts.size, np.int32), dts)
     uniq = np.unique(inner)
     new = np.ones(uniq.size, bool)
     new[1:] = uniq[1:] > uniq[:-1] * (1.0 + rtol)
@@ -126,8 +133,8 @@ def probe_steps(time: ArrayLike, starts: ArrayLike, rtol: float = STEP_RTOL,
         hi = np.maximum.reduceat(uniq, np.flatnonzero(new))
         if np.all(hi <= lo * (1.0 + 10 * rtol)):
             steps = 0.5 * (lo + hi)
-            idx = np.zeros(time.size, np.int32)
-            idx[~first] = label[np.searchsorted(uniq, inner)]
+            idx = np.zeros(dts.size, np.int32)
+            idx[inside] = label[np.searchsorted(uniq, inner)]
             kind = "regular" if steps.size == 1 else "indexed"
             return ProbeSteps(kind, steps, idx, dts)
     h = float(inner.mean()) / GRID_SUBSTEPS

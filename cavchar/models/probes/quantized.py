@@ -33,7 +33,12 @@ import math
 import numpy as np
 from numpy.typing import ArrayLike
 
-from cavchar.models.probes.likelihood import STEP_RTOL, ProbeLikelihood, ProbeSteps
+from cavchar.models.probes.likelihood import (
+    STEP_RTOL,
+    ProbeLikelihood,
+    ProbeSteps,
+    probe_intervals,
+)
 
 __all__ = ["QuantizedProbeLikelihood", "quantize_intervals", "QUANTIZE_BINS"]
 
@@ -74,14 +79,9 @@ def quantize_intervals(time: ArrayLike, starts: ArrayLike, bins: int,
     if int(bins) < 1:
         raise ValueError("at least one representative interval is needed")
     bins = int(bins)
-    time = np.asarray(time, dtype=float)
-    dts = np.zeros(time.size)
-    dts[1:] = np.diff(time)
-    first = np.zeros(time.size, bool)
-    first[np.asarray(starts, dtype=np.int64)[:-1]] = True
-    dts[first] = 0.0
-    inner = dts[~first]
-    idx = np.zeros(time.size, np.int32)
+    dts, inside = probe_intervals(time, starts)
+    inner = dts[inside]
+    idx = np.zeros(dts.size, np.int32)
     if inner.size == 0:
         return ProbeSteps("regular", np.array([0.0]), idx, dts), {
             "bins": 1, "exact": True, "largest_ratio": 1.0, "largest_relative_change": 0.0}
@@ -101,7 +101,7 @@ def quantize_intervals(time: ArrayLike, starts: ArrayLike, bins: int,
     used, label = np.unique(label, return_inverse=True)
     count = np.bincount(label)
     reps = np.bincount(label, weights=inner) / count  # bin mean: the bin's total time kept
-    idx[~first] = label
+    idx[inside] = label
     with np.errstate(divide="ignore", invalid="ignore"):
         change = np.abs(reps[label] - inner) / inner
     change = float(np.max(np.where(inner > 0, change, 0.0)))
