@@ -188,3 +188,27 @@ def test_cli_says_which_route_and_the_bound(tmp_path, run_cli):
     code, stdout, stderr = run_cli("fit", "probes", src, *options, "--exact")
     assert code == 0, stderr
     assert "exact grid route" in stdout and "quantized" not in stdout
+
+
+def test_sets_of_different_truncations_in_separate_chunks(monkeypatch):
+    """Regression: sets of neighbouring truncations share one call of the forward pass;
+    with the tables split into chunks of one set, each chunk's emission table must have
+    that chunk's levels.  The values equal those of the whole batch at once and, the
+    quantization being exact here (40 interval values <= 64 bins), the exact model's."""
+    rec = few_valued_record(300, 40, seed=2)
+    exact = ProbeLikelihood(rec, FringeResponse(**PARITY))
+    theta = np.column_stack([np.full(12, 0.05), np.geomspace(0.5, 3.0, 12)])
+    quant = QuantizedProbeLikelihood(exact, 64)
+    spans = []
+    forward = QuantizedProbeLikelihood._forward
+
+    def spy(self, levels, *args):
+        spans.append((int(levels.min()), int(levels.max())))
+        return forward(self, levels, *args)
+
+    monkeypatch.setattr(QuantizedProbeLikelihood, "_forward", spy)
+    whole = quant(theta)
+    assert any(lo < hi for lo, hi in spans)  # one call holds different truncations
+    monkeypatch.setattr(quantized_module, "TABLE_BYTES", 1)
+    np.testing.assert_allclose(quant(theta), whole, rtol=1e-12)
+    np.testing.assert_allclose(whole, exact(theta), rtol=1e-10)

@@ -158,7 +158,8 @@ class QuantizedProbeLikelihood:
             sl = slice(i, i + chunk)
             tr = ex._transitions(kappa[sl], n_th[sl], levels[sl], self.steps)
             f = None if free is None else free[sl]
-            emis = hk.emission_table(ex.prob_one(f, n, tr.n_sets))
+            # the chunk's own truncation: its transitions have as many levels as it needs
+            emis = hk.emission_table(ex.prob_one(f, tr.n_levels, tr.n_sets))
             out[sl] = hk.forward_loglik(tr, ex.initial_law(n_th[sl], levels[sl]), emis,
                                         ex.sequence)
         return out
