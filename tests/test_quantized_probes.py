@@ -212,3 +212,23 @@ def test_sets_of_different_truncations_in_separate_chunks(monkeypatch):
     monkeypatch.setattr(quantized_module, "TABLE_BYTES", 1)
     np.testing.assert_allclose(quant(theta), whole, rtol=1e-12)
     np.testing.assert_allclose(whole, exact(theta), rtol=1e-10)
+
+
+def test_budget_of_a_long_irregular_record_times_the_quantized_route(monkeypatch):
+    """A record "long" enough for the coarse mode (threshold lowered to 1,000 probes,
+    blocks as long as a dwell):
+    the budget times the likelihood auto would run instead, here the quantized one,
+    and, affordable, that route runs."""
+    import cavchar.fits.probes as fp
+
+    monkeypatch.setattr(fp, "AUTO_COARSE_PROBES", 1000)
+    monkeypatch.setattr(fp, "BLOCK_FRACTION", 1.0)  # blocks of a dwell: >= 4 probes
+    resp = FringeResponse(**PARITY)
+    rng = np.random.default_rng(31)
+    rec, _ = simulate_probe_record(0.05, 0.2, np.cumsum(rng.exponential(1e-3, 3000)), resp,
+                                   seed=32)
+    result = fit_probes(rec, response=resp, seed=5,
+                        settings=SamplerSettings(n_walkers=12, quiet=True))
+    budget = result.checks["exact_budget"]
+    assert budget["route_timed"] == "quantized intervals" and budget["affordable"]
+    assert str(result.kind) == "probes-quantized"

@@ -10,6 +10,9 @@ measurement says the exact one would take too long:
 with the sets needed ``EVALUATIONS[sampler]``: about 16,000 for the importance sampler
 (MAP search, Hessian and at most 16,000 proposal draws, cavchar.inference.importance) and
 about 64,000 for the emcee ensemble (32 walkers x 2,000 steps, typical for a converged run).
+For probes at irregular times the route timed is the quantized one (the route
+``mode="auto"`` takes for them when the coarse mode is not needed; its own bias check
+follows the fit), recorded as ``route_timed`` in the fit's ``checks.exact_budget``.
 """
 
 from __future__ import annotations

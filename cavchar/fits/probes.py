@@ -296,11 +296,14 @@ def _fit(record, *, response=None, freq_hz=None, stage_temp_k=None, priors=None,
     else:
         cap = choose_levels(max(5.0 * guess[1], 0.5), _n0(initial), _duration(record) / guess[0])
     budget = None
-    if mode == "auto" and use_coarse:  # long record: exact unless a measurement says too slow
-        budget = exact_cost(ProbeLikelihood(record, response, n_levels, initial=initial,
-                                            max_levels=cap), guess, sampler)
-        use_coarse = not budget["affordable"]
     irregular = probe_steps(record.time, record.bounds).kind == "irregular"
+    if mode == "auto" and use_coarse:  # long record: exact unless a measurement says too slow
+        timed = ProbeLikelihood(record, response, n_levels, initial=initial, max_levels=cap)
+        if irregular:  # the route auto would take instead of the coarse mode
+            timed = QuantizedProbeLikelihood(timed, QUANTIZE_BINS)
+        budget = exact_cost(timed, guess, sampler)
+        budget["route_timed"] = "quantized intervals" if irregular else "exact"
+        use_coarse = not budget["affordable"]
     use_quant = irregular and not use_coarse and mode in ("auto", "quantized")
     bins = QUANTIZE_BINS
     for _attempt in range(2):
