@@ -139,6 +139,18 @@ def test_fit_of_poisson_timed_probes_takes_the_quantized_route():
         assert summary.loc[name, "lo95"] <= truth <= summary.loc[name, "hi95"], name
 
 
+def _fit_poisson_record(lifetime: float, n_th: float, mean_interval: float, n_probes: int,
+                        seed: int):
+    """Fit (default mode) of a record simulated by cavchar with parity probes at Poisson
+    times; seeds: ``seed`` for the times, ``seed + 1`` for the record, ``seed + 2`` for
+    the fit."""
+    resp = FringeResponse(**PARITY)
+    times = np.cumsum(np.random.default_rng(seed).exponential(mean_interval, n_probes))
+    rec, _ = simulate_probe_record(lifetime, n_th, times, resp, seed=seed + 1)
+    return fit_probes(rec, response=resp, seed=seed + 2,
+                      settings=SamplerSettings(n_walkers=12, quiet=True))
+
+
 def test_fit_refines_then_falls_back_to_the_exact_route(monkeypatch):
     """Starting from 2 bins (negative control above) with one doubling allowed: the bias
     check fails twice (2 and 4 bins, probes at a quarter of the lifetime), so the fit
@@ -147,12 +159,7 @@ def test_fit_refines_then_falls_back_to_the_exact_route(monkeypatch):
 
     monkeypatch.setattr(fp, "QUANTIZE_BINS", 2)
     monkeypatch.setattr(fp, "QUANTIZE_REFINES", 1)
-    resp = FringeResponse(**PARITY)
-    rng = np.random.default_rng(21)
-    rec, _ = simulate_probe_record(0.02, 0.3, np.cumsum(rng.exponential(5e-3, 4000)), resp,
-                                   seed=22)
-    result = fit_probes(rec, response=resp, seed=4,
-                        settings=SamplerSettings(n_walkers=12, quiet=True))
+    result = _fit_poisson_record(0.02, 0.3, 5e-3, 4000, seed=21)
     refits = result.checks["quantize_refits"]
     assert [r["bins"] for r in refits] == [2, 4]
     assert all(r["bias_bound_sd"] >= QUANTIZE_BIAS_LIMIT_SD for r in refits)
@@ -223,12 +230,7 @@ def test_budget_of_a_long_irregular_record_times_the_quantized_route(monkeypatch
 
     monkeypatch.setattr(fp, "AUTO_COARSE_PROBES", 1000)
     monkeypatch.setattr(fp, "BLOCK_FRACTION", 1.0)  # blocks of a dwell: >= 4 probes
-    resp = FringeResponse(**PARITY)
-    rng = np.random.default_rng(31)
-    rec, _ = simulate_probe_record(0.05, 0.2, np.cumsum(rng.exponential(1e-3, 3000)), resp,
-                                   seed=32)
-    result = fit_probes(rec, response=resp, seed=5,
-                        settings=SamplerSettings(n_walkers=12, quiet=True))
+    result = _fit_poisson_record(0.05, 0.2, 1e-3, 3000, seed=31)
     budget = result.checks["exact_budget"]
     assert budget["route_timed"] == "quantized intervals" and budget["affordable"]
     assert str(result.kind) == "probes-quantized"
