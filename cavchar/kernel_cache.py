@@ -67,14 +67,15 @@ def _probes_regular() -> None:
 
 def _regular_levels() -> None:
     """The regular-clock forward kernels for every level count that has its own
-    unrolled kernels (even N up to ``MAX_UNROLLED_LEVELS``), for one parameter set and
-    for several: a fit picks N from its data (the pilot and the sampler's draws may
-    each need another), so one small fit alone leaves some of them to compile later."""
+    unrolled kernels (N = 2 .. ``MAX_UNROLLED_LEVELS``), for one parameter set and
+    for several: a fit picks N from its data (even counts from the truncation rule, odd
+    ones where a ceiling of the pilot or of the sampler caps it), so one small fit alone
+    leaves some of them to compile later."""
     from cavchar.models.probes import hmm_kernels as hk
     from cavchar.models.probes._unrolled import MAX_UNROLLED_LEVELS
 
     sequence = hk.ProbeSequence.from_outcomes(np.array([0.0, 1.0, 0.0, 1.0, 1.0, 0.0]))
-    for n in range(2, MAX_UNROLLED_LEVELS + 1, 2):
+    for n in range(2, MAX_UNROLLED_LEVELS + 1):
         matrix = np.full((n, n), 1.0 / n)
         emission = hk.emission_table(np.linspace(0.1, 0.9, n)[None])
         for sets in (1, 2):
