@@ -9,7 +9,9 @@ Records: 16 exact jump records of about 10^4 change points and 4 power ring-down
 * ``fit_many`` on a LocalCluster of 1 worker process;
 * ``fit_many`` on a LocalCluster of 2 worker processes (one per core here);
 * the same two on a standing cluster, whose workers have already fitted one batch
-  (imports done, kernels loaded), as a group's long-running cluster is.
+  (imports done, kernels loaded), as a group's long-running cluster is;
+* one ``cavchar fit`` command per record, one after the other (what a user without the
+  batch command runs: a fresh process each, imports included).
 
 Before them, the first fit on a fresh worker process, with the on-disk numba cache
 and with an empty one (``NUMBA_CACHE_DIR`` pointing at a new folder, so every kernel
@@ -130,6 +132,24 @@ def _loop(batch: Path, out: Path) -> tuple[float, float]:
     return time.perf_counter() - start, time.process_time() - cpu
 
 
+def _commands(batch: Path, out: Path) -> float:
+    """Wall time (s) of one ``cavchar fit`` command per entry, one after the other, as a
+    user without the batch command would run them (each a fresh process: imports,
+    kernels from the on-disk cache, fit, files without figures)."""
+    import subprocess
+
+    from cavchar.batch import read_batch_file
+
+    start = time.perf_counter()
+    for entry in read_batch_file(batch).entries:
+        done = subprocess.run([sys.executable, "-m", "cavchar.cli.main", "fit", entry.kind,
+                               *entry.argv, "--seed", str(entry.seed), "--quiet",
+                               "--no-figures", "-o", str(out / entry.label)],
+                              capture_output=True, text=True)
+        assert done.returncode == 0, done.stderr[-2000:]
+    return time.perf_counter() - start
+
+
 def _warm(batch: Path, out: Path) -> None:
     from cavchar.batch import read_batch_file
     from cavchar.batch.options import fit_from_argv
@@ -210,6 +230,7 @@ def main() -> None:
         t_loop, c_loop = _loop(batch, folder / "loop")
         t_one, s_one, fits_one, c_one, own_one, f_one = _batch(batch, folder / "one", 1)
         t_two, s_two, fits_two, c_two, own_two, f_two = _batch(batch, folder / "two", 2)
+        t_commands = _commands(batch, folder / "commands")
         warm_one = _standing(batch, folder, 1)
         warm_two = _standing(batch, folder, 2)
         load1 = os.getloadavg()[0]
@@ -236,6 +257,9 @@ def main() -> None:
           f"threads {f_two:.1f} s, this process {own_two:.1f} s)")
     print(f"wall-time speed-up of 2 workers over the loop: {t_loop / t_two:.2f}x "
           "(target >= 1.7x on a quiet 2-core machine)")
+    print(f"one `cavchar fit` command per record, one after the other: {t_commands:.1f} s "
+          f"wall; the batch on a new local cluster of 2 workers is "
+          f"{t_commands / t_two:.1f}x as fast")
     print(f"standing cluster (workers warm from an earlier batch): 1 worker {warm_one:.1f} s, "
           f"2 workers {warm_two:.1f} s wall; speed-up of 2 workers over the loop "
           f"{t_loop / warm_two:.2f}x; per-record overhead (1 worker vs loop) "
