@@ -209,3 +209,27 @@ def test_map_on_a_prior_bound_keeps_a_start_width():
     assert run.converged
     assert run.diagnostics["map"]["local_sd"]["lifetime"] > 1e-3
     assert np.ptp(run.draws[:, 0]) > 1e-5
+
+
+def test_numerical_gradient_matches_the_closed_form_inside_and_at_a_bound():
+    # f(x) = -(x0 - 1)^2 - 3 x1^2 + x0 x1: grad = (-2 (x0 - 1) + x1, -6 x1 + x0) (calculus)
+    from cavchar.inference.derivatives import numerical_gradient
+
+    calls = []
+
+    def f(x):
+        calls.append(x.shape[0])
+        return -(x[:, 0] - 1.0) ** 2 - 3.0 * x[:, 1] ** 2 + x[:, 0] * x[:, 1]
+
+    x = np.array([0.3, -0.7])
+    grad, f0 = numerical_gradient(f, x, [-np.inf, -np.inf], [np.inf, np.inf])
+    exact = np.array([-2 * (x[0] - 1) + x[1], -6 * x[1] + x[0]])
+    np.testing.assert_allclose(grad, exact, rtol=1e-8)  # central: error O(h^2) only
+    assert f0 == pytest.approx(f(x[None])[0]) and calls[0] == 5  # one batched call
+    # x1 on its upper bound: no point beyond it is asked for, a one-sided difference
+    # (error about 3 h = 3e-5 for the x1 term, whose second derivative is -6)
+    seen = []
+    grad, _ = numerical_gradient(lambda z: (seen.append(z), f(z))[1], x, [-1.0, -1.0],
+                                 [1.0, -0.7])
+    assert np.all(np.concatenate(seen)[:, 1] <= -0.7)
+    assert abs(grad[1] - exact[1]) < 1e-4 and grad[0] == pytest.approx(exact[0], rel=1e-8)

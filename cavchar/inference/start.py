@@ -13,7 +13,7 @@ from typing import Any
 import numpy as np
 
 from cavchar.errors import InputError
-from cavchar.inference.derivatives import numerical_hessian
+from cavchar.inference.derivatives import numerical_gradient, numerical_hessian
 from cavchar.parameters import ParameterSpace
 from cavchar.quantities import QUANTILES_68
 
@@ -160,41 +160,19 @@ class _CountedPosterior:
 
 
 class _BatchedGradient:
-    """``u -> (-log p(u), -grad log p(u))`` for L-BFGS-B from one batched call.
-
-    Central differences with step ``h_i = 1e-5 max(1, |u_i|)`` (error ``O(h^2)``,
-    Press et al., *Numerical Recipes*, 3rd ed., sect. 5.7); one-sided where a
-    step would leave ``[lo, hi]`` (then that point is not asked for).
-    """
+    """``u -> (-log p(u), -grad log p(u))`` for L-BFGS-B, from one batched call
+    (:func:`cavchar.inference.derivatives.numerical_gradient`); ``(huge, 0)`` where the
+    log posterior is not finite."""
 
     def __init__(self, logpost: Callable[[np.ndarray], np.ndarray], lo: np.ndarray,
                  hi: np.ndarray) -> None:
         self.logpost, self.lo, self.hi = logpost, lo, hi
 
     def __call__(self, u: np.ndarray) -> tuple[float, np.ndarray]:
-        u = np.asarray(u, dtype=float)
-        p = u.size
-        h = 1e-5 * np.maximum(1.0, np.abs(u))
-        up, down = u + h, u - h
-        inside_up, inside_down = up <= self.hi, down >= self.lo
-        up, down = np.where(inside_up, up, u), np.where(inside_down, down, u)
-        points = np.vstack([u, np.tile(u, (2 * p, 1))])
-        points[1 + np.arange(p), np.arange(p)] = up
-        points[1 + p + np.arange(p), np.arange(p)] = down
-        with np.errstate(invalid="ignore"):
-            f = self.logpost(points)
-        f0 = f[0]
+        grad, f0 = numerical_gradient(self.logpost, u, self.lo, self.hi)
         if not np.isfinite(f0):
-            return _BIG, np.zeros(p)
-        f_up, f_down = f[1:1 + p], f[1 + p:]
-        ok_up, ok_down = np.isfinite(f_up) & inside_up, np.isfinite(f_down) & inside_down
-        grad = np.zeros(p)
-        both = ok_up & ok_down
-        only_up, only_down = ok_up & ~ok_down, ok_down & ~ok_up
-        grad[both] = (f_up[both] - f_down[both]) / (up[both] - down[both])
-        grad[only_up] = (f_up[only_up] - f0) / (up[only_up] - u[only_up])
-        grad[only_down] = (f0 - f_down[only_down]) / (u[only_down] - down[only_down])
-        return -float(f0), -grad
+            return _BIG, np.zeros(np.size(u))
+        return -f0, -grad
 
 
 def local_covariance(logpost: Callable[[np.ndarray], np.ndarray], u_map: np.ndarray,
