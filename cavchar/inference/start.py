@@ -109,10 +109,11 @@ def find_map(logpost: Callable[[np.ndarray], np.ndarray], u0: np.ndarray,
         values["Nelder-Mead"] = None
     polished = False
     try:
-        # strictly inside the support: a likelihood is never asked for a value on its bound
-        inset = 1e-10 * np.maximum(1.0, np.maximum(np.abs(lo), np.abs(hi)))
-        with np.errstate(invalid="ignore"):
-            lo_in, hi_in = lo + inset, hi - inset
+        # strictly inside the support: a likelihood is never asked for a value on its
+        # bound (each finite bound moved in by its own relative 1e-10; open sides stay open)
+        with np.errstate(invalid="ignore"):  # inf - inf on open sides, replaced below
+            lo_in = np.where(np.isfinite(lo), lo + 1e-10 * np.maximum(1.0, np.abs(lo)), -np.inf)
+            hi_in = np.where(np.isfinite(hi), hi - 1e-10 * np.maximum(1.0, np.abs(hi)), np.inf)
         value_and_gradient = _BatchedGradient(counted, lo_in, hi_in)
         bounds = [(a if np.isfinite(a) else None, b if np.isfinite(b) else None)
                   for a, b in zip(lo_in, hi_in, strict=True)]
