@@ -408,11 +408,9 @@ def _unbounded_start(logpost: _Posterior, space: ParameterSpace, u_map: np.ndarr
     q16, q84 = axes.to_z(prior_quantiles_68(space))
     with np.errstate(invalid="ignore"):
         widths = q84 - q16
-    lo_z, hi_z = axes.to_z(lo), axes.to_z(hi)  # unchanged axes keep their support
-    lo_z = np.where(near, -np.inf, lo_z)
-    hi_z = np.where(near, np.inf, hi_z)
-    z_map, lpz_map, _info = find_map(target, z0, space, rng, widths=widths,
-                                     support=(lo_z, hi_z))
+    # mapped axes are open; the others keep their support (z = u there)
+    support_z = (np.where(near, -np.inf, lo), np.where(near, np.inf, hi))
+    z_map, lpz_map, _info = find_map(target, z0, space, rng, widths=widths, support=support_z)
     cov_z, method = local_covariance(target, z_map, lpz_map, space, widths=widths)
     return axes, z_map, lpz_map, cov_z, method
 
